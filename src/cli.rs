@@ -1,0 +1,188 @@
+//! The command line: argument definitions and dispatch. Each command lives in `cli/<command>.rs`, loads
+//! files, calls into the library and prints; none of the engineering is done here.
+
+use std::path::PathBuf;
+use std::process::ExitCode;
+
+use clap::{Parser, Subcommand};
+
+mod apply;
+mod calibrate;
+mod check;
+mod fireflow;
+mod loops;
+mod solve;
+mod tests;
+mod ui;
+
+/// Calibrate Hazen-Williams roughness of a water distribution model from hydrant flow tests.
+///
+/// With no command, opens the terminal workbench on the bundled demo district.
+#[derive(Debug, Parser)]
+#[command(name = "roughcal", version, about, long_about = None)]
+pub struct Cli {
+    #[command(subcommand)]
+    pub command: Option<Command>,
+}
+
+/// How the calibration compares model and field.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, clap::ValueEnum, Default)]
+pub enum FitTarget {
+    /// Static and residual pressures.
+    #[default]
+    Pressures,
+    /// The pressure drop alone (cancels elevation and boundary errors).
+    Drop,
+}
+
+#[derive(Debug, Subcommand)]
+pub enum Command {
+    /// Check a network file and print a summary, or every defect with its location.
+    Check {
+        /// Network file (TOML).
+        network: PathBuf,
+    },
+    /// Solve the steady state of a network (global gradient algorithm).
+    Solve {
+        network: PathBuf,
+        /// Boundary state to apply (a `[[condition]]` of the network).
+        #[arg(long)]
+        condition: Option<String>,
+        /// Extra demand on a junction, e.g. a flowing hydrant: NODE=FLOW in the network's flow unit.
+        #[arg(long = "demand", value_name = "NODE=FLOW")]
+        demands: Vec<String>,
+        /// Machine-readable output.
+        #[arg(long)]
+        json: bool,
+    },
+    /// Solve by loop corrections (Hardy Cross) and show each iteration.
+    Loops {
+        network: PathBuf,
+        /// Iteration limit.
+        #[arg(long, default_value_t = 50)]
+        iterations: usize,
+        #[arg(long)]
+        json: bool,
+    },
+    /// Compare every field test of a sheet with the model.
+    Tests {
+        network: PathBuf,
+        sheet: PathBuf,
+        /// Target residual pressure for available flow (psi or kPa, the sheet's unit).
+        #[arg(long)]
+        target: Option<f64>,
+        #[arg(long)]
+        json: bool,
+    },
+    /// Fire flow available at a target residual, from the sheet alone.
+    Fireflow {
+        sheet: PathBuf,
+        /// Target residual pressure (psi or kPa, the sheet's unit); default 20 psi / 140 kPa.
+        #[arg(long)]
+        target: Option<f64>,
+        #[arg(long)]
+        json: bool,
+    },
+    /// Fit the C-factor of each roughness group to the field sheet.
+    Calibrate {
+        network: PathBuf,
+        sheet: PathBuf,
+        /// Folder to write the coefficient set, calibrated network, report and plot into.
+        #[arg(long)]
+        out: Option<PathBuf>,
+        /// Overwrite outputs already in the folder.
+        #[arg(long)]
+        force: bool,
+        #[arg(long, value_enum, default_value_t = FitTarget::Pressures)]
+        fit: FitTarget,
+        /// Gauge accuracy, one standard deviation (psi or kPa); default 1 psi / 7 kPa.
+        #[arg(long = "gauge-sd")]
+        gauge_sd: Option<f64>,
+        /// Prior standard deviation of each group's C around its start value (off when absent).
+        #[arg(long = "prior-sd")]
+        prior_sd: Option<f64>,
+        /// Share-within thresholds of the fit statistics (psi or kPa), two values.
+        #[arg(long = "within", num_args = 2, value_names = ["TIGHT", "LOOSE"])]
+        within: Option<Vec<f64>>,
+        /// Iteration limit of the optimizer.
+        #[arg(long = "max-iterations", default_value_t = 50)]
+        max_iterations: u64,
+        #[arg(long)]
+        json: bool,
+    },
+    /// Write a network with a coefficient set applied.
+    Apply {
+        network: PathBuf,
+        /// A `coefficients.toml` or `coefficients.csv` from `calibrate`.
+        coefficients: PathBuf,
+        #[arg(long)]
+        out: PathBuf,
+        #[arg(long)]
+        force: bool,
+    },
+    /// Open the terminal workbench on a network and a field sheet (edits are saved to SHEET).
+    Open { network: PathBuf, sheet: PathBuf },
+    /// Start a new, empty field sheet from the template and open the workbench on it.
+    New { network: PathBuf, sheet: PathBuf },
+}
+
+/// Runs the parsed command line; errors are printed by `main`.
+pub fn run(cli: Cli) -> anyhow::Result<ExitCode> {
+    match cli.command {
+        None => ui::run_demo(),
+        Some(Command::Check { network }) => check::run(&network),
+        Some(Command::Solve {
+            network,
+            condition,
+            demands,
+            json,
+        }) => solve::run(&network, condition.as_deref(), &demands, json),
+        Some(Command::Loops {
+            network,
+            iterations,
+            json,
+        }) => loops::run(&network, iterations, json),
+        Some(Command::Tests {
+            network,
+            sheet,
+            target,
+            json,
+        }) => tests::run(&network, &sheet, target, json),
+        Some(Command::Fireflow {
+            sheet,
+            target,
+            json,
+        }) => fireflow::run(&sheet, target, json),
+        Some(Command::Calibrate {
+            network,
+            sheet,
+            out,
+            force,
+            fit,
+            gauge_sd,
+            prior_sd,
+            within,
+            max_iterations,
+            json,
+        }) => calibrate::run(calibrate::Args {
+            network,
+            sheet,
+            out,
+            force,
+            fit,
+            gauge_sd,
+            prior_sd,
+            within,
+            max_iterations,
+            json,
+        }),
+        Some(Command::Apply {
+            network,
+            coefficients,
+            out,
+            force,
+        }) => apply::run(&network, &coefficients, &out, force),
+        Some(Command::Open { network, sheet }) => ui::run_open(&network, &sheet),
+        Some(Command::New { network, sheet }) => ui::run_new(&network, &sheet),
+    }
+}

@@ -1,0 +1,6 @@
+use std::path::Path;
+use std::process::ExitCode;
+
+pub fn run(_sheet: &Path, _target: Option<f64>, _json: bool) -> anyhow::Result<ExitCode> {
+    anyhow::bail!("`fireflow` is being built")
+}

@@ -1,0 +1,185 @@
+//! Unit systems of the files and the single internal system the core computes in.
+//!
+//! Internally every length, elevation and head is in metres, every diameter in metres and every flow in
+//! cubic metres per second. Files and screens use the network's own system (`us` or `si`); conversion
+//! happens only at the edges, through [`UnitSystem`].
+
+use serde::{Deserialize, Serialize};
+
+/// Metres in one foot (exact, international foot).
+pub const M_PER_FT: f64 = 0.3048;
+/// Metres in one inch (exact).
+pub const M_PER_IN: f64 = 0.0254;
+/// Cubic metres per second in one US gallon per minute: 3.785411784 L / 60 s (exact gallon).
+pub const M3S_PER_GPM: f64 = 3.785_411_784e-3 / 60.0;
+/// psi of pressure per foot of water head, as stated in the issue and used across the trade
+/// (common practice, no source: 62.4 lb/ft^3 / 144 in^2/ft^2 = 0.4333, rounded in practice to 0.4335).
+pub const PSI_PER_FT: f64 = 0.4335;
+/// kPa of pressure per metre of water head: standard gravity times 1000 kg/m^3 (ISO 80000-3 g_n).
+pub const KPA_PER_M: f64 = 9.80665;
+
+/// The unit system a network file, a field sheet and the screens are written in.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize, Default)]
+#[serde(rename_all = "lowercase")]
+pub enum UnitSystem {
+    /// ft, in, gpm, psi.
+    #[default]
+    Us,
+    /// m, mm, L/s, kPa.
+    Si,
+}
+
+impl UnitSystem {
+    /// Parses the `units` key of a network file.
+    pub fn parse(text: &str) -> Option<Self> {
+        match text {
+            "us" => Some(Self::Us),
+            "si" => Some(Self::Si),
+            _ => None,
+        }
+    }
+
+    /// The key as written in files.
+    pub fn key(self) -> &'static str {
+        match self {
+            Self::Us => "us",
+            Self::Si => "si",
+        }
+    }
+
+    /// Label of lengths, elevations and heads (`ft` or `m`).
+    pub fn length_label(self) -> &'static str {
+        match self {
+            Self::Us => "ft",
+            Self::Si => "m",
+        }
+    }
+
+    /// Label of pipe and outlet diameters (`in` or `mm`).
+    pub fn diameter_label(self) -> &'static str {
+        match self {
+            Self::Us => "in",
+            Self::Si => "mm",
+        }
+    }
+
+    /// Label of flows (`gpm` or `L/s`).
+    pub fn flow_label(self) -> &'static str {
+        match self {
+            Self::Us => "gpm",
+            Self::Si => "L/s",
+        }
+    }
+
+    /// Label of pressures (`psi` or `kPa`).
+    pub fn pressure_label(self) -> &'static str {
+        match self {
+            Self::Us => "psi",
+            Self::Si => "kPa",
+        }
+    }
+
+    /// A length, elevation or head in file units, to metres.
+    pub fn length_to_m(self, value: f64) -> f64 {
+        match self {
+            Self::Us => value * M_PER_FT,
+            Self::Si => value,
+        }
+    }
+
+    /// Metres to file length units.
+    pub fn length_from_m(self, metres: f64) -> f64 {
+        match self {
+            Self::Us => metres / M_PER_FT,
+            Self::Si => metres,
+        }
+    }
+
+    /// A diameter in file units (in or mm), to metres.
+    pub fn diameter_to_m(self, value: f64) -> f64 {
+        match self {
+            Self::Us => value * M_PER_IN,
+            Self::Si => value / 1000.0,
+        }
+    }
+
+    /// Metres to file diameter units.
+    pub fn diameter_from_m(self, metres: f64) -> f64 {
+        match self {
+            Self::Us => metres / M_PER_IN,
+            Self::Si => metres * 1000.0,
+        }
+    }
+
+    /// A flow in file units (gpm or L/s), to m^3/s.
+    pub fn flow_to_m3s(self, value: f64) -> f64 {
+        match self {
+            Self::Us => value * M3S_PER_GPM,
+            Self::Si => value / 1000.0,
+        }
+    }
+
+    /// m^3/s to file flow units.
+    pub fn flow_from_m3s(self, m3s: f64) -> f64 {
+        match self {
+            Self::Us => m3s / M3S_PER_GPM,
+            Self::Si => m3s * 1000.0,
+        }
+    }
+
+    /// Pressure in file units (psi or kPa) of a water column of `head_m` metres.
+    pub fn pressure_from_head_m(self, head_m: f64) -> f64 {
+        match self {
+            Self::Us => head_m / M_PER_FT * PSI_PER_FT,
+            Self::Si => head_m * KPA_PER_M,
+        }
+    }
+
+    /// Water-column height in metres of a pressure in file units (psi or kPa).
+    pub fn pressure_to_head_m(self, pressure: f64) -> f64 {
+        match self {
+            Self::Us => pressure / PSI_PER_FT * M_PER_FT,
+            Self::Si => pressure / KPA_PER_M,
+        }
+    }
+
+    /// d(pressure in file units) / d(head in metres): the constant factor of [`Self::pressure_from_head_m`].
+    pub fn pressure_per_head_m(self) -> f64 {
+        self.pressure_from_head_m(1.0)
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn conversions_round_trip() {
+        for units in [UnitSystem::Us, UnitSystem::Si] {
+            for v in [0.0, 1.0, 123.456, -7.5] {
+                assert!((units.length_from_m(units.length_to_m(v)) - v).abs() < 1e-12);
+                assert!((units.diameter_from_m(units.diameter_to_m(v)) - v).abs() < 1e-12);
+                assert!((units.flow_from_m3s(units.flow_to_m3s(v)) - v).abs() < 1e-9);
+                assert!(
+                    (units.pressure_to_head_m(units.pressure_from_head_m(v)) - v).abs() < 1e-12
+                );
+            }
+        }
+    }
+
+    #[test]
+    fn one_thousand_gpm_in_litres_per_second() {
+        // NIST SP 811 Appendix B: 1 gal (US) = 3.785412 L, so 1000 gpm = 63.09 L/s.
+        let lps = UnitSystem::Si.flow_from_m3s(UnitSystem::Us.flow_to_m3s(1000.0));
+        assert!((lps - 63.0902).abs() < 1e-3, "{lps}");
+    }
+
+    #[test]
+    fn water_column_pressures() {
+        // 2.31 ft of water per psi (common practice, no source), i.e. 1/0.4335 = 2.307 ft.
+        let psi = UnitSystem::Us.pressure_from_head_m(2.31 * M_PER_FT);
+        assert!((psi - 1.0).abs() < 2e-3, "{psi}");
+        // 10 m of water is 98.07 kPa (standard gravity, ISO 80000-3).
+        assert!((UnitSystem::Si.pressure_from_head_m(10.0) - 98.0665).abs() < 1e-9);
+    }
+}
