@@ -3,5 +3,6 @@
 //! The core (`network` model, `hydraulics`, `fieldtest`, `calibrate`) is pure library code with no I/O;
 //! file loading, the CLI and the terminal UI sit at the edges.
 
+pub mod fieldtest;
 pub mod hydraulics;
 pub mod network;
