@@ -4,5 +4,6 @@
 //! file loading, the CLI and the terminal UI sit at the edges.
 
 pub mod calibrate;
+pub mod fieldtest;
 pub mod hydraulics;
 pub mod network;
