@@ -7,3 +7,4 @@ pub mod calibrate;
 pub mod fieldtest;
 pub mod hydraulics;
 pub mod network;
+pub mod storage;
