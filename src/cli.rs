@@ -126,6 +126,36 @@ pub enum Command {
     New { network: PathBuf, sheet: PathBuf },
 }
 
+/// Loads a network file; an invalid file has every diagnostic printed to stderr and yields `None` (the
+/// caller exits 1), an unreadable one is an error.
+pub fn load_network_or_report(
+    path: &std::path::Path,
+    load: impl Fn(
+        &std::path::Path,
+    ) -> Result<
+        roughcal::network::file::LoadedNetwork,
+        roughcal::network::file::NetworkFileError,
+    >,
+) -> anyhow::Result<Option<roughcal::network::file::LoadedNetwork>> {
+    use roughcal::network::file::NetworkFileError;
+    match load(path) {
+        Ok(loaded) => Ok(Some(loaded)),
+        Err(NetworkFileError::Invalid { diagnostics }) => {
+            for diagnostic in &diagnostics {
+                eprintln!("{diagnostic}");
+            }
+            eprintln!(
+                "{}: {} problem{} found; run `roughcal check` for a summary",
+                path.display(),
+                diagnostics.len(),
+                if diagnostics.len() == 1 { "" } else { "s" }
+            );
+            Ok(None)
+        }
+        Err(error) => Err(error.into()),
+    }
+}
+
 /// Runs the parsed command line; errors are printed by `main`.
 pub fn run(cli: Cli) -> anyhow::Result<ExitCode> {
     match cli.command {
