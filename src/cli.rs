@@ -124,6 +124,30 @@ pub enum Command {
     Open { network: PathBuf, sheet: PathBuf },
     /// Start a new, empty field sheet from the template and open the workbench on it.
     New { network: PathBuf, sheet: PathBuf },
+    /// Regenerate the bundled demo district, its true C-factors and its field sheet (for maintainers).
+    #[command(hide = true)]
+    MakeDemo {
+        /// The repository folder holding demo-network/ and field-sheets/.
+        #[arg(long, default_value = ".")]
+        root: PathBuf,
+    },
+}
+
+fn make_demo(root: &std::path::Path) -> anyhow::Result<ExitCode> {
+    use roughcal::demo;
+    let files = [
+        (
+            root.join("demo-network/district.toml"),
+            demo::district_network_toml(),
+        ),
+        (root.join("demo-network/true-c.toml"), demo::true_c_toml()),
+        (root.join("field-sheets/demo.csv"), demo::demo_sheet_csv()?),
+    ];
+    for (path, text) in files {
+        roughcal::storage::write_atomic(&path, text.as_bytes())?;
+        println!("wrote {}", path.display());
+    }
+    Ok(ExitCode::SUCCESS)
 }
 
 /// Loads a network file; an invalid file has every diagnostic printed to stderr and yields `None` (the
@@ -214,5 +238,6 @@ pub fn run(cli: Cli) -> anyhow::Result<ExitCode> {
         }) => apply::run(&network, &coefficients, &out, force),
         Some(Command::Open { network, sheet }) => ui::run_open(&network, &sheet),
         Some(Command::New { network, sheet }) => ui::run_new(&network, &sheet),
+        Some(Command::MakeDemo { root }) => make_demo(&root),
     }
 }
