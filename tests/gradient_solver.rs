@@ -382,24 +382,3 @@ fn head_sensitivity_matches_finite_differences() {
         );
     }
 }
-
-#[test]
-fn committed_demo_files_are_what_the_generator_makes() {
-    // The demo district, its true C values and its sheet are generated (`roughcal make-demo`); a stale
-    // copy would make the demo calibration find something other than the documented truth.
-    let root = env!("CARGO_MANIFEST_DIR");
-    let read =
-        |p: &str| std::fs::read_to_string(format!("{root}/{p}")).expect("committed demo file");
-    assert_eq!(
-        read("demo-network/district.toml"),
-        roughcal::demo::district_network_toml()
-    );
-    assert_eq!(
-        read("demo-network/true-c.toml"),
-        roughcal::demo::true_c_toml()
-    );
-    assert_eq!(
-        read("field-sheets/demo.csv"),
-        roughcal::demo::demo_sheet_csv().unwrap()
-    );
-}

@@ -11,7 +11,7 @@ use roughcal::fieldtest::{
     AvailableFlow, FieldSheet, SheetReading, default_target, load_sheet, screen_sheet,
 };
 
-const CAUTION: &str = "Caution: results are an aid, to be reviewed by a licensed engineer; local codes \
+pub(super) const CAUTION: &str = "Caution: results are an aid, to be reviewed by a licensed engineer; local codes \
                        and the fire authority govern.";
 
 pub fn run(sheet_path: &Path, target: Option<f64>, json: bool) -> anyhow::Result<ExitCode> {
@@ -94,18 +94,7 @@ fn to_json(sheet: &FieldSheet, reading: &SheetReading, target: f64) -> Value {
     let tests: Vec<Value> = results(sheet, reading, target)
         .into_iter()
         .map(|r| {
-            let findings: Vec<Value> = reading
-                .findings_for_row(r.row)
-                .map(|f| {
-                    json!({
-                        "severity": f.severity.key(),
-                        "rule": f.rule.key(),
-                        "column": f.column,
-                        "reason": f.reason,
-                        "line": f.line,
-                    })
-                })
-                .collect();
+            let findings: Vec<Value> = reading.findings_for_row(r.row).map(finding_json).collect();
             json!({
                 "test": r.test,
                 "line": r.line,
@@ -125,6 +114,17 @@ fn to_json(sheet: &FieldSheet, reading: &SheetReading, target: f64) -> Value {
         "pressure_unit": units.pressure_label(),
         "caution": CAUTION,
         "tests": tests,
+    })
+}
+
+/// A screening finding as JSON (shared by `fireflow` and `tests`).
+pub(super) fn finding_json(f: &roughcal::fieldtest::Finding) -> Value {
+    json!({
+        "severity": f.severity.key(),
+        "rule": f.rule.key(),
+        "column": f.column,
+        "reason": f.reason,
+        "line": f.line,
     })
 }
 
