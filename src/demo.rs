@@ -458,7 +458,7 @@ pub fn planned_junction_id(position: (usize, usize)) -> String {
 pub const DEMO_GAUGE_NOISE_PSI: f64 = 0.6;
 
 /// Seed of the synthetic gauge noise.
-pub const DEMO_NOISE_SEED: u64 = 0x5EED_0F_A1DE;
+pub const DEMO_NOISE_SEED: u64 = 0x005E_ED0F_A1DE;
 
 /// A draw of synthetic gauge noise for the demo sheet (psi), one per call, deterministic.
 pub struct GaugeNoise(Sequence);
