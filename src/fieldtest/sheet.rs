@@ -4,6 +4,7 @@
 //!
 //! Nothing here interprets a value; see [`super::reading`] for typed tests and findings.
 
+use std::collections::HashMap;
 use std::fmt;
 use std::path::Path;
 
@@ -166,6 +167,8 @@ pub enum EditError {
     NoSuchRow { row: usize, rows: usize },
     #[error("column {0} does not exist")]
     NoSuchColumn(String),
+    #[error("the row would be longer than the sheet holds (4 GiB)")]
+    RowTooLong,
 }
 
 /// One data row: the cells concatenated in one string with the end offset of each, which keeps a
@@ -214,8 +217,7 @@ impl Row {
         }
         let old = cells[index].to_string();
         cells[index] = value;
-        *self = Row::from_cells(cells)
-            .ok_or_else(|| EditError::NoSuchColumn("(row too long)".to_string()))?;
+        *self = Row::from_cells(cells).ok_or(EditError::RowTooLong)?;
         Ok(old)
     }
 
@@ -355,12 +357,10 @@ impl FieldSheet {
     ) -> Result<(UnitSystem, [Option<usize>; 13]), (String, SheetErrorKind)> {
         let mut columns: [Option<usize>; 13] = [None; 13];
         let mut units: Option<(UnitSystem, usize)> = None;
+        let mut seen: HashMap<String, usize> = HashMap::with_capacity(headers.len());
         for (i, name) in headers.iter().enumerate() {
             // Any repeated name is ambiguous to a crew, known column or not.
-            if let Some(first) = headers[..i]
-                .iter()
-                .position(|h| h.trim().eq_ignore_ascii_case(name.trim()))
-            {
+            if let Some(first) = seen.insert(name.trim().to_ascii_lowercase(), i) {
                 return Err((
                     name.clone(),
                     SheetErrorKind::DuplicateColumn(first + 1, i + 1),
@@ -419,7 +419,9 @@ impl FieldSheet {
                 ));
             }
         }
-        if !has(SheetColumn::Flow) && !(has(SheetColumn::Pitot) && has(SheetColumn::Outlet)) {
+        let flow_given =
+            has(SheetColumn::Flow) || (has(SheetColumn::Pitot) && has(SheetColumn::Outlet));
+        if !flow_given {
             let flow = SheetColumn::Flow.header_name(units);
             return Err((
                 flow.to_string(),
@@ -623,8 +625,7 @@ impl FieldSheet {
         if at > self.rows.len() {
             return Err(self.no_such_row(at));
         }
-        let row = Row::from_cells(cells.iter().map(String::as_str))
-            .ok_or_else(|| EditError::NoSuchColumn("(row too long)".to_string()))?;
+        let row = Row::from_cells(cells.iter().map(String::as_str)).ok_or(EditError::RowTooLong)?;
         self.rows.insert(at, row);
         self.lines.insert(at, 0);
         self.renumber();
@@ -750,6 +751,19 @@ mod tests {
             sheet.set_cell(9, SheetColumn::Test, "x"),
             Err(EditError::NoSuchRow { row: 9, rows: 2 })
         ));
+    }
+
+    #[test]
+    fn odd_rows_round_trip() {
+        // A lone blank quoted cell, an unterminated quote, a blank line (dropped: it is no row).
+        let header = template_header(UnitSystem::Us).join(",");
+        for rows in ["\"\"\n", "T1,\"open\n", "\n\nT1\n", "\"a\"\"b\",,\n"] {
+            let text = format!("{header}\n{rows}");
+            let sheet = FieldSheet::parse(&text, "odd.csv").unwrap();
+            let again = FieldSheet::parse(&sheet.to_csv_string(), "odd.csv").unwrap();
+            assert_eq!(again.to_csv_string(), sheet.to_csv_string(), "{rows:?}");
+            assert_eq!(again.row_count(), sheet.row_count(), "{rows:?}");
+        }
     }
 
     #[test]
