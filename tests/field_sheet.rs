@@ -750,3 +750,18 @@ fn fireflow_load_error_exits_1() {
         )
     );
 }
+
+#[test]
+fn save_into_a_missing_folder_is_an_error_value() {
+    let dir = tempfile::tempdir().unwrap();
+    let path = dir.path().join("no-such-folder").join("sheet.csv");
+    let error = save_sheet(&FieldSheet::empty(UnitSystem::Us), &path).unwrap_err();
+    assert!(matches!(error.kind, SheetErrorKind::Write(_)));
+    assert!(
+        error.to_string().starts_with(&format!(
+            "{}: cannot write a temporary file",
+            path.display()
+        )),
+        "{error}"
+    );
+}

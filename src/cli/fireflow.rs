@@ -12,7 +12,7 @@ use roughcal::fieldtest::{
 };
 use roughcal::network::UnitSystem;
 
-const CAUTION: &str = "Caution: results are an aid, to be reviewed by a licensed engineer; local codes \
+pub(super) const CAUTION: &str = "Caution: results are an aid, to be reviewed by a licensed engineer; local codes \
                        and the fire authority govern.";
 
 pub fn run(sheet_path: &Path, target: Option<f64>, json: bool) -> anyhow::Result<ExitCode> {
@@ -95,18 +95,7 @@ fn to_json(sheet: &FieldSheet, reading: &SheetReading, target: f64) -> Value {
     let tests: Vec<Value> = results(sheet, reading, target)
         .into_iter()
         .map(|r| {
-            let findings: Vec<Value> = reading
-                .findings_for_row(r.row)
-                .map(|f| {
-                    json!({
-                        "severity": f.severity.key(),
-                        "rule": f.rule.key(),
-                        "column": f.column,
-                        "reason": f.reason,
-                        "line": f.line,
-                    })
-                })
-                .collect();
+            let findings: Vec<Value> = reading.findings_for_row(r.row).map(finding_json).collect();
             json!({
                 "test": r.test,
                 "line": r.line,
@@ -126,6 +115,17 @@ fn to_json(sheet: &FieldSheet, reading: &SheetReading, target: f64) -> Value {
         "pressure_unit": units.pressure_label(),
         "caution": CAUTION,
         "tests": tests,
+    })
+}
+
+/// A screening finding as JSON (shared by `fireflow` and `tests`).
+pub(super) fn finding_json(f: &roughcal::fieldtest::Finding) -> Value {
+    json!({
+        "severity": f.severity.key(),
+        "rule": f.rule.key(),
+        "column": f.column,
+        "reason": f.reason,
+        "line": f.line,
     })
 }
 

@@ -9,6 +9,7 @@ use std::fmt;
 use std::path::Path;
 
 use crate::network::UnitSystem;
+use crate::storage::{WriteError, write_atomic};
 
 /// A known column of the field sheet, whatever its unit suffix.
 #[derive(Debug, Clone, Copy, PartialEq, Eq, Hash, PartialOrd, Ord)]
@@ -110,7 +111,7 @@ pub fn template_header(units: UnitSystem) -> Vec<&'static str> {
 pub enum SheetErrorKind {
     #[error("cannot read the file: {0}")]
     Io(String),
-    #[error("cannot write the file: {0}")]
+    #[error("{0}")]
     Write(String),
     #[error("not a text file: {0}")]
     NotText(String),
@@ -693,23 +694,28 @@ pub fn load_sheet(path: &Path) -> Result<FieldSheet, SheetError> {
     FieldSheet::parse(text, &file)
 }
 
-/// Writes a field sheet file. The text goes to a temporary file beside it that then replaces the
-/// sheet, so a save interrupted half-way (an editor saves after every edit) never leaves half a sheet.
+/// Writes a field sheet file through [`crate::storage::write_atomic`]: a save interrupted half-way (an
+/// editor saves after every edit) leaves the previous file, never half a sheet.
 pub fn save_sheet(sheet: &FieldSheet, path: &Path) -> Result<(), SheetError> {
-    let error = |e: std::io::Error| SheetError {
-        file: path.display().to_string(),
-        line: None,
-        column: None,
-        kind: SheetErrorKind::Write(e.to_string()),
-    };
-    let name = path
-        .file_name()
-        .map_or_else(|| "sheet".into(), |n| n.to_string_lossy().into_owned());
-    let temporary = path.with_file_name(format!(".{name}.saving"));
-    std::fs::write(&temporary, sheet.to_csv_string()).map_err(error)?;
-    std::fs::rename(&temporary, path).map_err(|e| {
-        let _ = std::fs::remove_file(&temporary);
-        error(e)
+    write_atomic(path, sheet.to_csv_string().as_bytes()).map_err(|e| {
+        let reason = match &e {
+            WriteError::Temporary { source, .. } => {
+                format!("cannot write a temporary file beside it: {source}")
+            }
+            WriteError::Write { source, .. } => {
+                format!("writing failed, the previous file is kept: {source}")
+            }
+            WriteError::Replace { source, .. } => {
+                format!("cannot replace the file, the previous file is kept: {source}")
+            }
+            WriteError::Exists { .. } => "the file already exists".to_string(),
+        };
+        SheetError {
+            file: path.display().to_string(),
+            line: None,
+            column: None,
+            kind: SheetErrorKind::Write(reason),
+        }
     })
 }
 

@@ -1,6 +1,11 @@
 //! The network model, its units, and (at the edge) its file format.
 
+pub mod edit;
+pub mod file;
 pub mod model;
+mod pump_curve;
+pub mod suggest;
+pub mod summary;
 pub mod units;
 
 pub use model::*;
