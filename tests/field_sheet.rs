@@ -312,7 +312,7 @@ fn several_hydrants_with_computed_flows() {
     assert!((test.flowing[2].flow(us) - 745.75).abs() < 1e-6);
     assert!((test.total_flow() - (1000.0 + 1006.7625 + 745.75)).abs() < 1e-6);
     assert!((test.static_pressure() - 70.0).abs() < 1e-9);
-    assert!(test.flowing[0].coefficient_defaulted == false);
+    assert!(!test.flowing[0].coefficient_defaulted);
 }
 
 #[test]
@@ -603,8 +603,14 @@ fn rule_implausible_flow() {
         f.reason
     );
     // A pitot reading above the static.
-    let f = one_finding("T1,,,H1,H2,60,45,,65,2.5,,,\n", Rule::ImplausibleFlow);
+    let f = one_finding("T1,,,H1,H2,60,45,1500,65,,,,\n", Rule::ImplausibleFlow);
     assert_eq!(f.column, "pitot_psi");
+    assert!(
+        f.reason
+            .starts_with("pitot reading 65 psi at hydrant H2 is above the static 60 psi"),
+        "{}",
+        f.reason
+    );
     // 1000 gpm through 2.5 in needs 35.5 psi: plausible at 60 psi static.
     assert!(findings_of("T1,,,H1,H2,60,45,1000,,2.5,,,\n", Rule::ImplausibleFlow).is_empty());
 }
@@ -742,5 +748,20 @@ fn fireflow_load_error_exits_1() {
         format!(
             "{path}:1: residual_kpa: mixed units: this column is si but `static_psi` is us; a sheet is all us or all si"
         )
+    );
+}
+
+#[test]
+fn save_into_a_missing_folder_is_an_error_value() {
+    let dir = tempfile::tempdir().unwrap();
+    let path = dir.path().join("no-such-folder").join("sheet.csv");
+    let error = save_sheet(&FieldSheet::empty(UnitSystem::Us), &path).unwrap_err();
+    assert!(matches!(error.kind, SheetErrorKind::Write(_)));
+    assert!(
+        error.to_string().starts_with(&format!(
+            "{}: cannot write a temporary file",
+            path.display()
+        )),
+        "{error}"
     );
 }

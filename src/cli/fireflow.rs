@@ -8,8 +8,9 @@ use anyhow::bail;
 use serde_json::{Value, json};
 
 use roughcal::fieldtest::{
-    AvailableFlow, FieldSheet, SheetReading, default_target, load_sheet, screen_sheet,
+    AvailableFlow, FieldSheet, Severity, SheetReading, default_target, load_sheet, screen_sheet,
 };
+use roughcal::network::UnitSystem;
 
 pub(super) const CAUTION: &str = "Caution: results are an aid, to be reviewed by a licensed engineer; local codes \
                        and the fire authority govern.";
@@ -128,8 +129,13 @@ pub(super) fn finding_json(f: &roughcal::fieldtest::Finding) -> Value {
     })
 }
 
-fn cell(value: Option<f64>) -> String {
-    value.map_or_else(|| "-".to_string(), |v| format!("{v:.0}"))
+/// A number of the table: whole gpm and psi; L/s and kPa to one decimal.
+fn cell(value: Option<f64>, units: UnitSystem) -> String {
+    let decimals = match units {
+        UnitSystem::Us => 0,
+        UnitSystem::Si => 1,
+    };
+    value.map_or_else(|| "-".to_string(), |v| format!("{v:.decimals$}"))
 }
 
 fn table(sheet: &FieldSheet, reading: &SheetReading, target: f64) -> String {
@@ -150,8 +156,8 @@ fn table(sheet: &FieldSheet, reading: &SheetReading, target: f64) -> String {
         let (errors, warnings) = reading
             .findings_for_row(r.row)
             .fold((0, 0), |(e, w), f| match f.severity {
-                roughcal::fieldtest::Severity::Error => (e + 1, w),
-                roughcal::fieldtest::Severity::Warning => (e, w + 1),
+                Severity::Error => (e + 1, w),
+                Severity::Warning => (e, w + 1),
             });
         let findings = match (errors, warnings) {
             (0, 0) => String::new(),
@@ -166,10 +172,10 @@ fn table(sheet: &FieldSheet, reading: &SheetReading, target: f64) -> String {
                 r.test.clone()
             },
             r.line.to_string(),
-            cell(r.total_flow),
-            cell(r.static_pressure),
-            cell(r.residual_pressure),
-            cell(r.available.and_then(AvailableFlow::value)),
+            cell(r.total_flow, units),
+            cell(r.static_pressure, units),
+            cell(r.residual_pressure, units),
+            cell(r.available.and_then(AvailableFlow::value), units),
             findings,
         ]);
     }

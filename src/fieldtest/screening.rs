@@ -277,42 +277,45 @@ fn screen_hydrants(test: &FlowTest, findings: &mut Vec<Finding>) {
                 ),
             ));
         }
-        // Velocity pressure at the outlet: read by the pitot, or the one the stated flow needs.
-        let (velocity_pressure, column) =
-            match (hydrant.pitot_pressure(units), hydrant.outlet(units)) {
-                (Some(pitot), _) => (pitot, SheetColumn::Pitot),
-                (None, Some(outlet)) => (
-                    pitot_pressure_for_flow(
-                        units,
-                        hydrant.coefficient,
-                        outlet,
-                        hydrant.flow(units),
+        // An open outlet cannot turn more pressure into velocity than the main held before it opened.
+        let unit = units.pressure_label();
+        if let Some(pitot) = hydrant.pitot_pressure(units) {
+            if pitot > static_p {
+                findings.push(Finding::for_test(
+                    test,
+                    Rule::ImplausibleFlow,
+                    SheetColumn::Pitot,
+                    format!(
+                        "pitot reading {} {unit} at hydrant {} is above the static {} {unit}: an \
+                         outlet cannot show more than the main held; check the reading and the units",
+                        number(pitot),
+                        hydrant.node,
+                        number(static_p)
                     ),
+                ));
+            }
+        } else if let Some(outlet) = hydrant.outlet(units) {
+            let flow = hydrant.flow(units);
+            let needed = pitot_pressure_for_flow(units, hydrant.coefficient, outlet, flow);
+            if needed > static_p {
+                findings.push(Finding::for_test(
+                    test,
+                    Rule::ImplausibleFlow,
                     SheetColumn::Flow,
-                ),
-                (None, None) => continue,
-            };
-        if velocity_pressure > static_p {
-            let unit = units.pressure_label();
-            let Some(outlet) = hydrant.outlet(units) else {
-                continue;
-            };
-            findings.push(Finding::for_test(
-                test,
-                Rule::ImplausibleFlow,
-                column,
-                format!(
-                    "{} {} through a {} {} outlet at hydrant {} needs a pitot pressure of {} {unit}, \
-                     above the static {} {unit}: check the flow, the outlet size and the units",
-                    number(hydrant.flow(units)),
-                    units.flow_label(),
-                    number(outlet),
-                    units.diameter_label(),
-                    hydrant.node,
-                    number(velocity_pressure),
-                    number(static_p)
-                ),
-            ));
+                    format!(
+                        "{} {} through a {} {} outlet at hydrant {} needs a pitot pressure of {} \
+                         {unit}, above the static {} {unit}: check the flow, the outlet size and the \
+                         units",
+                        number(flow),
+                        units.flow_label(),
+                        number(outlet),
+                        units.diameter_label(),
+                        hydrant.node,
+                        number(needed),
+                        number(static_p)
+                    ),
+                ));
+            }
         }
     }
 }
