@@ -682,7 +682,8 @@ impl<'t> Reader<'t> {
             ..SourceMap::default()
         };
 
-        let mut nodes: Namespace<NodeRef> = Namespace::new("node id");
+        // Ids are registered in file order, so a duplicate is reported where it appears second.
+        let mut pending_nodes: Vec<((String, Span), NodeRef, &'static str)> = Vec::new();
         let mut junction_spans: Vec<Span> = Vec::new();
 
         for mut rec in self.records(root, Section::Junction) {
@@ -695,7 +696,7 @@ impl<'t> Reader<'t> {
             let index = network.junctions.len();
             let id_span = id.as_ref().map_or(rec.header.clone(), |(_, s)| s.clone());
             if let Some(id) = &id {
-                nodes.register(self, "junction", id, NodeRef::Junction(index), "id");
+                pending_nodes.push((id.clone(), NodeRef::Junction(index), "junction"));
             }
             junction_spans.push(id_span);
             network.junctions.push(Junction {
@@ -716,13 +717,19 @@ impl<'t> Reader<'t> {
             let position = self.position(&rec);
             let index = network.fixed_heads.len();
             if let Some(id) = &id {
-                nodes.register(self, "fixed head", id, NodeRef::FixedHead(index), "id");
+                pending_nodes.push((id.clone(), NodeRef::FixedHead(index), "fixed head"));
             }
             network.fixed_heads.push(FixedHead {
                 id: id.map(|(id, _)| id).unwrap_or_default(),
                 head_m: units_or_us.length_to_m(head.unwrap_or(f64::NAN)),
                 position,
             });
+        }
+
+        let mut nodes: Namespace<NodeRef> = Namespace::new("node id");
+        pending_nodes.sort_by_key(|((_, span), _, _)| span.start);
+        for (id, node, what) in &pending_nodes {
+            nodes.register(self, what, id, *node, "id");
         }
 
         let mut groups: Namespace<usize> = Namespace::new("group name");
@@ -740,7 +747,7 @@ impl<'t> Reader<'t> {
             });
         }
 
-        let mut links: Namespace<LinkRef> = Namespace::new("link id");
+        let mut pending_links: Vec<((String, Span), LinkRef, &'static str)> = Vec::new();
         let mut all_links_resolved = true;
         for mut rec in self.records(root, Section::Pipe) {
             sources.pipes.push(self.location(rec.header.start));
@@ -755,7 +762,7 @@ impl<'t> Reader<'t> {
             let check_valve = self.boolean(&rec, "check_valve").value().unwrap_or(false);
             let index = network.pipes.len();
             if let Some(id) = &id {
-                links.register(self, "pipe", id, LinkRef::Pipe(index), "id");
+                pending_links.push((id.clone(), LinkRef::Pipe(index), "pipe"));
             }
             all_links_resolved &= ends.is_some();
             let (from, to) = ends.unwrap_or((NodeRef::Junction(0), NodeRef::Junction(0)));
@@ -781,7 +788,7 @@ impl<'t> Reader<'t> {
             let off = self.boolean(&rec, "off").value().unwrap_or(false);
             let index = network.pumps.len();
             if let Some(id) = &id {
-                links.register(self, "pump", id, LinkRef::Pump(index), "id");
+                pending_links.push((id.clone(), LinkRef::Pump(index), "pump"));
             }
             all_links_resolved &= ends.is_some();
             let (from, to) = ends.unwrap_or((NodeRef::Junction(0), NodeRef::Junction(0)));
@@ -797,6 +804,12 @@ impl<'t> Reader<'t> {
                 }),
                 off,
             });
+        }
+
+        let mut links: Namespace<LinkRef> = Namespace::new("link id");
+        pending_links.sort_by_key(|((_, span), _, _)| span.start);
+        for (id, link, what) in &pending_links {
+            links.register(self, what, id, *link, "id");
         }
 
         let mut conditions: Namespace<usize> = Namespace::new("condition name");
@@ -1049,8 +1062,8 @@ impl<'t> Reader<'t> {
         if slope_worst > tolerance {
             let message = format!(
                 "the least-squares curve h = a + bQ + cQ^2 through pump `curve` rises with flow near \
-                 {:.4} {}: head gain must fall as flow rises over the whole range; correct or add points",
-                units.flow_from_m3s(q_worst),
+                 {} {}: head gain must fall as flow rises over the whole range; correct or add points",
+                short_number(units.flow_from_m3s(q_worst)),
                 units.flow_label()
             );
             self.report_at(rec, &curve_span, message, "curve");
@@ -1253,6 +1266,17 @@ impl<'t> Reader<'t> {
 enum LinkKind {
     Pipe,
     Pump,
+}
+
+/// A number with at most four decimals and no trailing zeros, for messages.
+fn short_number(value: f64) -> String {
+    let text = format!("{value:.4}");
+    let text = text.trim_end_matches('0').trim_end_matches('.');
+    if text == "-0" {
+        "0".to_string()
+    } else {
+        text.to_string()
+    }
 }
 
 fn list_ids(network: &Network, junctions: &[usize]) -> String {
