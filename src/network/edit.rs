@@ -12,6 +12,7 @@ use std::ops::Range;
 
 use toml_edit::{Document, InlineTable, Item, Table, TableLike, Value};
 
+use super::file::value_number;
 use super::model::{DEFAULT_GROUP_MAX_C, DEFAULT_GROUP_MIN_C};
 
 /// Why an edit of a network file could not be made. Nothing is written when any edit fails.
@@ -69,11 +70,7 @@ pub fn apply_c_factors(
         })
         .collect();
     let found: BTreeSet<&String> = targets.iter().map(|(_, id, _)| id).collect();
-    let unknown: Vec<String> = c_by_pipe_id
-        .keys()
-        .filter(|id| !found.contains(id))
-        .cloned()
-        .collect();
+    let unknown = keys_not_in(c_by_pipe_id, |id| found.contains(id));
     if !unknown.is_empty() {
         return Err(NetworkEditError::UnknownPipes(unknown));
     }
@@ -109,11 +106,7 @@ pub fn apply_group_c(
         }
         known.insert(group.to_string());
     }
-    let unknown: Vec<String> = c_by_group_name
-        .keys()
-        .filter(|name| !known.contains(*name))
-        .cloned()
-        .collect();
+    let unknown = keys_not_in(c_by_group_name, |name| known.contains(name));
     if !unknown.is_empty() {
         return Err(NetworkEditError::UnknownGroups(unknown));
     }
@@ -166,11 +159,7 @@ pub fn update_groups(
         }
         targets.push((index, *update));
     }
-    let unknown: Vec<String> = updates
-        .keys()
-        .filter(|name| !found.contains(*name))
-        .cloned()
-        .collect();
+    let unknown = keys_not_in(updates, |name| found.contains(name));
     if !unknown.is_empty() {
         return Err(NetworkEditError::UnknownGroups(unknown));
     }
@@ -188,6 +177,11 @@ pub fn update_groups(
         }
     }
     Ok(editor.finish())
+}
+
+/// The keys of `map` for which `found` is false, in order.
+fn keys_not_in<T>(map: &BTreeMap<String, T>, found: impl Fn(&String) -> bool) -> Vec<String> {
+    map.keys().filter(|key| !found(key)).cloned().collect()
 }
 
 fn check_positive(what: &str, value: f64) -> Result<(), NetworkEditError> {
@@ -359,14 +353,6 @@ impl<'t> Editor<'t> {
             }
         }
         out
-    }
-}
-
-fn value_number(value: &Value) -> Option<f64> {
-    match value {
-        Value::Integer(i) => Some(*i.value() as f64),
-        Value::Float(f) => Some(*f.value()),
-        _ => None,
     }
 }
 

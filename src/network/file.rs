@@ -304,6 +304,21 @@ impl<T: Copy> Namespace<T> {
         }
     }
 
+    /// A namespace of ids gathered from several kinds of entries, registered in file order so that a
+    /// duplicate is reported where it appears second.
+    fn in_file_order(
+        reader: &mut Reader<'_>,
+        name: &'static str,
+        mut pending: Vec<((String, Span), T, &'static str)>,
+    ) -> Self {
+        pending.sort_by_key(|((_, span), _, _)| span.start);
+        let mut namespace = Self::new(name);
+        for (id, target, what) in &pending {
+            namespace.register(reader, what, id, *target, "id");
+        }
+        namespace
+    }
+
     fn get(&self, id: &str) -> Option<&Seen<T>> {
         self.seen.get(id)
     }
@@ -682,7 +697,6 @@ impl<'t> Reader<'t> {
             ..SourceMap::default()
         };
 
-        // Ids are registered in file order, so a duplicate is reported where it appears second.
         let mut pending_nodes: Vec<((String, Span), NodeRef, &'static str)> = Vec::new();
         let mut junction_spans: Vec<Span> = Vec::new();
 
@@ -726,11 +740,7 @@ impl<'t> Reader<'t> {
             });
         }
 
-        let mut nodes: Namespace<NodeRef> = Namespace::new("node id");
-        pending_nodes.sort_by_key(|((_, span), _, _)| span.start);
-        for (id, node, what) in &pending_nodes {
-            nodes.register(self, what, id, *node, "id");
-        }
+        let nodes = Namespace::in_file_order(self, "node id", pending_nodes);
 
         let mut groups: Namespace<usize> = Namespace::new("group name");
         for mut rec in self.records(root, Section::Group) {
@@ -806,11 +816,7 @@ impl<'t> Reader<'t> {
             });
         }
 
-        let mut links: Namespace<LinkRef> = Namespace::new("link id");
-        pending_links.sort_by_key(|((_, span), _, _)| span.start);
-        for (id, link, what) in &pending_links {
-            links.register(self, what, id, *link, "id");
-        }
+        let links = Namespace::in_file_order(self, "link id", pending_links);
 
         let mut conditions: Namespace<usize> = Namespace::new("condition name");
         let mut condition_spans: Vec<Span> = Vec::new();
@@ -1355,7 +1361,7 @@ fn reachable(network: &Network, closed_pipes: &[usize], pumps_off: &[usize]) -> 
 }
 
 /// A TOML number (integer or float) as f64.
-fn value_number(value: &Value) -> Option<f64> {
+pub(super) fn value_number(value: &Value) -> Option<f64> {
     match value {
         Value::Integer(i) => Some(*i.value() as f64),
         Value::Float(f) => Some(*f.value()),
