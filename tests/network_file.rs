@@ -129,7 +129,7 @@ id = "J-1"
 head = 500.0
 "#,
     );
-    assert_reports(
+    assert_exactly(
         &text,
         &[
             "t.toml:16:6: duplicate node id `T-1`: already used by the fixed head on line 3 (T-1 / id)",
@@ -473,6 +473,32 @@ curve = "steep"
              (BP-1 / curve)",
             "t.toml:24:9: pump `curve` must be an array of [flow, head gain] pairs, found string \
              `\"steep\"` (BP-2 / curve)",
+        ],
+    );
+}
+
+#[test]
+fn pump_curve_with_two_points_at_one_flow_or_negative_head() {
+    let text = with(
+        r#"[[pump]]
+id = "BP-1"
+from = "T-1"
+to = "J-1"
+curve = [[900.0, 70.0], [0.0, 100.0], [900.0, 60.0]]
+[[pump]]
+id = "BP-2"
+from = "T-1"
+to = "J-1"
+curve = [[0.0, 100.0], [500.0, 90.0], [900.0, -1.0]]
+"#,
+    );
+    assert_exactly(
+        &text,
+        &[
+            // Sorted by flow (a stable sort), the second point at 900 is the one written last.
+            "t.toml:19:39: pump `curve` has two points at flow 900 (BP-1 / curve)",
+            "t.toml:24:39: pump `curve` point must not have a negative head gain, found \
+             `[900.0, -1.0]` (BP-2 / curve)",
         ],
     );
 }
@@ -1037,6 +1063,45 @@ fn group_bounds_update_in_place_or_add_the_key() {
     );
 }
 
+#[test]
+fn edits_of_inline_entries_and_files_without_final_newline() {
+    let text = r#"units = "si"
+fixed_head = [{ id = "R", head = 100.0 }]
+junction = [{ id = "A", elevation = 10.0 }]
+pipe = [{ id = "1", from = "R", to = "A", length = 50.0, diameter = 150.0, c = 130.0, group = "g" }]
+group = [{ name = "g" }]"#;
+    let new: BTreeMap<String, f64> = [("1".to_string(), 99.0)].into();
+    let edited = apply_c_factors(text, &new).unwrap();
+    assert_eq!(edited, text.replace("c = 130.0", "c = 99.0"));
+    let updates: BTreeMap<String, GroupUpdate> = [(
+        "g".to_string(),
+        GroupUpdate {
+            min: Some(60.0),
+            max: None,
+            locked: Some(true),
+        },
+    )]
+    .into();
+    let edited = update_groups(text, &updates).unwrap();
+    assert_eq!(
+        edited,
+        text.replace(
+            "{ name = \"g\" }",
+            "{ name = \"g\", min = 60.0, locked = true }"
+        )
+    );
+    let network = load(&edited).network;
+    assert_eq!(network.groups[0].min_c, 60.0);
+    assert!(network.groups[0].locked);
+
+    let table_text = "units = \"us\"\n[[group]]\nname = \"g\"";
+    let edited = update_groups(table_text, &updates).unwrap();
+    assert_eq!(
+        edited,
+        "units = \"us\"\n[[group]]\nname = \"g\"\nmin = 60.0\nlocked = true"
+    );
+}
+
 // ---- `roughcal check` ----
 
 fn check(path: &std::path::Path) -> std::process::Output {
@@ -1093,4 +1158,6 @@ fn check_fails_clearly_on_an_unreadable_file() {
     assert_eq!(output.status.code(), Some(1));
     let stderr = String::from_utf8_lossy(&output.stderr);
     assert!(stderr.contains("cannot read network file"), "{stderr}");
+    assert!(stderr.contains("nowhere.toml"), "{stderr}");
+    assert_eq!(stderr.lines().count(), 1, "{stderr}");
 }

@@ -345,6 +345,9 @@ impl<'t> Editor<'t> {
     /// The original text with every planned edit made.
     fn finish(mut self) -> String {
         let mut out = self.text.to_string();
+        // Apply from the end of the text backwards so earlier offsets stay valid; of two insertions at
+        // one place the one planned last goes in first, so they read in the order they were planned.
+        self.splices.reverse();
         self.splices
             .sort_by_key(|splice| std::cmp::Reverse(splice.range.start));
         for splice in self.splices {

@@ -62,7 +62,7 @@ impl fmt::Display for Diagnostic {
 #[derive(Debug, thiserror::Error)]
 pub enum NetworkFileError {
     /// The file could not be read at all.
-    #[error("cannot read network file {file}: {source}")]
+    #[error("cannot read network file {file}")]
     Unreadable {
         file: String,
         #[source]
@@ -846,7 +846,19 @@ impl<'t> Reader<'t> {
                 Some("fixed_head"),
             );
         } else if all_links_resolved {
-            self.check_connectivity(&network, &junction_spans, &condition_spans);
+            // A junction whose id is missing or a duplicate is already reported; no pipe can reach it.
+            let reported: Vec<bool> = (0..network.junctions.len())
+                .map(|j| {
+                    let id = network
+                        .junctions
+                        .get(j)
+                        .map_or("", |junction| junction.id.as_str());
+                    nodes
+                        .get(id)
+                        .is_none_or(|seen| seen.target != NodeRef::Junction(j))
+                })
+                .collect();
+            self.check_connectivity(&network, &junction_spans, &condition_spans, &reported);
         }
 
         LoadedNetwork { network, sources }
@@ -1227,10 +1239,14 @@ impl<'t> Reader<'t> {
         network: &Network,
         junction_spans: &[Span],
         condition_spans: &[Span],
+        already_reported: &[bool],
     ) {
         let base = reachable(network, &[], &[]);
         let isolated: Vec<usize> = (0..network.junctions.len())
-            .filter(|&j| !base.get(j).copied().unwrap_or(false))
+            .filter(|&j| {
+                !base.get(j).copied().unwrap_or(false)
+                    && !already_reported.get(j).copied().unwrap_or(false)
+            })
             .collect();
         if let Some(&first) = isolated.first() {
             let ids = list_ids(network, &isolated);
