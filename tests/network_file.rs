@@ -56,18 +56,6 @@ fn load(text: &str) -> LoadedNetwork {
     }
 }
 
-/// Asserts that each expected line is among the diagnostics.
-fn assert_reports(text: &str, expected: &[&str]) {
-    let found = diagnostics(text);
-    for line in expected {
-        assert!(
-            found.iter().any(|d| d == line),
-            "missing diagnostic\n  {line}\nfound:\n  {}",
-            found.join("\n  ")
-        );
-    }
-}
-
 /// Asserts that the diagnostics are exactly these, in this order.
 fn assert_exactly(text: &str, expected: &[&str]) {
     let found = diagnostics(text);
