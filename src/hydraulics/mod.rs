@@ -1,5 +1,10 @@
 //! Steady-state hydraulics: the head-loss law, the gradient solver and the loop solver.
 
+pub mod gradient;
 pub mod headloss;
 
+pub use gradient::{
+    GradientSolver, LinkRef, LinkStatus, OperatingState, Solution, SolveError, SolveWarning,
+    SolverSettings,
+};
 pub use headloss::HazenWilliams;
