@@ -7,8 +7,11 @@ use std::process::ExitCode;
 
 use anyhow::Context as _;
 use roughcal::hydraulics::loops::{LoopError, LoopKind, LoopOptions, LoopSolution, solve_loops};
+use roughcal::network::file::load_network_file;
 use roughcal::network::{Network, NodeRef};
 use serde_json::{Value, json};
+
+use super::load_network_or_report;
 
 /// Advisory printed under every result that may inform design or fire flow.
 const REVIEW_NOTE: &str = "Results are an aid: have them reviewed by a licensed engineer; local codes \
@@ -17,7 +20,10 @@ const REVIEW_NOTE: &str = "Results are an aid: have them reviewed by a licensed 
 const CORRECTIONS_PER_LINE: usize = 6;
 
 pub fn run(network: &Path, iterations: usize, json: bool) -> anyhow::Result<ExitCode> {
-    let net = load_network(network)?;
+    let Some(loaded) = load_network_or_report(network, load_network_file)? else {
+        return Ok(ExitCode::from(1));
+    };
+    let net = loaded.network;
     let options = LoopOptions {
         max_iterations: iterations,
         ..LoopOptions::default()
@@ -42,14 +48,6 @@ pub fn run(network: &Path, iterations: usize, json: bool) -> anyhow::Result<Exit
         );
         Ok(ExitCode::from(2))
     }
-}
-
-/// Reads the network file. The loader is being written on its own branch; until it lands this says so.
-fn load_network(path: &Path) -> anyhow::Result<Network> {
-    anyhow::bail!(
-        "cannot read {}: network files are read by the network loader, which is not in this build yet",
-        path.display()
-    )
 }
 
 /// Label of loop `index` (0-based) as shown on screen and in JSON.
@@ -117,7 +115,7 @@ pub fn render_text(
             out,
             "{:>5}  {:>18}  corrections ({flow_unit})",
             "iter",
-            format!("imbalance ({head_unit})")
+            format!("max imbalance ({head_unit})")
         );
         for record in &solution.iterations {
             let cells: Vec<String> = record

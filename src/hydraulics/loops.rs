@@ -772,8 +772,58 @@ mod tests {
         }
     }
 
+    /// Largest difference between the loop solver's and the gradient solver's pipe flows, as a share
+    /// of the total demand.
+    fn gap_to_gradient_solver(net: &Network) -> f64 {
+        use crate::hydraulics::{GradientSolver, OperatingState};
+        let options = LoopOptions {
+            max_iterations: 50_000,
+            tolerance_m: 1e-9,
+            ..LoopOptions::default()
+        };
+        let loops = solve_loops(net, &net.c_factors(), options).expect("balances");
+        let gradient = GradientSolver::new(net)
+            .and_then(|s| s.solve(net, &OperatingState::base(net), &net.c_factors(), None))
+            .expect("gradient solution");
+        let total: f64 = net.junctions.iter().map(|j| j.demand_m3s).sum();
+        loops
+            .pipe_flow_m3s
+            .iter()
+            .zip(&gradient.pipe_flow_m3s)
+            .map(|(a, b)| (a - b).abs() / total)
+            .fold(0.0, f64::max)
+    }
+
+    #[test]
+    fn agrees_with_the_gradient_solver_on_looped_networks() {
+        // Two independent methods (Hardy Cross 1936 loop corrections and the global gradient method)
+        // solve the same equations, so their flows must agree.
+        for net in [
+            synthetic::grid(6, 6, 1),
+            Synthetic::new(2).grid(5, 7, 2),
+            synthetic::two_sources(6, 5, 3),
+            synthetic::ring_with_branches(10, 3, 2, 4),
+            synthetic::looped_city(150, 5),
+        ] {
+            let gap = gap_to_gradient_solver(&net);
+            assert!(gap < 1e-5, "{}: {gap}", net.title);
+        }
+    }
+
     proptest! {
         #![proptest_config(ProptestConfig::with_cases(32))]
+
+        #[test]
+        fn generated_networks_agree_with_the_gradient_solver(
+            kind in 1usize..4,
+            a in 2usize..6,
+            b in 2usize..6,
+            seed in any::<u64>(),
+        ) {
+            let net = shape(kind, a, b, seed);
+            let gap = gap_to_gradient_solver(&net);
+            prop_assert!(gap < 1e-5, "{}: {}", net.title, gap);
+        }
 
         #[test]
         fn generated_networks_balance_mass_and_energy(

@@ -1,7 +1,12 @@
 //! The network model, its units, and (at the edge) its file format.
 
+pub mod edit;
+pub mod file;
 pub mod graph;
 pub mod model;
+mod pump_curve;
+pub mod suggest;
+pub mod summary;
 pub mod synthetic;
 pub mod units;
 

@@ -1,0 +1,181 @@
+//! Evaluation of one trial set of group C-factors: solve every usable test (static and residual state),
+//! collect modelled pressures and their sensitivities to each group's C.
+
+use crate::hydraulics::{GradientSolver, OperatingState, Solution, SolveError};
+use crate::network::Network;
+
+use super::{CalibrationTest, FitTarget};
+
+/// Modelled pressures (m of water) of one test, and their derivatives with respect to each parameter
+/// group's C (m per unit of C), in parameter order.
+#[derive(Debug, Clone)]
+pub struct TestEvaluation {
+    pub static_head_m: f64,
+    pub residual_head_m: f64,
+    pub d_static_d_c: Vec<f64>,
+    pub d_residual_d_c: Vec<f64>,
+}
+
+/// Everything that stays fixed while the optimizer varies C: solver, states, which pipes belong to which
+/// parameter.
+pub struct Evaluator<'a> {
+    pub net: &'a Network,
+    pub tests: &'a [CalibrationTest],
+    solver: GradientSolver,
+    /// For each parameter, the pipes whose C it sets.
+    parameter_pipes: Vec<Vec<usize>>,
+    /// Static state of each test, by index into `static_states` (tests under one condition share it).
+    static_state_of_test: Vec<usize>,
+    static_states: Vec<OperatingState>,
+    residual_states: Vec<OperatingState>,
+    base_c: Vec<f64>,
+}
+
+impl<'a> Evaluator<'a> {
+    pub fn new(
+        net: &'a Network,
+        tests: &'a [CalibrationTest],
+        parameter_pipes: Vec<Vec<usize>>,
+    ) -> Result<Self, SolveError> {
+        let solver = GradientSolver::new(net)?;
+        let mut static_states: Vec<OperatingState> = Vec::new();
+        let mut static_keys: Vec<Option<usize>> = Vec::new();
+        let mut static_state_of_test = Vec::with_capacity(tests.len());
+        let mut residual_states = Vec::with_capacity(tests.len());
+        for test in tests {
+            let state = match test.condition {
+                Some(c) => OperatingState::for_condition(net, &net.conditions[c]),
+                None => OperatingState::base(net),
+            };
+            let slot = match static_keys.iter().position(|k| *k == test.condition) {
+                Some(slot) => slot,
+                None => {
+                    static_keys.push(test.condition);
+                    static_states.push(state.clone());
+                    static_states.len() - 1
+                }
+            };
+            static_state_of_test.push(slot);
+            let mut residual = state;
+            for &(junction, q) in &test.hydrant_flows_m3s {
+                residual.add_demand(junction, q);
+            }
+            residual_states.push(residual);
+        }
+        Ok(Self {
+            net,
+            tests,
+            solver,
+            parameter_pipes,
+            static_state_of_test,
+            static_states,
+            residual_states,
+            base_c: net.c_factors(),
+        })
+    }
+
+    /// Pipe C-factors with each parameter group set to `group_c`.
+    pub fn pipe_c_factors(&self, group_c: &[f64]) -> Vec<f64> {
+        let mut c = self.base_c.clone();
+        for (pipes, &value) in self.parameter_pipes.iter().zip(group_c) {
+            for &k in pipes {
+                c[k] = value;
+            }
+        }
+        c
+    }
+
+    /// Solves every test at `group_c`; with `sensitivities`, also the derivatives.
+    pub fn evaluate(
+        &self,
+        group_c: &[f64],
+        sensitivities: bool,
+    ) -> Result<Vec<TestEvaluation>, SolveError> {
+        let c = self.pipe_c_factors(group_c);
+        let statics: Vec<Solution> = self
+            .static_states
+            .iter()
+            .map(|state| self.solver.solve(self.net, state, &c, None))
+            .collect::<Result<_, _>>()?;
+        let mut out = Vec::with_capacity(self.tests.len());
+        for (t, test) in self.tests.iter().enumerate() {
+            let static_solution = &statics[self.static_state_of_test[t]];
+            let residual_solution = self.solver.solve(
+                self.net,
+                &self.residual_states[t],
+                &c,
+                Some(static_solution),
+            )?;
+            let j = test.residual_junction;
+            let elevation = self.net.junctions[j].elevation_m;
+            let (d_static_d_c, d_residual_d_c) = if sensitivities {
+                (
+                    self.group_sensitivity(static_solution, &c, j),
+                    self.group_sensitivity(&residual_solution, &c, j),
+                )
+            } else {
+                (Vec::new(), Vec::new())
+            };
+            out.push(TestEvaluation {
+                static_head_m: static_solution.head_m[j] - elevation,
+                residual_head_m: residual_solution.head_m[j] - elevation,
+                d_static_d_c,
+                d_residual_d_c,
+            });
+        }
+        Ok(out)
+    }
+
+    fn group_sensitivity(&self, solution: &Solution, c: &[f64], junction: usize) -> Vec<f64> {
+        let per_pipe = solution
+            .head_sensitivity_to_c(self.net, c, junction)
+            .unwrap_or_else(|| vec![0.0; c.len()]);
+        self.parameter_pipes
+            .iter()
+            .map(|pipes| pipes.iter().map(|&k| per_pipe[k]).sum())
+            .collect()
+    }
+}
+
+/// Whitened residuals (measured minus modelled, divided by their standard deviation) of every test, in
+/// the order the fit uses them, and the matching Jacobian rows d(residual)/dC.
+pub fn residual_rows(
+    tests: &[CalibrationTest],
+    evaluations: &[TestEvaluation],
+    fit: FitTarget,
+    gauge_sd_m: f64,
+) -> (Vec<f64>, Vec<Vec<f64>>) {
+    let mut residuals = Vec::new();
+    let mut rows = Vec::new();
+    for (test, eval) in tests.iter().zip(evaluations) {
+        match fit {
+            FitTarget::Pressures => {
+                residuals.push((test.static_head_m - eval.static_head_m) / gauge_sd_m);
+                rows.push(eval.d_static_d_c.iter().map(|d| -d / gauge_sd_m).collect());
+                residuals.push((test.residual_head_m - eval.residual_head_m) / gauge_sd_m);
+                rows.push(
+                    eval.d_residual_d_c
+                        .iter()
+                        .map(|d| -d / gauge_sd_m)
+                        .collect(),
+                );
+            }
+            FitTarget::Drop => {
+                // Two readings of one gauge: the drop's error has sqrt(2) times the reading's spread
+                // (independent reading errors assumed).
+                let sd = gauge_sd_m * std::f64::consts::SQRT_2;
+                let measured = test.static_head_m - test.residual_head_m;
+                let modelled = eval.static_head_m - eval.residual_head_m;
+                residuals.push((measured - modelled) / sd);
+                rows.push(
+                    eval.d_static_d_c
+                        .iter()
+                        .zip(&eval.d_residual_d_c)
+                        .map(|(s, r)| -(s - r) / sd)
+                        .collect(),
+                );
+            }
+        }
+    }
+    (residuals, rows)
+}

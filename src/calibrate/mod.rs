@@ -1,0 +1,398 @@
+//! Calibration: fit the Hazen-Williams C of each roughness group so the model reproduces the pressures
+//! the gauges read in the field, and say how well and how surely it does.
+//!
+//! Parameters are one C per unlocked group that has pipes; locked groups and ungrouped pipes keep their C.
+//! Residuals are measured minus modelled pressure at each test's residual hydrant, whitened by the gauge
+//! accuracy: static and residual readings ([`FitTarget::Pressures`]) or the drop alone
+//! ([`FitTarget::Drop`]). An optional prior adds (C - C_start) / prior_sd per group.
+//!
+//! The optimizer is argmin's Gauss-Newton with a backtracking (Armijo) line search on the bounded
+//! parametrisation C = lo + (hi - lo) / (1 + e^-u), so every trial value lies strictly inside the group's
+//! bounds. The Jacobian comes from the solver's factorized head system by implicit differentiation
+//! ([`crate::hydraulics::Solution::head_sensitivity_to_c`]): per test, one adjoint solve for the static and
+//! one for the residual state, whatever the number of groups.
+//!
+//! Results are a model-fitting aid: a licensed engineer reviews them before they are used for fire-flow,
+//! design or operational decisions, and local codes and the fire authority's requirements govern.
+
+mod evaluate;
+mod optimizer;
+mod statistics;
+
+use std::sync::atomic::AtomicBool;
+
+pub use evaluate::TestEvaluation;
+pub use statistics::FitStatistics;
+
+use crate::hydraulics::SolveError;
+use crate::network::{DEFAULT_GROUP_MAX_C, DEFAULT_GROUP_MIN_C, Network};
+
+/// The caution every calibration output carries.
+pub const CAUTION: &str = "The fitted C-factors are a model-fitting aid. A licensed engineer reviews them before they are used for fire-flow, design or operational decisions; local codes and the fire authority's requirements govern.";
+
+/// What the fit compares.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Default)]
+pub enum FitTarget {
+    /// Static and residual pressures.
+    #[default]
+    Pressures,
+    /// The pressure drop alone, which cancels elevation and boundary-grade errors (common practice, no
+    /// source).
+    Drop,
+}
+
+impl FitTarget {
+    pub fn label(self) -> &'static str {
+        match self {
+            Self::Pressures => "pressures",
+            Self::Drop => "drop",
+        }
+    }
+}
+
+/// One usable flow test, resolved against the network (screening errors already excluded).
+#[derive(Debug, Clone, PartialEq)]
+pub struct CalibrationTest {
+    pub id: String,
+    pub residual_junction: usize,
+    /// Index into [`Network::conditions`].
+    pub condition: Option<usize>,
+    /// Flowing hydrants: (junction, flow in m^3/s).
+    pub hydrant_flows_m3s: Vec<(usize, f64)>,
+    /// Measured static pressure as a water column (m).
+    pub static_head_m: f64,
+    /// Measured residual pressure as a water column (m).
+    pub residual_head_m: f64,
+}
+
+/// Settings of one calibration run. Pressures here are water columns in metres; convert at the edge.
+#[derive(Debug, Clone, PartialEq)]
+pub struct CalibrationOptions {
+    pub fit: FitTarget,
+    /// One standard deviation of a gauge reading (m of water). Default: 1 psi.
+    pub gauge_sd_m: f64,
+    /// Prior standard deviation of each group's C around its start value; `None` for no prior.
+    pub prior_sd_c: Option<f64>,
+    pub max_iterations: u64,
+    /// Thresholds of the "share of readings within" statistics (m of water). Default 2 and 5 psi.
+    pub within_m: (f64, f64),
+    /// A group is informed by a test when a change of [`INFORMED_C_CHANGE`] in its C moves one of the
+    /// test's fitted readings by at least this many gauge standard deviations.
+    pub informed_response_sd: f64,
+}
+
+/// The change of C used to judge whether a test informs a group (see
+/// [`CalibrationOptions::informed_response_sd`]).
+pub const INFORMED_C_CHANGE: f64 = 10.0;
+
+impl CalibrationOptions {
+    /// Defaults for a network in `units`: gauge 1 psi / 7 kPa, within 2 and 5 psi (14 and 35 kPa).
+    pub fn for_units(units: crate::network::UnitSystem) -> Self {
+        use crate::network::UnitSystem;
+        let (gauge, tight, loose) = match units {
+            UnitSystem::Us => (1.0, 2.0, 5.0),
+            UnitSystem::Si => (7.0, 14.0, 35.0),
+        };
+        Self {
+            fit: FitTarget::Pressures,
+            gauge_sd_m: units.pressure_to_head_m(gauge),
+            prior_sd_c: None,
+            max_iterations: 50,
+            within_m: (
+                units.pressure_to_head_m(tight),
+                units.pressure_to_head_m(loose),
+            ),
+            informed_response_sd: 0.25,
+        }
+    }
+}
+
+/// How a group came out of the fit.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum GroupStatus {
+    Fitted,
+    AtBound,
+    Locked,
+    NotInformed,
+}
+
+impl GroupStatus {
+    /// The word written in tables, CSV and JSON.
+    pub fn label(self) -> &'static str {
+        match self {
+            Self::Fitted => "fitted",
+            Self::AtBound => "at bound",
+            Self::Locked => "locked",
+            Self::NotInformed => "not informed",
+        }
+    }
+}
+
+/// The fit of one roughness group.
+#[derive(Debug, Clone, PartialEq)]
+pub struct GroupFit {
+    pub name: String,
+    /// Index into [`Network::groups`].
+    pub group: usize,
+    pub pipe_count: usize,
+    pub start_c: f64,
+    pub fitted_c: f64,
+    pub min_c: f64,
+    pub max_c: f64,
+    pub std_error: Option<f64>,
+    /// 95 % interval (normal approximation: fitted +- 1.96 standard errors, clipped to the bounds).
+    pub ci95: Option<(f64, f64)>,
+    /// Number of tests with a reading that responds to this group (see
+    /// [`CalibrationOptions::informed_response_sd`]).
+    pub tests_informing: usize,
+    pub status: GroupStatus,
+    /// For a group no test informs: junctions where a test would stress its pipes.
+    pub suggested_test_nodes: Vec<String>,
+}
+
+/// Measured and modelled values of one test, before and after (pressures in the network's units).
+#[derive(Debug, Clone, PartialEq)]
+pub struct TestComparison {
+    pub id: String,
+    pub measured_static: f64,
+    pub measured_residual: f64,
+    pub modelled_static_before: f64,
+    pub modelled_residual_before: f64,
+    pub modelled_static_after: f64,
+    pub modelled_residual_after: f64,
+    pub before: FitStatistics,
+    pub after: FitStatistics,
+}
+
+/// One optimizer iteration, as reported to a progress callback.
+#[derive(Debug, Clone, PartialEq)]
+pub struct IterationReport {
+    pub iteration: u64,
+    /// Half the sum of squared whitened residuals (including prior terms).
+    pub objective: f64,
+    /// Largest change of any group's C since the previous iteration.
+    pub step_c: f64,
+    /// Current C of each fitted group: (group name, C).
+    pub group_c: Vec<(String, f64)>,
+}
+
+/// The whole outcome of a calibration.
+#[derive(Debug, Clone, PartialEq)]
+pub struct CalibrationResult {
+    pub groups: Vec<GroupFit>,
+    /// Names of the groups in the correlation matrix (the fitted ones), in order.
+    pub correlation_groups: Vec<String>,
+    pub correlation: Vec<Vec<f64>>,
+    /// Pairs whose correlation exceeds 0.9 in magnitude: the tests cannot tell them apart.
+    pub strongly_correlated: Vec<(String, String, f64)>,
+    pub before: FitStatistics,
+    pub after: FitStatistics,
+    pub tests: Vec<TestComparison>,
+    pub iterations: Vec<IterationReport>,
+    pub converged: bool,
+    /// Why the optimizer stopped, in words.
+    pub termination: String,
+    /// C of every pipe after the fit, in pipe order.
+    pub pipe_c_after: Vec<f64>,
+    pub fit: FitTarget,
+    /// sum of squared whitened residuals / degrees of freedom at the solution (1 when the gauge accuracy
+    /// explains the misfit).
+    pub reduced_chi_square: Option<f64>,
+}
+
+impl CalibrationResult {
+    /// Fitted C of a group by name.
+    pub fn fitted_c(&self, name: &str) -> Option<f64> {
+        self.groups
+            .iter()
+            .find(|g| g.name == name)
+            .map(|g| g.fitted_c)
+    }
+}
+
+/// Why a calibration produced no result.
+#[derive(Debug, Clone, PartialEq, thiserror::Error)]
+pub enum CalibrationError {
+    #[error("no usable flow test: every test was excluded by screening or none was given")]
+    NoUsableTests,
+    #[error("the network model could not be solved during calibration: {0}")]
+    Solve(#[from] SolveError),
+    #[error("the calibration was cancelled")]
+    Cancelled,
+    #[error("the optimizer failed: {0}")]
+    Optimizer(String),
+    #[error("test `{test}` names junction index {junction}, which the network does not have")]
+    BadTest { test: String, junction: usize },
+}
+
+/// Fits the C of every unlocked, informed group of `net` to `tests`.
+///
+/// `progress` is called once per optimizer iteration; setting `cancel` stops the run at the next model
+/// evaluation with [`CalibrationError::Cancelled`].
+pub fn calibrate(
+    net: &Network,
+    tests: &[CalibrationTest],
+    options: &CalibrationOptions,
+    progress: &mut dyn FnMut(&IterationReport),
+    cancel: &AtomicBool,
+) -> Result<CalibrationResult, CalibrationError> {
+    if tests.is_empty() {
+        return Err(CalibrationError::NoUsableTests);
+    }
+    for test in tests {
+        let bad = std::iter::once(test.residual_junction)
+            .chain(test.hydrant_flows_m3s.iter().map(|h| h.0))
+            .find(|&j| j >= net.junctions.len());
+        if let Some(junction) = bad {
+            return Err(CalibrationError::BadTest {
+                test: test.id.clone(),
+                junction,
+            });
+        }
+        if test.condition.is_some_and(|c| c >= net.conditions.len()) {
+            return Err(CalibrationError::BadTest {
+                test: test.id.clone(),
+                junction: test.residual_junction,
+            });
+        }
+    }
+
+    let candidates = group_candidates(net);
+    // First pass: sensitivities of every candidate group at the start values.
+    let all_pipes: Vec<Vec<usize>> = candidates.iter().map(|c| c.pipes.clone()).collect();
+    let start_c: Vec<f64> = candidates.iter().map(|c| c.start_c).collect();
+    let screening = evaluate::Evaluator::new(net, tests, all_pipes)?;
+    let start_eval = screening.evaluate(&start_c, true)?;
+    let (_, start_rows) =
+        evaluate::residual_rows(tests, &start_eval, options.fit, options.gauge_sd_m);
+    let rows_per_test = start_rows.len() / tests.len();
+    let informing: Vec<usize> = (0..candidates.len())
+        .map(|g| {
+            start_rows
+                .chunks(rows_per_test)
+                .filter(|rows| {
+                    rows.iter()
+                        .any(|row| row[g].abs() * INFORMED_C_CHANGE >= options.informed_response_sd)
+                })
+                .count()
+        })
+        .collect();
+
+    let fitted: Vec<usize> = (0..candidates.len())
+        .filter(|&g| !candidates[g].locked && informing[g] > 0)
+        .collect();
+
+    let outcome = if fitted.is_empty() {
+        None
+    } else {
+        Some(optimizer::run(
+            net,
+            tests,
+            options,
+            &candidates,
+            &fitted,
+            progress,
+            cancel,
+        )?)
+    };
+
+    let mut final_c = start_c.clone();
+    if let Some(outcome) = &outcome {
+        for (slot, &g) in fitted.iter().enumerate() {
+            final_c[g] = outcome.fitted_c[slot];
+        }
+    }
+    let final_eval = screening.evaluate(&final_c, true)?;
+    let (final_residuals, final_rows) =
+        evaluate::residual_rows(tests, &final_eval, options.fit, options.gauge_sd_m);
+
+    let report = statistics::Summary::build(statistics::SummaryInput {
+        net,
+        tests,
+        options,
+        candidates: &candidates,
+        fitted: &fitted,
+        informing: &informing,
+        start_eval: &start_eval,
+        final_eval: &final_eval,
+        final_c: &final_c,
+        final_residuals: &final_residuals,
+        final_rows: &final_rows,
+    });
+
+    let (iterations, converged, termination) = match outcome {
+        Some(o) => (o.iterations, o.converged, o.termination),
+        None => (
+            Vec::new(),
+            true,
+            "nothing to fit: every group is locked or not informed".to_string(),
+        ),
+    };
+    Ok(CalibrationResult {
+        groups: report.groups,
+        correlation_groups: report.correlation_groups,
+        correlation: report.correlation,
+        strongly_correlated: report.strongly_correlated,
+        before: report.before,
+        after: report.after,
+        tests: report.tests,
+        iterations,
+        converged,
+        termination,
+        pipe_c_after: screening.pipe_c_factors(&final_c),
+        fit: options.fit,
+        reduced_chi_square: report.reduced_chi_square,
+    })
+}
+
+/// A roughness group that has pipes, with its start value and bounds.
+#[derive(Debug, Clone)]
+pub(crate) struct GroupCandidate {
+    pub group: usize,
+    pub pipes: Vec<usize>,
+    pub start_c: f64,
+    pub min_c: f64,
+    pub max_c: f64,
+    pub locked: bool,
+}
+
+/// Groups that have at least one pipe. The start value is the length-weighted mean C of its pipes (all
+/// equal in a calibrated file), kept strictly inside the bounds.
+fn group_candidates(net: &Network) -> Vec<GroupCandidate> {
+    net.groups
+        .iter()
+        .enumerate()
+        .filter_map(|(g, group)| {
+            let pipes: Vec<usize> = (0..net.pipes.len())
+                .filter(|&k| net.pipes[k].group == Some(g))
+                .collect();
+            if pipes.is_empty() {
+                return None;
+            }
+            let length: f64 = pipes.iter().map(|&k| net.pipes[k].length_m).sum();
+            let weighted: f64 = pipes
+                .iter()
+                .map(|&k| net.pipes[k].c_factor * net.pipes[k].length_m)
+                .sum();
+            let (min_c, max_c) = if group.min_c < group.max_c {
+                (group.min_c, group.max_c)
+            } else {
+                (DEFAULT_GROUP_MIN_C, DEFAULT_GROUP_MAX_C)
+            };
+            let first_c = net.pipes[pipes[0]].c_factor;
+            let all_equal = pipes.iter().all(|&k| net.pipes[k].c_factor == first_c);
+            Some(GroupCandidate {
+                group: g,
+                start_c: if all_equal {
+                    first_c
+                } else {
+                    weighted / length
+                },
+                pipes,
+                min_c,
+                max_c,
+                locked: group.locked,
+            })
+        })
+        .collect()
+}

@@ -1,0 +1,1407 @@
+//! The network file: our own TOML schema (see `docs/network-file.md`), read into a [`Network`] with
+//! every defect reported at its line and column.
+//!
+//! The loader walks the parsed document itself rather than deserializing it, so that one pass collects
+//! every problem (unknown keys, wrong types, bad values, dangling references, isolated junctions)
+//! instead of stopping at the first. It does no I/O: [`parse_network`] takes the text and a display
+//! name; [`load_network_file`] is the thin helper that reads a file first.
+
+use std::collections::HashMap;
+use std::fmt;
+use std::ops::Range;
+use std::path::Path;
+
+use toml_edit::{Document, Item, Table, TableLike, Value};
+
+use super::model::{
+    Condition, DEFAULT_GROUP_MAX_C, DEFAULT_GROUP_MIN_C, FixedHead, Junction, Network, NodeRef,
+    Pipe, Pump, PumpCurve, RoughnessGroup,
+};
+use super::suggest::did_you_mean;
+use super::units::UnitSystem;
+
+type Span = Range<usize>;
+
+/// One defect of a network file, at the place it was found.
+///
+/// Displays as `file:line:col: message (id / field)`, the parenthesis holding whichever of the id and
+/// the field are known.
+#[derive(Debug, Clone, PartialEq, Eq)]
+pub struct Diagnostic {
+    /// Display name of the file, as given to the loader.
+    pub file: String,
+    /// 1-based line.
+    pub line: usize,
+    /// 1-based column, counted in characters.
+    pub column: usize,
+    /// What is wrong, and how to fix it when that is clear.
+    pub message: String,
+    /// Id (or name) of the junction, pipe, group, ... the defect belongs to, when known.
+    pub id: Option<String>,
+    /// The key the defect is about, when there is one.
+    pub field: Option<String>,
+}
+
+impl fmt::Display for Diagnostic {
+    fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
+        write!(
+            f,
+            "{}:{}:{}: {}",
+            self.file, self.line, self.column, self.message
+        )?;
+        match (&self.id, &self.field) {
+            (Some(id), Some(field)) => write!(f, " ({id} / {field})"),
+            (Some(id), None) => write!(f, " ({id})"),
+            (None, Some(field)) => write!(f, " ({field})"),
+            (None, None) => Ok(()),
+        }
+    }
+}
+
+/// Why a network file could not be loaded.
+#[derive(Debug, thiserror::Error)]
+pub enum NetworkFileError {
+    /// The file could not be read at all.
+    #[error("cannot read network file {file}")]
+    Unreadable {
+        file: String,
+        #[source]
+        source: std::io::Error,
+    },
+    /// The file was read but has defects: every one found, in file order, one per line when displayed.
+    #[error("{}", display_lines(.diagnostics))]
+    Invalid { diagnostics: Vec<Diagnostic> },
+}
+
+impl NetworkFileError {
+    /// The diagnostics of an invalid file (empty for an unreadable one).
+    pub fn diagnostics(&self) -> &[Diagnostic] {
+        match self {
+            Self::Unreadable { .. } => &[],
+            Self::Invalid { diagnostics } => diagnostics,
+        }
+    }
+}
+
+fn display_lines(diagnostics: &[Diagnostic]) -> String {
+    diagnostics
+        .iter()
+        .map(ToString::to_string)
+        .collect::<Vec<_>>()
+        .join("\n")
+}
+
+/// A place in the network file (1-based line and character column).
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Default)]
+pub struct SourceLocation {
+    pub line: usize,
+    pub column: usize,
+}
+
+/// Where each element of a loaded network was declared: the `[[...]]` header of its entry, in the same
+/// order as the lists of [`Network`].
+#[derive(Debug, Clone, PartialEq, Eq, Default)]
+pub struct SourceMap {
+    /// Display name of the file.
+    pub file: String,
+    pub junctions: Vec<SourceLocation>,
+    pub fixed_heads: Vec<SourceLocation>,
+    pub pipes: Vec<SourceLocation>,
+    pub pumps: Vec<SourceLocation>,
+    pub groups: Vec<SourceLocation>,
+    pub conditions: Vec<SourceLocation>,
+}
+
+/// A network read from a file, with where each element came from.
+#[derive(Debug, Clone, PartialEq)]
+pub struct LoadedNetwork {
+    pub network: Network,
+    pub sources: SourceMap,
+}
+
+/// Reads and parses a network file. Unreadable files and text that is not UTF-8 are reported through
+/// the same error type as defects of the content.
+pub fn load_network_file(path: &Path) -> Result<LoadedNetwork, NetworkFileError> {
+    let file = path.display().to_string();
+    let bytes = std::fs::read(path).map_err(|source| NetworkFileError::Unreadable {
+        file: file.clone(),
+        source,
+    })?;
+    match std::str::from_utf8(&bytes) {
+        Ok(text) => parse_network(text, &file),
+        Err(error) => {
+            let valid = error.valid_up_to();
+            let prefix = bytes
+                .get(..valid)
+                .and_then(|b| std::str::from_utf8(b).ok())
+                .unwrap_or("");
+            let mut reader = Reader::new(prefix, &file);
+            reader.report(
+                &(valid..valid),
+                format!("the file is not UTF-8 text (invalid byte at offset {valid})"),
+                None,
+                None,
+            );
+            Err(reader.into_error())
+        }
+    }
+}
+
+/// Parses the text of a network file. `file_name` is only used to label diagnostics.
+///
+/// On success every quantity of the [`Network`] is in internal SI units and every reference is an
+/// index. On failure the error lists every defect found, sorted by position.
+pub fn parse_network(text: &str, file_name: &str) -> Result<LoadedNetwork, NetworkFileError> {
+    let mut reader = Reader::new(text, file_name);
+    let document = match Document::parse(text) {
+        Ok(document) => document,
+        Err(error) => {
+            let span = error.span().unwrap_or(0..0);
+            let message = error.message().trim().replace('\n', "; ");
+            reader.report(&span, format!("TOML syntax error: {message}"), None, None);
+            return Err(reader.into_error());
+        }
+    };
+    let loaded = reader.build(document.as_table());
+    if reader.diagnostics.is_empty() {
+        Ok(loaded)
+    } else {
+        Err(reader.into_error())
+    }
+}
+
+/// The kinds of `[[...]]` entries of the file.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+enum Section {
+    Junction,
+    FixedHead,
+    Pipe,
+    Pump,
+    Group,
+    Condition,
+}
+
+const ROOT_KEYS: &[&str] = &[
+    "title",
+    "units",
+    "junction",
+    "fixed_head",
+    "pipe",
+    "pump",
+    "group",
+    "condition",
+];
+
+impl Section {
+    fn key(self) -> &'static str {
+        match self {
+            Self::Junction => "junction",
+            Self::FixedHead => "fixed_head",
+            Self::Pipe => "pipe",
+            Self::Pump => "pump",
+            Self::Group => "group",
+            Self::Condition => "condition",
+        }
+    }
+
+    /// How messages name one entry.
+    fn label(self) -> &'static str {
+        match self {
+            Self::FixedHead => "fixed head",
+            other => other.key(),
+        }
+    }
+
+    fn allowed_keys(self) -> &'static [&'static str] {
+        match self {
+            Self::Junction => &["id", "elevation", "demand", "x", "y"],
+            Self::FixedHead => &["id", "head", "x", "y"],
+            Self::Pipe => &[
+                "id",
+                "from",
+                "to",
+                "length",
+                "diameter",
+                "c",
+                "group",
+                "closed",
+                "check_valve",
+            ],
+            Self::Pump => &["id", "from", "to", "curve", "off"],
+            Self::Group => &["name", "min", "max", "locked"],
+            Self::Condition => &["name", "demand_factor", "heads", "closed", "pumps_off"],
+        }
+    }
+
+    fn id_key(self) -> &'static str {
+        match self {
+            Self::Group | Self::Condition => "name",
+            _ => "id",
+        }
+    }
+}
+
+/// One table of the file being read: the root, or one `[[...]]` entry.
+struct Record<'d> {
+    /// How messages name the entry ("pipe"); empty for the root.
+    label: &'static str,
+    /// `[[pipe]]` or "the top level", for unknown-key messages.
+    place: String,
+    allowed: &'static [&'static str],
+    table: &'d dyn TableLike,
+    /// The header (or inline table) of the entry: where missing keys are reported.
+    header: Span,
+    /// The entry's id once read, to label later messages.
+    id: Option<String>,
+}
+
+/// Result of reading one key.
+enum Got<T> {
+    /// The key is not there (and was optional).
+    Absent,
+    /// The key is there but wrong, or required and missing: already reported.
+    Invalid,
+    Value(T, Span),
+}
+
+impl<T> Got<T> {
+    fn value(self) -> Option<T> {
+        match self {
+            Self::Value(value, _) => Some(value),
+            _ => None,
+        }
+    }
+}
+
+/// What a link id refers to.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+enum LinkRef {
+    Pipe(usize),
+    Pump(usize),
+}
+
+/// An id already seen in a namespace: what it was and on which line.
+struct Seen<T> {
+    target: T,
+    what: &'static str,
+    line: usize,
+}
+
+/// The ids of one namespace (node ids, link ids, group names or condition names).
+struct Namespace<T> {
+    name: &'static str,
+    seen: HashMap<String, Seen<T>>,
+    /// Ids in file order, for suggestions.
+    order: Vec<String>,
+}
+
+impl<T: Copy> Namespace<T> {
+    fn new(name: &'static str) -> Self {
+        Self {
+            name,
+            seen: HashMap::new(),
+            order: Vec::new(),
+        }
+    }
+
+    /// A namespace of ids gathered from several kinds of entries, registered in file order so that a
+    /// duplicate is reported where it appears second.
+    fn in_file_order(
+        reader: &mut Reader<'_>,
+        name: &'static str,
+        mut pending: Vec<((String, Span), T, &'static str)>,
+    ) -> Self {
+        pending.sort_by_key(|((_, span), _, _)| span.start);
+        let mut namespace = Self::new(name);
+        for (id, target, what) in &pending {
+            namespace.register(reader, what, id, *target, "id");
+        }
+        namespace
+    }
+
+    fn get(&self, id: &str) -> Option<&Seen<T>> {
+        self.seen.get(id)
+    }
+
+    fn ids(&self) -> impl Iterator<Item = &str> {
+        self.order.iter().map(String::as_str)
+    }
+
+    /// Records an id, reporting a duplicate at its second appearance.
+    fn register(
+        &mut self,
+        reader: &mut Reader<'_>,
+        what: &'static str,
+        (id, span): &(String, Span),
+        target: T,
+        field: &str,
+    ) {
+        let line = reader.location(span.start).line;
+        if let Some(first) = self.seen.get(id) {
+            let message = format!(
+                "duplicate {} `{id}`: already used by the {} on line {}",
+                self.name, first.what, first.line
+            );
+            reader.report(span, message, Some(id), Some(field));
+        } else {
+            self.seen.insert(id.clone(), Seen { target, what, line });
+            self.order.push(id.clone());
+        }
+    }
+}
+
+struct Reader<'t> {
+    text: &'t str,
+    file: String,
+    line_starts: Vec<usize>,
+    diagnostics: Vec<Diagnostic>,
+}
+
+impl<'t> Reader<'t> {
+    fn new(text: &'t str, file: &str) -> Self {
+        let line_starts = std::iter::once(0)
+            .chain(text.match_indices('\n').map(|(i, _)| i + 1))
+            .collect();
+        Self {
+            text,
+            file: file.to_string(),
+            line_starts,
+            diagnostics: Vec::new(),
+        }
+    }
+
+    fn into_error(mut self) -> NetworkFileError {
+        self.diagnostics
+            .sort_by_key(|diagnostic| (diagnostic.line, diagnostic.column));
+        NetworkFileError::Invalid {
+            diagnostics: self.diagnostics,
+        }
+    }
+
+    /// 1-based line and character column of a byte offset.
+    fn location(&self, offset: usize) -> SourceLocation {
+        let offset = offset.min(self.text.len());
+        let line_index = self
+            .line_starts
+            .partition_point(|&start| start <= offset)
+            .saturating_sub(1);
+        let line_start = self.line_starts.get(line_index).copied().unwrap_or(0);
+        let column = self
+            .text
+            .get(line_start..offset)
+            .map_or(offset - line_start, |s| s.chars().count());
+        SourceLocation {
+            line: line_index + 1,
+            column: column + 1,
+        }
+    }
+
+    fn report(&mut self, span: &Span, message: String, id: Option<&str>, field: Option<&str>) {
+        let location = self.location(span.start);
+        self.diagnostics.push(Diagnostic {
+            file: self.file.clone(),
+            line: location.line,
+            column: location.column,
+            message,
+            id: id.map(str::to_string),
+            field: field.map(str::to_string),
+        });
+    }
+
+    fn report_at(&mut self, rec: &Record<'_>, span: &Span, message: String, field: &str) {
+        let id = rec.id.clone();
+        self.report(span, message, id.as_deref(), Some(field));
+    }
+
+    /// The source text of a span, shortened for messages.
+    fn raw(&self, span: &Span) -> String {
+        const MAX_CHARS: usize = 40;
+        let text = self.text.get(span.clone()).unwrap_or("").trim();
+        if text.chars().count() > MAX_CHARS {
+            let head: String = text.chars().take(MAX_CHARS).collect();
+            format!("{head}...")
+        } else {
+            text.to_string()
+        }
+    }
+
+    // ---- reading keys ----
+
+    /// `pipe `length`` or `` `units` `` for the root.
+    fn what(rec: &Record<'_>, key: &str) -> String {
+        if rec.label.is_empty() {
+            format!("`{key}`")
+        } else {
+            format!("{} `{key}`", rec.label)
+        }
+    }
+
+    fn get<'d>(&self, rec: &Record<'d>, key: &str) -> Option<(&'d Item, Span)> {
+        let item = rec.table.get(key)?;
+        if item.is_none() {
+            return None;
+        }
+        let span = item
+            .span()
+            .or_else(|| rec.table.key(key).and_then(|k| k.span()))
+            .unwrap_or_else(|| rec.header.clone());
+        Some((item, span))
+    }
+
+    fn missing(&mut self, rec: &Record<'_>, key: &str) {
+        let message = if rec.label.is_empty() {
+            format!("missing required key `{key}`")
+        } else {
+            format!("{} is missing required key `{key}`", rec.label)
+        };
+        let header = rec.header.clone();
+        self.report_at(rec, &header, message, key);
+    }
+
+    fn wrong_type(
+        &mut self,
+        rec: &Record<'_>,
+        key: &str,
+        item: &Item,
+        span: &Span,
+        expected: &str,
+    ) {
+        let message = format!(
+            "{} must be {expected}, found {} `{}`",
+            Self::what(rec, key),
+            type_name(item),
+            self.raw(span)
+        );
+        self.report_at(rec, span, message, key);
+    }
+
+    fn string(&mut self, rec: &Record<'_>, key: &str, required: bool) -> Got<String> {
+        let Some((item, span)) = self.get(rec, key) else {
+            if required {
+                self.missing(rec, key);
+                return Got::Invalid;
+            }
+            return Got::Absent;
+        };
+        match item.as_str() {
+            Some(text) => Got::Value(text.to_string(), span),
+            None => {
+                self.wrong_type(rec, key, item, &span, "a string");
+                Got::Invalid
+            }
+        }
+    }
+
+    fn number(&mut self, rec: &Record<'_>, key: &str, required: bool) -> Got<f64> {
+        let Some((item, span)) = self.get(rec, key) else {
+            if required {
+                self.missing(rec, key);
+                return Got::Invalid;
+            }
+            return Got::Absent;
+        };
+        match item.as_value().and_then(value_number) {
+            Some(number) => Got::Value(number, span),
+            None => {
+                self.wrong_type(rec, key, item, &span, "a number");
+                Got::Invalid
+            }
+        }
+    }
+
+    fn boolean(&mut self, rec: &Record<'_>, key: &str) -> Got<bool> {
+        let Some((item, span)) = self.get(rec, key) else {
+            return Got::Absent;
+        };
+        match item.as_bool() {
+            Some(flag) => Got::Value(flag, span),
+            None => {
+                self.wrong_type(rec, key, item, &span, "true or false");
+                Got::Invalid
+            }
+        }
+    }
+
+    /// A number that must be finite (any sign).
+    fn finite(&mut self, rec: &Record<'_>, key: &str, required: bool) -> Got<f64> {
+        match self.number(rec, key, required) {
+            Got::Value(value, span) if !value.is_finite() => {
+                let message = format!(
+                    "{} must be a finite number, found `{}`",
+                    Self::what(rec, key),
+                    self.raw(&span)
+                );
+                self.report_at(rec, &span, message, key);
+                Got::Invalid
+            }
+            other => other,
+        }
+    }
+
+    /// A number that must be positive and finite.
+    fn positive(&mut self, rec: &Record<'_>, key: &str, required: bool) -> Got<f64> {
+        match self.number(rec, key, required) {
+            Got::Value(value, span) if !(value.is_finite() && value > 0.0) => {
+                let message = format!(
+                    "{} must be a positive finite number, found `{}`",
+                    Self::what(rec, key),
+                    self.raw(&span)
+                );
+                self.report_at(rec, &span, message, key);
+                Got::Invalid
+            }
+            other => other,
+        }
+    }
+
+    /// Reports every key of the table that the schema does not know, suggesting the intended one.
+    fn check_keys(&mut self, rec: &Record<'_>) {
+        let unknown: Vec<(String, Span)> = rec
+            .table
+            .iter()
+            .filter(|(key, _)| !rec.allowed.contains(key))
+            .map(|(key, item)| {
+                let span = rec
+                    .table
+                    .key(key)
+                    .and_then(|k| k.span())
+                    .or_else(|| item.span())
+                    .unwrap_or_else(|| rec.header.clone());
+                (key.to_string(), span)
+            })
+            .collect();
+        for (key, span) in unknown {
+            let hint = match did_you_mean(&key, rec.allowed.iter().copied()) {
+                hint if hint.is_empty() => {
+                    format!("; expected one of: {}", rec.allowed.join(", "))
+                }
+                hint => hint,
+            };
+            let message = format!("unknown key `{key}` in {}{hint}", rec.place);
+            self.report_at(rec, &span, message, &key);
+        }
+    }
+
+    /// Reads the id (or name) of an entry, reporting it missing or empty, and labels the record.
+    fn read_id(&mut self, rec: &mut Record<'_>, section: Section) -> Option<(String, Span)> {
+        let key = section.id_key();
+        match self.string(rec, key, true) {
+            Got::Value(id, span) => {
+                if id.trim().is_empty() {
+                    let message = format!("{} must not be empty", Self::what(rec, key));
+                    self.report_at(rec, &span, message, key);
+                    None
+                } else {
+                    rec.id = Some(id.clone());
+                    Some((id, span))
+                }
+            }
+            _ => None,
+        }
+    }
+
+    /// The `[[section]]` entries of the root, each as a record. Accepts the usual array of tables and
+    /// also an inline array of inline tables (`pipe = [{ ... }]`), which TOML treats as the same data.
+    fn records<'d>(&mut self, root: &'d Table, section: Section) -> Vec<Record<'d>> {
+        let key = section.key();
+        let mut records = Vec::new();
+        let Some(item) = root.get(key) else {
+            return records;
+        };
+        let make = |table: &'d dyn TableLike, header: Span| Record {
+            label: section.label(),
+            place: format!("[[{key}]]"),
+            allowed: section.allowed_keys(),
+            table,
+            header,
+            id: None,
+        };
+        match item {
+            Item::ArrayOfTables(tables) => {
+                for table in tables.iter() {
+                    records.push(make(table, table.span().unwrap_or(0..0)));
+                }
+            }
+            Item::Value(Value::Array(array)) => {
+                for element in array.iter() {
+                    let span = element.span().unwrap_or(0..0);
+                    match element {
+                        Value::InlineTable(table) => records.push(make(table, span)),
+                        other => {
+                            let message = format!(
+                                "each `{key}` entry must be a table, found {} `{}`",
+                                value_type_name(other),
+                                self.raw(&span)
+                            );
+                            self.report(&span, message, None, Some(key));
+                        }
+                    }
+                }
+            }
+            other => {
+                let span = other
+                    .span()
+                    .or_else(|| root.key(key).and_then(|k| k.span()))
+                    .unwrap_or(0..0);
+                let message = format!(
+                    "`{key}` must be an array of tables: write `[[{key}]]` above each entry, found {}",
+                    type_name(other)
+                );
+                self.report(&span, message, None, Some(key));
+            }
+        }
+        records
+    }
+
+    // ---- the whole file ----
+
+    fn build(&mut self, root: &Table) -> LoadedNetwork {
+        let root_rec = Record {
+            label: "",
+            place: "the top level".to_string(),
+            allowed: ROOT_KEYS,
+            table: root,
+            header: 0..0,
+            id: None,
+        };
+        self.check_keys(&root_rec);
+        let title = self.string(&root_rec, "title", false).value();
+        let units = match self.string(&root_rec, "units", true) {
+            Got::Value(text, span) => match UnitSystem::parse(&text) {
+                Some(units) => Some(units),
+                None => {
+                    let message = format!(
+                        "`units` must be \"us\" or \"si\", found \"{text}\"{}",
+                        did_you_mean(&text, ["us", "si"])
+                    );
+                    self.report(&span, message, None, Some("units"));
+                    None
+                }
+            },
+            _ => None,
+        };
+        // With no valid unit system the file is already rejected; read on in us to report the rest.
+        let units_or_us = units.unwrap_or_default();
+        let mut network = Network {
+            title: title.unwrap_or_default(),
+            units: units_or_us,
+            junctions: Vec::new(),
+            fixed_heads: Vec::new(),
+            pipes: Vec::new(),
+            pumps: Vec::new(),
+            groups: Vec::new(),
+            conditions: Vec::new(),
+        };
+        let mut sources = SourceMap {
+            file: self.file.clone(),
+            ..SourceMap::default()
+        };
+
+        let mut pending_nodes: Vec<((String, Span), NodeRef, &'static str)> = Vec::new();
+        let mut junction_spans: Vec<Span> = Vec::new();
+
+        for mut rec in self.records(root, Section::Junction) {
+            sources.junctions.push(self.location(rec.header.start));
+            let id = self.read_id(&mut rec, Section::Junction);
+            self.check_keys(&rec);
+            let elevation = self.finite(&rec, "elevation", true).value();
+            let demand = self.finite(&rec, "demand", false).value();
+            let position = self.position(&rec);
+            let index = network.junctions.len();
+            let id_span = id.as_ref().map_or(rec.header.clone(), |(_, s)| s.clone());
+            if let Some(id) = &id {
+                pending_nodes.push((id.clone(), NodeRef::Junction(index), "junction"));
+            }
+            junction_spans.push(id_span);
+            network.junctions.push(Junction {
+                id: id.map(|(id, _)| id).unwrap_or_default(),
+                elevation_m: units_or_us.length_to_m(elevation.unwrap_or(f64::NAN)),
+                demand_m3s: units_or_us.flow_to_m3s(demand.unwrap_or(0.0)),
+                position,
+            });
+        }
+
+        let fixed_head_records = self.records(root, Section::FixedHead);
+        let any_fixed_head = !fixed_head_records.is_empty();
+        for mut rec in fixed_head_records {
+            sources.fixed_heads.push(self.location(rec.header.start));
+            let id = self.read_id(&mut rec, Section::FixedHead);
+            self.check_keys(&rec);
+            let head = self.finite(&rec, "head", true).value();
+            let position = self.position(&rec);
+            let index = network.fixed_heads.len();
+            if let Some(id) = &id {
+                pending_nodes.push((id.clone(), NodeRef::FixedHead(index), "fixed head"));
+            }
+            network.fixed_heads.push(FixedHead {
+                id: id.map(|(id, _)| id).unwrap_or_default(),
+                head_m: units_or_us.length_to_m(head.unwrap_or(f64::NAN)),
+                position,
+            });
+        }
+
+        let nodes = Namespace::in_file_order(self, "node id", pending_nodes);
+
+        let mut groups: Namespace<usize> = Namespace::new("group name");
+        for mut rec in self.records(root, Section::Group) {
+            sources.groups.push(self.location(rec.header.start));
+            let name = self.read_id(&mut rec, Section::Group);
+            self.check_keys(&rec);
+            let group = self.group(&rec);
+            if let Some(name) = &name {
+                groups.register(self, "group", name, network.groups.len(), "name");
+            }
+            network.groups.push(RoughnessGroup {
+                name: name.map(|(name, _)| name).unwrap_or_default(),
+                ..group
+            });
+        }
+
+        let mut pending_links: Vec<((String, Span), LinkRef, &'static str)> = Vec::new();
+        let mut all_links_resolved = true;
+        for mut rec in self.records(root, Section::Pipe) {
+            sources.pipes.push(self.location(rec.header.start));
+            let id = self.read_id(&mut rec, Section::Pipe);
+            self.check_keys(&rec);
+            let ends = self.ends(&rec, &nodes);
+            let length = self.positive(&rec, "length", true).value();
+            let diameter = self.positive(&rec, "diameter", true).value();
+            let c_factor = self.positive(&rec, "c", true).value();
+            let group = self.pipe_group(&rec, &groups);
+            let closed = self.boolean(&rec, "closed").value().unwrap_or(false);
+            let check_valve = self.boolean(&rec, "check_valve").value().unwrap_or(false);
+            let index = network.pipes.len();
+            if let Some(id) = &id {
+                pending_links.push((id.clone(), LinkRef::Pipe(index), "pipe"));
+            }
+            all_links_resolved &= ends.is_some();
+            let (from, to) = ends.unwrap_or((NodeRef::Junction(0), NodeRef::Junction(0)));
+            network.pipes.push(Pipe {
+                id: id.map(|(id, _)| id).unwrap_or_default(),
+                from,
+                to,
+                length_m: units_or_us.length_to_m(length.unwrap_or(f64::NAN)),
+                diameter_m: units_or_us.diameter_to_m(diameter.unwrap_or(f64::NAN)),
+                c_factor: c_factor.unwrap_or(f64::NAN),
+                group,
+                closed,
+                check_valve,
+            });
+        }
+
+        for mut rec in self.records(root, Section::Pump) {
+            sources.pumps.push(self.location(rec.header.start));
+            let id = self.read_id(&mut rec, Section::Pump);
+            self.check_keys(&rec);
+            let ends = self.ends(&rec, &nodes);
+            let curve = self.pump_curve(&rec, units_or_us);
+            let off = self.boolean(&rec, "off").value().unwrap_or(false);
+            let index = network.pumps.len();
+            if let Some(id) = &id {
+                pending_links.push((id.clone(), LinkRef::Pump(index), "pump"));
+            }
+            all_links_resolved &= ends.is_some();
+            let (from, to) = ends.unwrap_or((NodeRef::Junction(0), NodeRef::Junction(0)));
+            network.pumps.push(Pump {
+                id: id.map(|(id, _)| id).unwrap_or_default(),
+                from,
+                to,
+                curve: curve.unwrap_or(PumpCurve {
+                    points: Vec::new(),
+                    a: f64::NAN,
+                    b: f64::NAN,
+                    c: f64::NAN,
+                }),
+                off,
+            });
+        }
+
+        let links = Namespace::in_file_order(self, "link id", pending_links);
+
+        let mut conditions: Namespace<usize> = Namespace::new("condition name");
+        let mut condition_spans: Vec<Span> = Vec::new();
+        for mut rec in self.records(root, Section::Condition) {
+            sources.conditions.push(self.location(rec.header.start));
+            let name = self.read_id(&mut rec, Section::Condition);
+            self.check_keys(&rec);
+            let condition = self.condition(&rec, &network, &nodes, &links, units_or_us);
+            let name_span = name.as_ref().map_or(rec.header.clone(), |(_, s)| s.clone());
+            if let Some(name) = &name {
+                conditions.register(self, "condition", name, network.conditions.len(), "name");
+            }
+            condition_spans.push(name_span);
+            network.conditions.push(Condition {
+                name: name.map(|(name, _)| name).unwrap_or_default(),
+                ..condition
+            });
+        }
+
+        if !any_fixed_head {
+            self.report(
+                &(0..0),
+                "the network has no [[fixed_head]]: at least one reservoir, tank or boundary of known \
+                 head is needed"
+                    .to_string(),
+                None,
+                Some("fixed_head"),
+            );
+        } else if all_links_resolved {
+            // A junction whose id is missing or a duplicate is already reported; no pipe can reach it.
+            let reported: Vec<bool> = (0..network.junctions.len())
+                .map(|j| {
+                    let id = network
+                        .junctions
+                        .get(j)
+                        .map_or("", |junction| junction.id.as_str());
+                    nodes
+                        .get(id)
+                        .is_none_or(|seen| seen.target != NodeRef::Junction(j))
+                })
+                .collect();
+            self.check_connectivity(&network, &junction_spans, &condition_spans, &reported);
+        }
+
+        LoadedNetwork { network, sources }
+    }
+
+    // ---- pieces of entries ----
+
+    /// Optional plan coordinates: both `x` and `y`, or neither.
+    fn position(&mut self, rec: &Record<'_>) -> Option<(f64, f64)> {
+        let x = self.finite(rec, "x", false);
+        let y = self.finite(rec, "y", false);
+        let (given, span, absent) = match (x, y) {
+            (Got::Value(x, _), Got::Value(y, _)) => return Some((x, y)),
+            (Got::Value(_, span), Got::Absent) => ("x", span, "y"),
+            (Got::Absent, Got::Value(_, span)) => ("y", span, "x"),
+            _ => return None,
+        };
+        let message = format!(
+            "{} has `{given}` but no `{absent}`: give both plan coordinates or neither",
+            rec.label
+        );
+        self.report_at(rec, &span, message, absent);
+        None
+    }
+
+    /// The `from` and `to` of a pipe or pump, resolved to nodes.
+    fn ends(&mut self, rec: &Record<'_>, nodes: &Namespace<NodeRef>) -> Option<(NodeRef, NodeRef)> {
+        let from = self.string(rec, "from", true);
+        let to = self.string(rec, "to", true);
+        let resolve = |reader: &mut Self, key: &str, got: &Got<String>| -> Option<NodeRef> {
+            let Got::Value(id, span) = got else {
+                return None;
+            };
+            match nodes.get(id.as_str()) {
+                Some(seen) => Some(seen.target),
+                None => {
+                    let message = format!(
+                        "{} names `{id}`, which is not a junction or fixed head of this file{}",
+                        Self::what(rec, key),
+                        did_you_mean(id, nodes.ids())
+                    );
+                    reader.report_at(rec, span, message, key);
+                    None
+                }
+            }
+        };
+        let from_node = resolve(self, "from", &from);
+        let to_node = resolve(self, "to", &to);
+        if let (Got::Value(from_id, _), Got::Value(to_id, span)) = (&from, &to)
+            && from_id == to_id
+        {
+            let message = format!(
+                "{} connects `{from_id}` to itself: `from` and `to` must differ",
+                rec.label
+            );
+            self.report_at(rec, span, message, "to");
+            return None;
+        }
+        Some((from_node?, to_node?))
+    }
+
+    /// The optional `group` of a pipe, which must be declared in a `[[group]]`.
+    fn pipe_group(&mut self, rec: &Record<'_>, groups: &Namespace<usize>) -> Option<usize> {
+        let Got::Value(name, span) = self.string(rec, "group", false) else {
+            return None;
+        };
+        if let Some(seen) = groups.get(&name) {
+            return Some(seen.target);
+        }
+        let message = format!(
+            "pipe `group` names `{name}`, which is not declared in any [[group]]{}",
+            did_you_mean(&name, groups.ids())
+        );
+        self.report_at(rec, &span, message, "group");
+        None
+    }
+
+    /// Bounds and lock of a `[[group]]` (its name is filled in by the caller).
+    fn group(&mut self, rec: &Record<'_>) -> RoughnessGroup {
+        let min = self.positive(rec, "min", false);
+        let max = self.positive(rec, "max", false);
+        let locked = self.boolean(rec, "locked").value().unwrap_or(false);
+        let (min_c, min_span) = match min {
+            Got::Value(value, span) => (Some(value), Some(span)),
+            Got::Absent => (Some(DEFAULT_GROUP_MIN_C), None),
+            Got::Invalid => (None, None),
+        };
+        let (max_c, max_span) = match max {
+            Got::Value(value, span) => (Some(value), Some(span)),
+            Got::Absent => (Some(DEFAULT_GROUP_MAX_C), None),
+            Got::Invalid => (None, None),
+        };
+        if let (Some(min_c), Some(max_c)) = (min_c, max_c)
+            && min_c >= max_c
+        {
+            let (span, field) = match (min_span, max_span) {
+                (Some(span), _) => (span, "min"),
+                (None, Some(span)) => (span, "max"),
+                (None, None) => (rec.header.clone(), "min"),
+            };
+            let message = format!("group `min` ({min_c}) must be below `max` ({max_c})");
+            self.report_at(rec, &span, message, field);
+        }
+        RoughnessGroup {
+            name: String::new(),
+            min_c: min_c.unwrap_or(f64::NAN),
+            max_c: max_c.unwrap_or(f64::NAN),
+            locked,
+        }
+    }
+
+    /// The `curve` of a pump: at least three [flow, head gain] points whose head gain falls as flow
+    /// rises, fitted by least squares; the fit itself must not rise over the range of the points.
+    fn pump_curve(&mut self, rec: &Record<'_>, units: UnitSystem) -> Option<PumpCurve> {
+        let (item, curve_span) = match self.get(rec, "curve") {
+            Some(found) => found,
+            None => {
+                self.missing(rec, "curve");
+                return None;
+            }
+        };
+        let Some(array) = item.as_array() else {
+            self.wrong_type(
+                rec,
+                "curve",
+                item,
+                &curve_span,
+                "an array of [flow, head gain] pairs",
+            );
+            return None;
+        };
+        let mut points: Vec<(f64, f64, Span)> = Vec::new();
+        let mut all_good = true;
+        for element in array.iter() {
+            let span = element.span().unwrap_or_else(|| curve_span.clone());
+            let pair = element.as_array().and_then(|pair| {
+                let mut values = pair.iter();
+                match (values.next(), values.next(), values.next()) {
+                    (Some(flow), Some(head), None) => {
+                        Some((value_number(flow)?, value_number(head)?))
+                    }
+                    _ => None,
+                }
+            });
+            let problem = match pair {
+                None => Some("must be a pair [flow, head gain] of numbers"),
+                Some((flow, head)) if !flow.is_finite() || !head.is_finite() => {
+                    Some("must hold finite numbers")
+                }
+                Some((flow, _)) if flow < 0.0 => Some("must not have a negative flow"),
+                Some((_, head)) if head < 0.0 => Some("must not have a negative head gain"),
+                Some((flow, head)) => {
+                    points.push((flow, head, span.clone()));
+                    None
+                }
+            };
+            if let Some(problem) = problem {
+                let message = format!("pump `curve` point {problem}, found `{}`", self.raw(&span));
+                self.report_at(rec, &span, message, "curve");
+                all_good = false;
+            }
+        }
+        if !all_good {
+            return None;
+        }
+        if points.len() < 3 {
+            let message = format!(
+                "pump `curve` needs at least 3 [flow, head gain] points, found {}",
+                points.len()
+            );
+            self.report_at(rec, &curve_span, message, "curve");
+            return None;
+        }
+        points.sort_by(|a, b| a.0.total_cmp(&b.0));
+        for pair in points.windows(2) {
+            let [(q0, h0, _), (q1, h1, span)] = pair else {
+                continue;
+            };
+            let problem = if q1 == q0 {
+                format!("pump `curve` has two points at flow {q1}")
+            } else if h1 >= h0 {
+                format!(
+                    "pump head gain must fall as flow rises: {h1} at flow {q1} is not below {h0} \
+                     at flow {q0}"
+                )
+            } else {
+                continue;
+            };
+            self.report_at(rec, span, problem, "curve");
+            return None;
+        }
+        let si_points: Vec<(f64, f64)> = points
+            .iter()
+            .map(|(q, h, _)| (units.flow_to_m3s(*q), units.length_to_m(*h)))
+            .collect();
+        let (q_low, q_high, head_top) = match (si_points.first(), si_points.last()) {
+            (Some(first), Some(last)) => (first.0, last.0, first.1),
+            _ => return None,
+        };
+        let Some(curve) = PumpCurve::fit_least_squares(si_points) else {
+            let message =
+                "pump `curve` cannot be fitted by a parabola through these points".to_string();
+            self.report_at(rec, &curve_span, message, "curve");
+            return None;
+        };
+        // The slope is linear in q, so its largest value over the range is at one end. Allow for
+        // round-off: a rise of less than 1e-9 of the shutoff head over the whole range is flat.
+        let tolerance = 1e-9 * head_top.abs().max(1.0) / (q_high - q_low);
+        let (q_worst, slope_worst) = [q_low, q_high]
+            .into_iter()
+            .map(|q| (q, curve.slope(q)))
+            .fold((q_low, f64::NEG_INFINITY), |best, candidate| {
+                if candidate.1 > best.1 {
+                    candidate
+                } else {
+                    best
+                }
+            });
+        if slope_worst > tolerance {
+            let message = format!(
+                "the least-squares curve h = a + bQ + cQ^2 through pump `curve` rises with flow near \
+                 {} {}: head gain must fall as flow rises over the whole range; correct or add points",
+                short_number(units.flow_from_m3s(q_worst)),
+                units.flow_label()
+            );
+            self.report_at(rec, &curve_span, message, "curve");
+            return None;
+        }
+        Some(curve)
+    }
+
+    /// The body of a `[[condition]]` (its name is filled in by the caller).
+    fn condition(
+        &mut self,
+        rec: &Record<'_>,
+        network: &Network,
+        nodes: &Namespace<NodeRef>,
+        links: &Namespace<LinkRef>,
+        units: UnitSystem,
+    ) -> Condition {
+        let demand_factor = self
+            .positive(rec, "demand_factor", false)
+            .value()
+            .unwrap_or(1.0);
+        let fixed_head_ids = || network.fixed_heads.iter().map(|f| f.id.as_str());
+        let mut heads = Vec::new();
+        if let Some((item, span)) = self.get(rec, "heads") {
+            match item.as_table_like() {
+                None => self.wrong_type(
+                    rec,
+                    "heads",
+                    item,
+                    &span,
+                    "a table of fixed head id = head, like { \"T-1\" = 600.0 }",
+                ),
+                Some(table) => {
+                    for (key, value) in table.iter() {
+                        let key_span = table
+                            .key(key)
+                            .and_then(|k| k.span())
+                            .unwrap_or_else(|| span.clone());
+                        let value_span = value.span().unwrap_or_else(|| key_span.clone());
+                        let target = match nodes.get(key) {
+                            Some(Seen {
+                                target: NodeRef::FixedHead(index),
+                                ..
+                            }) => Some(*index),
+                            Some(Seen {
+                                target: NodeRef::Junction(_),
+                                ..
+                            }) => {
+                                let message = format!(
+                                    "condition `heads` names `{key}`, which is a junction: only \
+                                     fixed heads can be given a head"
+                                );
+                                self.report_at(rec, &key_span, message, "heads");
+                                None
+                            }
+                            None => {
+                                let message = format!(
+                                    "condition `heads` names `{key}`, which is not a fixed head of \
+                                     this file{}",
+                                    did_you_mean(key, fixed_head_ids())
+                                );
+                                self.report_at(rec, &key_span, message, "heads");
+                                None
+                            }
+                        };
+                        let head = value.as_value().and_then(value_number);
+                        match head {
+                            Some(head) if head.is_finite() => {
+                                if let Some(index) = target {
+                                    heads.push((index, units.length_to_m(head)));
+                                }
+                            }
+                            _ => {
+                                let message = format!(
+                                    "condition `heads` value for `{key}` must be a finite number, \
+                                     found `{}`",
+                                    self.raw(&value_span)
+                                );
+                                self.report_at(rec, &value_span, message, "heads");
+                            }
+                        }
+                    }
+                }
+            }
+        }
+        let closed_pipes = self.link_list(rec, "closed", links, network, LinkKind::Pipe);
+        let pumps_off = self.link_list(rec, "pumps_off", links, network, LinkKind::Pump);
+        Condition {
+            name: String::new(),
+            demand_factor,
+            heads,
+            closed_pipes,
+            pumps_off,
+        }
+    }
+
+    /// `closed` (pipe ids) or `pumps_off` (pump ids) of a condition, resolved to indices.
+    fn link_list(
+        &mut self,
+        rec: &Record<'_>,
+        key: &str,
+        links: &Namespace<LinkRef>,
+        network: &Network,
+        kind: LinkKind,
+    ) -> Vec<usize> {
+        let mut indices = Vec::new();
+        let Some((item, span)) = self.get(rec, key) else {
+            return indices;
+        };
+        let Some(array) = item.as_array() else {
+            self.wrong_type(rec, key, item, &span, "an array of ids");
+            return indices;
+        };
+        for element in array.iter() {
+            let element_span = element.span().unwrap_or_else(|| span.clone());
+            let Some(id) = element.as_str() else {
+                let message = format!(
+                    "condition `{key}` must list ids as strings, found {} `{}`",
+                    value_type_name(element),
+                    self.raw(&element_span)
+                );
+                self.report_at(rec, &element_span, message, key);
+                continue;
+            };
+            let problem = match (links.get(id).map(|seen| seen.target), kind) {
+                (Some(LinkRef::Pipe(index)), LinkKind::Pipe)
+                | (Some(LinkRef::Pump(index)), LinkKind::Pump) => {
+                    indices.push(index);
+                    continue;
+                }
+                (Some(LinkRef::Pump(_)), LinkKind::Pipe) => {
+                    format!("`{id}` is a pump: list it in `pumps_off`, not `closed`")
+                }
+                (Some(LinkRef::Pipe(_)), LinkKind::Pump) => {
+                    format!("`{id}` is a pipe: list it in `closed`, not `pumps_off`")
+                }
+                (None, LinkKind::Pipe) => format!(
+                    "condition `closed` names `{id}`, which is not a pipe of this file{}",
+                    did_you_mean(id, network.pipes.iter().map(|p| p.id.as_str()))
+                ),
+                (None, LinkKind::Pump) => format!(
+                    "condition `pumps_off` names `{id}`, which is not a pump of this file{}",
+                    did_you_mean(id, network.pumps.iter().map(|p| p.id.as_str()))
+                ),
+            };
+            self.report_at(rec, &element_span, problem, key);
+        }
+        indices
+    }
+
+    /// Every junction must reach a fixed head through open pipes and running pumps, in the base state
+    /// and in every condition (conditions only close links, so they can only cut junctions off).
+    fn check_connectivity(
+        &mut self,
+        network: &Network,
+        junction_spans: &[Span],
+        condition_spans: &[Span],
+        already_reported: &[bool],
+    ) {
+        let base = reachable(network, &[], &[]);
+        let isolated: Vec<usize> = (0..network.junctions.len())
+            .filter(|&j| {
+                !base.get(j).copied().unwrap_or(false)
+                    && !already_reported.get(j).copied().unwrap_or(false)
+            })
+            .collect();
+        if let Some(&first) = isolated.first() {
+            let ids = list_ids(network, &isolated);
+            let message = if isolated.len() == 1 {
+                format!(
+                    "junction {ids} is not connected to any fixed head through open pipes or pumps"
+                )
+            } else {
+                format!(
+                    "{} junctions are not connected to any fixed head through open pipes or pumps: {ids}",
+                    isolated.len()
+                )
+            };
+            let id = (isolated.len() == 1).then(|| ids.clone());
+            let span = junction_spans.get(first).cloned().unwrap_or(0..0);
+            self.report(&span, message, id.as_deref(), None);
+        }
+        for (condition, span) in network.conditions.iter().zip(condition_spans) {
+            let reached = reachable(network, &condition.closed_pipes, &condition.pumps_off);
+            let cut_off: Vec<usize> = (0..network.junctions.len())
+                .filter(|&j| {
+                    base.get(j).copied().unwrap_or(false)
+                        && !reached.get(j).copied().unwrap_or(false)
+                })
+                .collect();
+            if !cut_off.is_empty() {
+                let message = format!(
+                    "condition `{}` cuts junctions off from every fixed head: {}",
+                    condition.name,
+                    list_ids(network, &cut_off)
+                );
+                self.report(span, message, Some(&condition.name), Some("closed"));
+            }
+        }
+    }
+}
+
+#[derive(Debug, Clone, Copy)]
+enum LinkKind {
+    Pipe,
+    Pump,
+}
+
+/// A number with at most four decimals and no trailing zeros, for messages.
+fn short_number(value: f64) -> String {
+    let text = format!("{value:.4}");
+    let text = text.trim_end_matches('0').trim_end_matches('.');
+    if text == "-0" {
+        "0".to_string()
+    } else {
+        text.to_string()
+    }
+}
+
+fn list_ids(network: &Network, junctions: &[usize]) -> String {
+    junctions
+        .iter()
+        .filter_map(|&j| network.junctions.get(j))
+        .map(|j| j.id.as_str())
+        .collect::<Vec<_>>()
+        .join(", ")
+}
+
+/// Which junctions reach a fixed head through links that are open (pipes not closed, pumps not off,
+/// and none of the extra `closed_pipes` / `pumps_off`). Direction is ignored: a check valve still
+/// connects.
+fn reachable(network: &Network, closed_pipes: &[usize], pumps_off: &[usize]) -> Vec<bool> {
+    let junction_count = network.junctions.len();
+    let node_count = junction_count + network.fixed_heads.len();
+    let index = |node: NodeRef| match node {
+        NodeRef::Junction(i) => i,
+        NodeRef::FixedHead(i) => junction_count + i,
+    };
+    let mut adjacency: Vec<Vec<usize>> = vec![Vec::new(); node_count];
+    let mut connect = |a: NodeRef, b: NodeRef| {
+        let (a, b) = (index(a), index(b));
+        if a < node_count && b < node_count {
+            if let Some(list) = adjacency.get_mut(a) {
+                list.push(b);
+            }
+            if let Some(list) = adjacency.get_mut(b) {
+                list.push(a);
+            }
+        }
+    };
+    let mut pipe_open: Vec<bool> = network.pipes.iter().map(|p| !p.closed).collect();
+    for &i in closed_pipes {
+        if let Some(open) = pipe_open.get_mut(i) {
+            *open = false;
+        }
+    }
+    let mut pump_on: Vec<bool> = network.pumps.iter().map(|p| !p.off).collect();
+    for &i in pumps_off {
+        if let Some(on) = pump_on.get_mut(i) {
+            *on = false;
+        }
+    }
+    for (pipe, _) in network
+        .pipes
+        .iter()
+        .zip(&pipe_open)
+        .filter(|(_, open)| **open)
+    {
+        connect(pipe.from, pipe.to);
+    }
+    for (pump, _) in network.pumps.iter().zip(&pump_on).filter(|(_, on)| **on) {
+        connect(pump.from, pump.to);
+    }
+    let mut reached = vec![false; node_count];
+    let mut stack: Vec<usize> = (junction_count..node_count).collect();
+    for &node in &stack {
+        if let Some(flag) = reached.get_mut(node) {
+            *flag = true;
+        }
+    }
+    while let Some(node) = stack.pop() {
+        for &next in adjacency.get(node).map(Vec::as_slice).unwrap_or(&[]) {
+            if let Some(flag) = reached.get_mut(next)
+                && !*flag
+            {
+                *flag = true;
+                stack.push(next);
+            }
+        }
+    }
+    reached.truncate(junction_count);
+    reached
+}
+
+/// A TOML number (integer or float) as f64.
+pub(super) fn value_number(value: &Value) -> Option<f64> {
+    match value {
+        Value::Integer(i) => Some(*i.value() as f64),
+        Value::Float(f) => Some(*f.value()),
+        _ => None,
+    }
+}
+
+fn value_type_name(value: &Value) -> &'static str {
+    match value {
+        Value::String(_) => "string",
+        Value::Integer(_) => "integer",
+        Value::Float(_) => "float",
+        Value::Boolean(_) => "boolean",
+        Value::Datetime(_) => "date-time",
+        Value::Array(_) => "array",
+        Value::InlineTable(_) => "inline table",
+    }
+}
+
+fn type_name(item: &Item) -> &'static str {
+    match item {
+        Item::None => "nothing",
+        Item::Value(value) => value_type_name(value),
+        Item::Table(_) => "table",
+        Item::ArrayOfTables(_) => "array of tables",
+    }
+}

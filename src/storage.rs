@@ -1,0 +1,170 @@
+//! Crash-safe writing: the one way roughcal writes any file (sheets, networks, exports).
+//!
+//! The bytes go to a temporary file in the target's own folder, are flushed and synced to disk, and the
+//! temporary file is then renamed over the target (an atomic replacement on POSIX file systems), after
+//! which the folder itself is synced so the rename survives a power cut. A reader, a crash or a pulled
+//! plug therefore sees either the old file or the new one, never a mix or a truncation.
+
+use std::fs::{self, File, OpenOptions};
+use std::io::{self, Write};
+use std::path::{Path, PathBuf};
+
+/// Why a write did not happen; the target is untouched in every case.
+#[derive(Debug, thiserror::Error)]
+pub enum WriteError {
+    #[error("{path}: cannot write a temporary file beside it: {source}")]
+    Temporary { path: PathBuf, source: io::Error },
+    #[error("{path}: writing failed, the previous file is kept: {source}")]
+    Write { path: PathBuf, source: io::Error },
+    #[error("{path}: cannot replace the file, the previous file is kept: {source}")]
+    Replace { path: PathBuf, source: io::Error },
+    #[error("{path}: already exists; refusing to overwrite it without --force")]
+    Exists { path: PathBuf },
+}
+
+/// Writes `bytes` to `path` atomically (see the module documentation).
+pub fn write_atomic(path: &Path, bytes: &[u8]) -> Result<(), WriteError> {
+    write_atomic_with(path, |file| file.write_all(bytes))
+}
+
+/// As [`write_atomic`], with the content produced by `fill` writing into the temporary file. If `fill`
+/// fails, the temporary file is removed and the target is left as it was.
+pub fn write_atomic_with(
+    path: &Path,
+    fill: impl FnOnce(&mut File) -> io::Result<()>,
+) -> Result<(), WriteError> {
+    let folder = match path.parent() {
+        Some(p) if !p.as_os_str().is_empty() => p.to_path_buf(),
+        _ => PathBuf::from("."),
+    };
+    let file_name = path
+        .file_name()
+        .map(|n| n.to_string_lossy().into_owned())
+        .unwrap_or_else(|| "roughcal".to_string());
+    let (temp_path, mut file) =
+        create_temporary(&folder, &file_name).map_err(|source| WriteError::Temporary {
+            path: path.to_path_buf(),
+            source,
+        })?;
+    let written = fill(&mut file)
+        .and_then(|()| file.flush())
+        .and_then(|()| file.sync_all());
+    drop(file);
+    if let Err(source) = written {
+        let _ = fs::remove_file(&temp_path);
+        return Err(WriteError::Write {
+            path: path.to_path_buf(),
+            source,
+        });
+    }
+    if let Err(source) = fs::rename(&temp_path, path) {
+        let _ = fs::remove_file(&temp_path);
+        return Err(WriteError::Replace {
+            path: path.to_path_buf(),
+            source,
+        });
+    }
+    // Make the rename itself durable; a folder that cannot be opened for syncing (some platforms) is not
+    // an error: the data is already safe in the renamed file.
+    if let Ok(dir) = File::open(&folder) {
+        let _ = dir.sync_all();
+    }
+    Ok(())
+}
+
+/// As [`write_atomic`], but refuses to replace an existing file unless `force`.
+pub fn write_new(path: &Path, bytes: &[u8], force: bool) -> Result<(), WriteError> {
+    if !force && path.exists() {
+        return Err(WriteError::Exists {
+            path: path.to_path_buf(),
+        });
+    }
+    write_atomic(path, bytes)
+}
+
+/// The path of the kept original of `path`: `SHEET.csv` -> `SHEET.csv.orig`.
+pub fn original_copy_path(path: &Path) -> PathBuf {
+    let mut name = path.as_os_str().to_owned();
+    name.push(".orig");
+    PathBuf::from(name)
+}
+
+/// Keeps a copy of `path` as it is now in `path.orig`, unless one is already there (the first original
+/// is the one worth keeping). Returns the copy's path.
+pub fn keep_original(path: &Path) -> Result<PathBuf, WriteError> {
+    let copy = original_copy_path(path);
+    if copy.exists() || !path.exists() {
+        return Ok(copy);
+    }
+    let bytes = fs::read(path).map_err(|source| WriteError::Write {
+        path: copy.clone(),
+        source,
+    })?;
+    write_atomic(&copy, &bytes)?;
+    Ok(copy)
+}
+
+fn create_temporary(folder: &Path, file_name: &str) -> io::Result<(PathBuf, File)> {
+    let pid = std::process::id();
+    for attempt in 0..1000u32 {
+        let candidate = folder.join(format!(".{file_name}.{pid}.{attempt}.tmp"));
+        match OpenOptions::new()
+            .write(true)
+            .create_new(true)
+            .open(&candidate)
+        {
+            Ok(file) => return Ok((candidate, file)),
+            Err(e) if e.kind() == io::ErrorKind::AlreadyExists => continue,
+            Err(e) => return Err(e),
+        }
+    }
+    Err(io::Error::new(
+        io::ErrorKind::AlreadyExists,
+        "no free temporary file name",
+    ))
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn replaces_and_leaves_no_temporary_behind() {
+        let dir = tempfile::tempdir().unwrap();
+        let path = dir.path().join("sheet.csv");
+        write_atomic(&path, b"one").unwrap();
+        write_atomic(&path, b"two").unwrap();
+        assert_eq!(fs::read(&path).unwrap(), b"two");
+        assert_eq!(fs::read_dir(dir.path()).unwrap().count(), 1);
+    }
+
+    #[test]
+    fn a_failing_write_keeps_the_previous_file() {
+        let dir = tempfile::tempdir().unwrap();
+        let path = dir.path().join("sheet.csv");
+        write_atomic(&path, b"before").unwrap();
+        let result = write_atomic_with(&path, |file| {
+            file.write_all(b"half of the new")?;
+            Err(io::Error::other("disk full (injected)"))
+        });
+        assert!(matches!(result, Err(WriteError::Write { .. })));
+        assert_eq!(fs::read(&path).unwrap(), b"before");
+        assert_eq!(fs::read_dir(dir.path()).unwrap().count(), 1);
+    }
+
+    #[test]
+    fn write_new_refuses_without_force_and_original_is_kept_once() {
+        let dir = tempfile::tempdir().unwrap();
+        let path = dir.path().join("out.csv");
+        write_new(&path, b"a", false).unwrap();
+        assert!(matches!(
+            write_new(&path, b"b", false),
+            Err(WriteError::Exists { .. })
+        ));
+        write_new(&path, b"c", true).unwrap();
+        let copy = keep_original(&path).unwrap();
+        write_atomic(&path, b"d").unwrap();
+        keep_original(&path).unwrap();
+        assert_eq!(fs::read(&copy).unwrap(), b"c");
+    }
+}

@@ -1,0 +1,395 @@
+//! Calibration against cases whose answer is known: the head-loss ratio closed form, and synthetic
+//! readings made from known "true" C-factors.
+
+use std::sync::atomic::AtomicBool;
+
+use roughcal::calibrate::{CalibrationOptions, CalibrationTest, FitTarget, GroupStatus, calibrate};
+use roughcal::hydraulics::{GradientSolver, OperatingState};
+use roughcal::network::{FixedHead, Junction, Network, NodeRef, Pipe, RoughnessGroup, UnitSystem};
+
+fn group(name: &str, min_c: f64, max_c: f64) -> RoughnessGroup {
+    RoughnessGroup {
+        name: name.into(),
+        min_c,
+        max_c,
+        locked: false,
+    }
+}
+
+fn pipe(id: usize, from: NodeRef, to: NodeRef, d_in: f64, c: f64, group: usize) -> Pipe {
+    let units = UnitSystem::Us;
+    Pipe {
+        id: format!("P{id}"),
+        from,
+        to,
+        length_m: units.length_to_m(1200.0),
+        diameter_m: units.diameter_to_m(d_in),
+        c_factor: c,
+        group: Some(group),
+        closed: false,
+        check_valve: false,
+    }
+}
+
+/// A 4 x 4 grid fed from a tank at one corner and a standpipe at another; the west half of the grid is "old cast iron" (group 0),
+/// the east half "ductile" (group 1), and a dead-end spur off the far corner is "spur" (group 2).
+fn grid_network(c_by_group: [f64; 3]) -> Network {
+    let units = UnitSystem::Us;
+    let side = 4;
+    let mut junctions: Vec<Junction> = (0..side * side)
+        .map(|i| Junction {
+            id: format!("J{i}"),
+            elevation_m: units.length_to_m(100.0 + 5.0 * (i % 3) as f64),
+            demand_m3s: units.flow_to_m3s(20.0),
+            position: Some(((i % side) as f64 * 800.0, (i / side) as f64 * 800.0)),
+        })
+        .collect();
+    junctions.push(Junction {
+        id: "SPUR".into(),
+        elevation_m: units.length_to_m(110.0),
+        demand_m3s: units.flow_to_m3s(5.0),
+        position: None,
+    });
+    let mut pipes = vec![pipe(
+        0,
+        NodeRef::FixedHead(0),
+        NodeRef::Junction(0),
+        16.0,
+        130.0,
+        1,
+    )];
+    let mut next = 1;
+    for r in 0..side {
+        for c in 0..side {
+            let here = r * side + c;
+            let g = if c < 2 { 0 } else { 1 };
+            if c + 1 < side {
+                pipes.push(pipe(
+                    next,
+                    NodeRef::Junction(here),
+                    NodeRef::Junction(here + 1),
+                    6.0,
+                    c_by_group[g],
+                    g,
+                ));
+                next += 1;
+            }
+            if r + 1 < side {
+                pipes.push(pipe(
+                    next,
+                    NodeRef::Junction(here),
+                    NodeRef::Junction(here + side),
+                    6.0,
+                    c_by_group[g],
+                    g,
+                ));
+                next += 1;
+            }
+        }
+    }
+    pipes.push(pipe(
+        next,
+        NodeRef::Junction(side * side - 1),
+        NodeRef::Junction(side * side),
+        6.0,
+        c_by_group[2],
+        2,
+    ));
+    // A second feed from a standpipe into the east side, so both halves carry real flow.
+    pipes.push(pipe(
+        next + 1,
+        NodeRef::FixedHead(1),
+        NodeRef::Junction(side - 1),
+        16.0,
+        130.0,
+        3,
+    ));
+    // The source mains are their own group, locked.
+    pipes[0].group = Some(3);
+    let mut groups = vec![
+        group("ci-old", 40.0, 140.0),
+        group("di-new", 60.0, 150.0),
+        group("spur", 40.0, 150.0),
+        group("source-main", 40.0, 150.0),
+    ];
+    groups[3].locked = true;
+    Network {
+        title: "calibration test grid".into(),
+        units,
+        junctions,
+        fixed_heads: vec![
+            FixedHead {
+                id: "TANK".into(),
+                head_m: units.length_to_m(330.0),
+                position: None,
+            },
+            FixedHead {
+                id: "STANDPIPE".into(),
+                head_m: units.length_to_m(325.0),
+                position: None,
+            },
+        ],
+        pipes,
+        pumps: vec![],
+        groups,
+        conditions: vec![],
+    }
+}
+
+/// Readings a perfect gauge would show on `truth`, plus `noise_psi[i]` on each reading.
+fn synthetic_tests(
+    truth: &Network,
+    plan: &[(usize, usize, f64)],
+    noise_psi: &[f64],
+) -> Vec<CalibrationTest> {
+    let units = truth.units;
+    let solver = GradientSolver::new(truth).unwrap();
+    let base = OperatingState::base(truth);
+    let c = truth.c_factors();
+    let statics = solver.solve(truth, &base, &c, None).unwrap();
+    plan.iter()
+        .enumerate()
+        .map(|(i, &(gauge, hydrant, gpm))| {
+            let mut state = base.clone();
+            state.add_demand(hydrant, units.flow_to_m3s(gpm));
+            let flowing = solver.solve(truth, &state, &c, Some(&statics)).unwrap();
+            let elevation = truth.junctions[gauge].elevation_m;
+            let noise =
+                |k: usize| units.pressure_to_head_m(noise_psi.get(k).copied().unwrap_or(0.0));
+            CalibrationTest {
+                id: format!("T{i}"),
+                residual_junction: gauge,
+                condition: None,
+                hydrant_flows_m3s: vec![(hydrant, units.flow_to_m3s(gpm))],
+                static_head_m: statics.head_m[gauge] - elevation + noise(2 * i),
+                residual_head_m: flowing.head_m[gauge] - elevation + noise(2 * i + 1),
+            }
+        })
+        .collect()
+}
+
+/// Tests that stress both halves of the grid and never the spur.
+const PLAN: [(usize, usize, f64); 6] = [
+    (5, 9, 900.0),
+    (4, 8, 1000.0),
+    (9, 13, 800.0),
+    (10, 14, 1100.0),
+    (11, 15, 900.0),
+    (6, 7, 1000.0),
+];
+
+fn run(
+    net: &Network,
+    tests: &[CalibrationTest],
+    options: &CalibrationOptions,
+) -> roughcal::calibrate::CalibrationResult {
+    calibrate(net, tests, options, &mut |_| {}, &AtomicBool::new(false)).expect("calibrates")
+}
+
+#[test]
+fn noise_free_readings_recover_the_true_c_to_half_a_unit() {
+    // Synthetic recovery (common practice, no source): readings made on the true network, model started
+    // elsewhere, the fit must come back to the truth.
+    let truth = grid_network([72.0, 118.0, 100.0]);
+    let tests = synthetic_tests(&truth, &PLAN, &[]);
+    let model = grid_network([100.0, 100.0, 100.0]);
+    let result = run(
+        &model,
+        &tests,
+        &CalibrationOptions::for_units(UnitSystem::Us),
+    );
+    assert!(result.converged, "{}", result.termination);
+    assert!((result.fitted_c("ci-old").unwrap() - 72.0).abs() < 0.5);
+    assert!((result.fitted_c("di-new").unwrap() - 118.0).abs() < 0.5);
+    assert!(
+        result.after.rmse < 0.01 && result.before.rmse > 1.0,
+        "{:?} {:?} {:?}",
+        result.before,
+        result.after,
+        result.groups
+    );
+}
+
+#[test]
+fn noisy_readings_recover_the_truth_within_the_reported_interval() {
+    let truth = grid_network([72.0, 118.0, 100.0]);
+    // Deterministic gauge noise of about 1 psi spread (a fixed pseudo-random sequence).
+    let noise = [
+        0.8, -1.1, 0.3, 0.9, -0.6, -1.4, 1.2, 0.2, -0.3, 0.7, -0.9, 1.0,
+    ];
+    let tests = synthetic_tests(&truth, &PLAN, &noise);
+    let model = grid_network([100.0, 100.0, 100.0]);
+    let result = run(
+        &model,
+        &tests,
+        &CalibrationOptions::for_units(UnitSystem::Us),
+    );
+    for (name, true_c) in [("ci-old", 72.0), ("di-new", 118.0)] {
+        let group = result.groups.iter().find(|g| g.name == name).unwrap();
+        let (lo, hi) = group.ci95.expect("an interval");
+        assert!(
+            lo <= true_c && true_c <= hi,
+            "{name}: {true_c} outside {lo}..{hi}"
+        );
+        // An interval that says something: these tests stress both halves hard.
+        assert!(
+            hi - lo < 30.0,
+            "{name}: {lo}..{hi} is too wide to be useful"
+        );
+        assert_eq!(group.status, GroupStatus::Fitted);
+    }
+}
+
+#[test]
+fn untouched_group_is_not_informed_and_locked_group_never_moves() {
+    let truth = grid_network([72.0, 118.0, 60.0]);
+    let tests = synthetic_tests(&truth, &PLAN, &[]);
+    let model = grid_network([100.0, 100.0, 100.0]);
+    let result = run(
+        &model,
+        &tests,
+        &CalibrationOptions::for_units(UnitSystem::Us),
+    );
+    let spur = result.groups.iter().find(|g| g.name == "spur").unwrap();
+    assert_eq!(spur.status, GroupStatus::NotInformed);
+    assert_eq!(spur.fitted_c, 100.0);
+    assert!(spur.suggested_test_nodes.contains(&"SPUR".to_string()));
+    let source = result
+        .groups
+        .iter()
+        .find(|g| g.name == "source-main")
+        .unwrap();
+    assert_eq!(source.status, GroupStatus::Locked);
+    assert_eq!(source.fitted_c, 130.0);
+    assert_eq!(result.pipe_c_after[0], 130.0);
+}
+
+#[test]
+fn bounds_hold_when_the_truth_lies_outside_them() {
+    let truth = grid_network([30.0, 118.0, 100.0]);
+    let tests = synthetic_tests(&truth, &PLAN, &[]);
+    let model = grid_network([100.0, 100.0, 100.0]);
+    let result = run(
+        &model,
+        &tests,
+        &CalibrationOptions::for_units(UnitSystem::Us),
+    );
+    let old = result.groups.iter().find(|g| g.name == "ci-old").unwrap();
+    assert!(
+        old.fitted_c >= 40.0 && old.fitted_c < 41.0,
+        "{}",
+        old.fitted_c
+    );
+    assert_eq!(old.status, GroupStatus::AtBound);
+}
+
+#[test]
+fn single_path_matches_the_head_loss_ratio_method() {
+    // Walski (1983), "Technique for calibrating network models": with all head loss in one group,
+    // C_fitted = C0 (dH_model / dH_measured)^(1/1.852). Here both drops are computed by hand from the
+    // Hazen-Williams formula (hf = 10.44 L Q^1.852 / (C^1.852 d^4.87), ft / gpm / in), not by the solver.
+    let units = UnitSystem::Us;
+    let hf =
+        |c: f64, q_gpm: f64| 10.44 * 2000.0 * q_gpm.powf(1.852) / (c.powf(1.852) * 8f64.powf(4.87));
+    let c0 = 120.0;
+    let q = 1000.0;
+    let c_true = 85.0;
+    let measured_drop_psi = hf(c_true, q) * 0.4335;
+    let expected = c0 * (hf(c0, q) / hf(c_true, q)).powf(1.0 / 1.852);
+
+    let net = Network {
+        title: "one main".into(),
+        units,
+        junctions: vec![
+            Junction {
+                id: "A".into(),
+                elevation_m: 0.0,
+                demand_m3s: 0.0,
+                position: None,
+            },
+            Junction {
+                id: "HYD".into(),
+                elevation_m: 0.0,
+                demand_m3s: 0.0,
+                position: None,
+            },
+        ],
+        fixed_heads: vec![FixedHead {
+            id: "T".into(),
+            head_m: units.length_to_m(200.0),
+            position: None,
+        }],
+        pipes: vec![
+            Pipe {
+                id: "M1".into(),
+                from: NodeRef::FixedHead(0),
+                to: NodeRef::Junction(0),
+                length_m: units.length_to_m(1200.0),
+                diameter_m: units.diameter_to_m(8.0),
+                c_factor: c0,
+                group: Some(0),
+                closed: false,
+                check_valve: false,
+            },
+            Pipe {
+                id: "M2".into(),
+                from: NodeRef::Junction(0),
+                to: NodeRef::Junction(1),
+                length_m: units.length_to_m(800.0),
+                diameter_m: units.diameter_to_m(8.0),
+                c_factor: c0,
+                group: Some(0),
+                closed: false,
+                check_valve: false,
+            },
+        ],
+        pumps: vec![],
+        groups: vec![group("main", 40.0, 150.0)],
+        conditions: vec![],
+    };
+    let static_psi = 200.0 * 0.4335;
+    let test = CalibrationTest {
+        id: "W1".into(),
+        residual_junction: 1,
+        condition: None,
+        hydrant_flows_m3s: vec![(1, units.flow_to_m3s(q))],
+        static_head_m: units.pressure_to_head_m(static_psi),
+        residual_head_m: units.pressure_to_head_m(static_psi - measured_drop_psi),
+    };
+    let mut options = CalibrationOptions::for_units(units);
+    options.fit = FitTarget::Drop;
+    let result = run(&net, &[test], &options);
+    let fitted = result.fitted_c("main").unwrap();
+    assert!((fitted - expected).abs() < 0.05, "{fitted} vs {expected}");
+}
+
+#[test]
+fn progress_is_reported_and_cancel_stops_the_run() {
+    let truth = grid_network([72.0, 118.0, 100.0]);
+    let tests = synthetic_tests(&truth, &PLAN, &[]);
+    let model = grid_network([100.0, 100.0, 100.0]);
+    let options = CalibrationOptions::for_units(UnitSystem::Us);
+    let mut seen = Vec::new();
+    let result = calibrate(
+        &model,
+        &tests,
+        &options,
+        &mut |r| seen.push(r.objective),
+        &AtomicBool::new(false),
+    )
+    .unwrap();
+    assert!(seen.len() >= 2);
+    assert!(seen.last().unwrap() < seen.first().unwrap());
+    assert_eq!(seen.len(), result.iterations.len());
+    let cancelled = calibrate(
+        &model,
+        &tests,
+        &options,
+        &mut |_| {},
+        &AtomicBool::new(true),
+    );
+    assert_eq!(
+        cancelled.unwrap_err(),
+        roughcal::calibrate::CalibrationError::Cancelled
+    );
+}
