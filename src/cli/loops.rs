@@ -40,14 +40,13 @@ pub fn run(network: &Path, iterations: usize, json: bool) -> anyhow::Result<Exit
     } else {
         print!("{}", render_text(&net, &solution, converged, options));
     }
-    if converged {
-        Ok(ExitCode::SUCCESS)
-    } else {
-        eprintln!(
-            "roughcal: no balance within {iterations} iterations; raise --iterations or check the network"
+    if !converged {
+        anyhow::bail!(
+            "{}: no balance within {iterations} iterations; raise --iterations or check the network",
+            network.display()
         );
-        Ok(ExitCode::from(2))
     }
+    Ok(ExitCode::SUCCESS)
 }
 
 /// Label of loop `index` (0-based) as shown on screen and in JSON.
@@ -70,7 +69,8 @@ fn loop_description(net: &Network, kind: LoopKind) -> String {
     }
 }
 
-/// The readable report: loops, one block per iteration, then the balanced flows and heads.
+/// The readable report: loops, one block per iteration, then the balanced flows and heads. An unbalanced
+/// run shows its history only: flows that do not balance are no result.
 pub fn render_text(
     net: &Network,
     solution: &LoopSolution,
@@ -143,19 +143,19 @@ pub fn render_text(
     let imbalance = units.length_from_m(solution.max_imbalance_m());
     let tolerance = units.length_from_m(options.tolerance_m);
     let count = solution.iterations.len();
-    let _ = if converged {
-        writeln!(
-            out,
-            "Balanced after {count} iteration(s): largest loop imbalance {imbalance:.6} {head_unit} \
-             (tolerance {tolerance:.6} {head_unit})\n"
-        )
-    } else {
-        writeln!(
+    if !converged {
+        let _ = writeln!(
             out,
             "NOT BALANCED after {count} iteration(s): largest loop imbalance {imbalance:.6} {head_unit} \
-             (tolerance {tolerance:.6} {head_unit}); the flows below are not a solution\n"
-        )
-    };
+             (tolerance {tolerance:.6} {head_unit}); no flows or heads are shown"
+        );
+        return out;
+    }
+    let _ = writeln!(
+        out,
+        "Balanced after {count} iteration(s): largest loop imbalance {imbalance:.6} {head_unit} \
+         (tolerance {tolerance:.6} {head_unit})\n"
+    );
     let _ = writeln!(
         out,
         "{:<12} {:>14} {:>16}",
@@ -194,7 +194,8 @@ pub fn render_text(
     out
 }
 
-/// The machine-readable report: the same content as [`render_text`], in the network's units.
+/// The machine-readable report: the same content as [`render_text`], in the network's units; an
+/// unbalanced run has `"converged": false` and no `pipes` or `junctions`.
 pub fn render_json(net: &Network, solution: &LoopSolution, converged: bool) -> Value {
     let units = net.units;
     let iterations: Vec<Value> = solution
@@ -269,7 +270,7 @@ pub fn render_json(net: &Network, solution: &LoopSolution, converged: bool) -> V
             })
         })
         .collect();
-    json!({
+    let mut report = json!({
         "converged": converged,
         "units": {
             "flow": units.flow_label(),
@@ -278,10 +279,13 @@ pub fn render_json(net: &Network, solution: &LoopSolution, converged: bool) -> V
         },
         "iterations": iterations,
         "loops": loops,
-        "pipes": pipes,
-        "junctions": junctions,
-        "note": REVIEW_NOTE,
-    })
+    });
+    if converged {
+        report["pipes"] = json!(pipes);
+        report["junctions"] = json!(junctions);
+        report["note"] = json!(REVIEW_NOTE);
+    }
+    report
 }
 
 #[cfg(test)]
@@ -362,6 +366,12 @@ mod tests {
         assert!(!converged);
         let text = render_text(&net, &solution, converged, LoopOptions::default());
         assert!(text.contains("NOT BALANCED after 1 iteration"), "{text}");
+        assert!(!text.contains("head loss ("), "{text}");
+        assert!(
+            render_json(&net, &solution, converged)
+                .get("pipes")
+                .is_none()
+        );
         assert_eq!(
             render_json(&net, &solution, converged)["converged"],
             json!(false)

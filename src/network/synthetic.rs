@@ -324,12 +324,14 @@ fn grid_layout(draft: &mut Draft, rows: usize, cols: usize, grade_offsets_m: &[f
 }
 
 /// SplitMix64 (Steele, Lea and Flood, "Fast splittable pseudorandom number generators", OOPSLA 2014;
-/// constants of Vigna's public-domain reference code): small, fast and good enough for test data.
+/// constants of Vigna's public-domain reference code): a small, fast, seedable stream for invented
+/// data. The field is the state; `SplitMix64(seed)` starts a stream.
 #[derive(Debug, Clone)]
-struct SplitMix64(u64);
+pub struct SplitMix64(pub u64);
 
 impl SplitMix64 {
-    fn next_u64(&mut self) -> u64 {
+    /// The next 64 random bits.
+    pub fn next_u64(&mut self) -> u64 {
         self.0 = self.0.wrapping_add(0x9E37_79B9_7F4A_7C15);
         let mut z = self.0;
         z = (z ^ (z >> 30)).wrapping_mul(0xBF58_476D_1CE4_E5B9);
@@ -338,21 +340,30 @@ impl SplitMix64 {
     }
 
     /// Uniform in [0, 1), from the top 53 bits.
-    fn unit(&mut self) -> f64 {
+    pub fn unit(&mut self) -> f64 {
         (self.next_u64() >> 11) as f64 / (1u64 << 53) as f64
     }
 
-    fn between(&mut self, low: f64, high: f64) -> f64 {
+    /// Uniform in [low, high).
+    pub fn between(&mut self, low: f64, high: f64) -> f64 {
         low + (high - low) * self.unit()
     }
 
-    /// Uniform in 0..n (n > 0).
-    fn below(&mut self, n: usize) -> usize {
+    /// Uniform in 0..n (n > 0; the modulo bias is negligible for small n).
+    pub fn below(&mut self, n: usize) -> usize {
         (self.next_u64() % n as u64) as usize
     }
 
-    fn chance(&mut self, probability: f64) -> bool {
+    /// True with the given probability.
+    pub fn chance(&mut self, probability: f64) -> bool {
         self.unit() < probability
+    }
+
+    /// Standard normal (Box and Muller, "A note on the generation of random normal deviates", 1958).
+    pub fn normal(&mut self) -> f64 {
+        let u1 = self.unit().max(1e-12);
+        let u2 = self.unit();
+        (-2.0 * u1.ln()).sqrt() * (2.0 * PI * u2).cos()
     }
 }
 
@@ -606,10 +617,10 @@ mod tests {
     fn shapes(seed: u64) -> Vec<Network> {
         vec![
             grid(7, 9, seed),
-            Synthetic::new(seed).grid(5, 4, 2),
-            tree(80, seed),
+            Synthetic::new(seed).grid(10, 6, 2),
+            tree(120, seed),
             ring_with_branches(12, 4, 3, seed),
-            two_sources(6, 6, seed),
+            two_sources(8, 7, seed),
             looped_city(500, seed),
         ]
     }
@@ -724,14 +735,7 @@ mod tests {
             ..LoopOptions::default()
         };
         for seed in [1, 2, 3] {
-            for net in [
-                grid(8, 8, seed),
-                Synthetic::new(seed).grid(10, 6, 2),
-                tree(120, seed),
-                ring_with_branches(16, 5, 4, seed),
-                two_sources(8, 7, seed),
-                looped_city(400, seed),
-            ] {
+            for net in shapes(seed) {
                 let solution = solve_loops(&net, &net.c_factors(), options).expect("balances");
                 let top = net
                     .fixed_heads
