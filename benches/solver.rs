@@ -1,1 +1,140 @@
-fn main() {}
+//! Speed of the solver and the calibration (targets in the README; never asserted in tests).
+//!
+//! Baselines in the same run: `solve/*/fresh-analysis` redoes the symbolic analysis on every solve, so the
+//! gain of reusing it shows beside `solve/*/reused-analysis`; calibration is timed with 10 and 50 tests to
+//! show the cost per iteration growing with tests, not tests times groups.
+
+use std::hint::black_box;
+use std::sync::atomic::AtomicBool;
+use std::time::Duration;
+
+use criterion::{Criterion, criterion_group, criterion_main};
+use roughcal::calibrate::{CalibrationOptions, CalibrationTest, calibrate};
+use roughcal::fieldtest::{FieldSheet, calibration_tests, screen_sheet};
+use roughcal::hydraulics::{GradientSolver, OperatingState};
+use roughcal::network::synthetic::looped_city;
+use roughcal::network::{Network, RoughnessGroup};
+
+fn solve_benches(c: &mut Criterion) {
+    let mut group = c.benchmark_group("solve");
+    group.sample_size(10).measurement_time(Duration::from_secs(8));
+    for junctions in [10_000usize, 90_000] {
+        let net = looped_city(junctions, 7);
+        let state = OperatingState::base(&net);
+        let cf = net.c_factors();
+        group.bench_function(format!("{junctions}/symbolic-analysis"), |b| {
+            b.iter(|| black_box(GradientSolver::new(&net).unwrap()))
+        });
+        let solver = GradientSolver::new(&net).unwrap();
+        group.bench_function(format!("{junctions}/reused-analysis"), |b| {
+            b.iter(|| black_box(solver.solve(&net, &state, &cf, None).unwrap()))
+        });
+        group.bench_function(format!("{junctions}/fresh-analysis"), |b| {
+            b.iter(|| {
+                let solver = GradientSolver::new(&net).unwrap();
+                black_box(solver.solve(&net, &state, &cf, None).unwrap())
+            })
+        });
+    }
+    group.finish();
+}
+
+/// Splits the pipes of `net` into `count` roughness groups by plan position (west to east bands).
+fn banded_groups(net: &mut Network, count: usize) {
+    let x_of = |net: &Network, k: usize| {
+        net.node_position(net.pipes[k].from)
+            .map(|p| p.0)
+            .unwrap_or(0.0)
+    };
+    let (lo, hi) = (0..net.pipes.len()).fold((f64::MAX, f64::MIN), |(lo, hi), k| {
+        let x = x_of(net, k);
+        (lo.min(x), hi.max(x))
+    });
+    net.groups = (0..count)
+        .map(|g| RoughnessGroup {
+            name: format!("band-{g}"),
+            min_c: 40.0,
+            max_c: 150.0,
+            locked: false,
+        })
+        .collect();
+    for k in 0..net.pipes.len() {
+        let share = (x_of(net, k) - lo) / (hi - lo).max(1.0);
+        let g = ((share * count as f64) as usize).min(count - 1);
+        net.pipes[k].group = Some(g);
+        net.pipes[k].c_factor = 110.0;
+    }
+}
+
+/// Flow tests synthesised on `truth`: gauges spread through the network, a hydrant next to each.
+fn synthetic_tests(truth: &Network, count: usize) -> Vec<CalibrationTest> {
+    let solver = GradientSolver::new(truth).unwrap();
+    let base = OperatingState::base(truth);
+    let cf = truth.c_factors();
+    let statics = solver.solve(truth, &base, &cf, None).unwrap();
+    let n = truth.junctions.len();
+    (0..count)
+        .map(|t| {
+            let gauge = (t * 7919 + 13) % (n - 1);
+            let hydrant = gauge + 1;
+            let flow = 0.06;
+            let mut state = base.clone();
+            state.add_demand(hydrant, flow);
+            let flowing = solver.solve(truth, &state, &cf, Some(&statics)).unwrap();
+            let elevation = truth.junctions[gauge].elevation_m;
+            CalibrationTest {
+                id: format!("T{t}"),
+                residual_junction: gauge,
+                condition: None,
+                hydrant_flows_m3s: vec![(hydrant, flow)],
+                static_head_m: statics.head_m[gauge] - elevation,
+                residual_head_m: flowing.head_m[gauge] - elevation,
+            }
+        })
+        .collect()
+}
+
+fn calibration_benches(c: &mut Criterion) {
+    let mut group = c.benchmark_group("calibrate");
+    group.sample_size(10).measurement_time(Duration::from_secs(10));
+
+    let root = env!("CARGO_MANIFEST_DIR");
+    let net_text = std::fs::read_to_string(format!("{root}/demo-network/district.toml")).unwrap();
+    let net = roughcal::network::file::parse_network(&net_text, "district.toml")
+        .unwrap()
+        .network;
+    let sheet_text = std::fs::read_to_string(format!("{root}/field-sheets/demo.csv")).unwrap();
+    let sheet = FieldSheet::parse(&sheet_text, "demo.csv").unwrap();
+    let (tests, _) = calibration_tests(&net, &screen_sheet(&sheet, Some(&net)));
+    let options = CalibrationOptions::for_units(net.units);
+    group.bench_function("demo", |b| {
+        b.iter(|| {
+            black_box(calibrate(&net, &tests, &options, &mut |_| {}, &AtomicBool::new(false)).unwrap())
+        })
+    });
+
+    // 10,000 junctions and about 20,000 pipes in 8 groups.
+    let mut truth = looped_city(10_000, 11);
+    banded_groups(&mut truth, 8);
+    for (k, pipe) in truth.pipes.iter_mut().enumerate() {
+        pipe.c_factor = 80.0 + 5.0 * (pipe.group.unwrap_or(0) as f64) + (k % 3) as f64;
+    }
+    let mut model = truth.clone();
+    banded_groups(&mut model, 8);
+    let options = CalibrationOptions::for_units(model.units);
+    for count in [10usize, 50] {
+        let tests = synthetic_tests(&truth, count);
+        group.bench_function(format!("20k-pipes-8-groups/{count}-tests"), |b| {
+            b.iter(|| {
+                black_box(
+                    calibrate(&model, &tests, &options, &mut |_| {}, &AtomicBool::new(false))
+                        .unwrap(),
+                )
+            })
+        });
+    }
+    group.finish();
+}
+
+criterion_group!(benches, solve_benches, calibration_benches);
+criterion_main!(benches);

@@ -58,8 +58,8 @@ pub enum Command {
     /// Solve by loop corrections (Hardy Cross) and show each iteration.
     Loops {
         network: PathBuf,
-        /// Iteration limit.
-        #[arg(long, default_value_t = 50)]
+        /// Iteration limit (loop corrections converge slowly on large grids).
+        #[arg(long, default_value_t = 500)]
         iterations: usize,
         #[arg(long)]
         json: bool,
