@@ -7,4 +7,5 @@ pub mod calibrate;
 pub mod fieldtest;
 pub mod hydraulics;
 pub mod network;
+pub mod report;
 pub mod storage;
