@@ -374,6 +374,10 @@ fn group_candidates(net: &Network) -> Vec<GroupCandidate> {
                 .iter()
                 .map(|&k| net.pipes[k].c_factor * net.pipes[k].length_m)
                 .sum();
+            // One shared C is taken as it is: the weighted mean would round it (100 -> 99.99999999999999)
+            // and write that into every output.
+            let first_c = net.pipes[pipes[0]].c_factor;
+            let uniform = pipes.iter().all(|&k| net.pipes[k].c_factor == first_c);
             let (min_c, max_c) = if group.min_c < group.max_c {
                 (group.min_c, group.max_c)
             } else {
@@ -382,7 +386,7 @@ fn group_candidates(net: &Network) -> Vec<GroupCandidate> {
             Some(GroupCandidate {
                 group: g,
                 pipes,
-                start_c: weighted / length,
+                start_c: if uniform { first_c } else { weighted / length },
                 min_c,
                 max_c,
                 locked: group.locked,

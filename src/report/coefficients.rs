@@ -799,7 +799,7 @@ mod tests {
         assert_eq!((ci.name.as_str(), ci.c, ci.line), ("ci", 72.0, 2));
         assert_eq!(ci.ci95, Some((67.1, 76.9)));
         assert_eq!((ci.tests, ci.status.as_deref()), (Some(4), Some("fitted")));
-        assert_eq!((set.entries[1].c, set.entries[1].line), (118.5, 16));
+        assert_eq!((set.entries[1].c, set.entries[1].line), (118.5, 15));
         let by_name = set.c_by_group();
         assert_eq!(by_name["di"], 118.5);
     }

@@ -31,7 +31,7 @@ pub use markdown::report_markdown;
 pub use plot::fit_svg;
 pub use text::text_summary;
 
-use crate::calibrate::{CalibrationOptions, CalibrationResult, CalibrationTest};
+use crate::calibrate::{CalibrationOptions, CalibrationResult, CalibrationTest, GroupStatus};
 use crate::network::Network;
 use crate::network::edit::{NetworkEditError, apply_c_factors};
 use crate::storage::{WriteError, write_new};
@@ -87,8 +87,8 @@ pub enum ReportError {
     PipeCount { result: usize, network: usize },
 }
 
-/// The network text with every pipe's C set to its value after the fit. Pipes whose C did not change are
-/// left as written, so the output is the input byte for byte except the fitted values.
+/// The network text with the pipes of every fitted group (status fitted or at bound) given their C after
+/// the fit. Every other pipe is left as written, so the output is the input byte for byte except the fitted values.
 pub fn calibrated_network(
     network_text: &str,
     network: &Network,
@@ -100,11 +100,18 @@ pub fn calibrated_network(
             network: network.pipes.len(),
         });
     }
+    // Only groups the fit moved are written: a locked or uninformed group keeps each pipe's own C.
+    let moved: Vec<usize> = result
+        .groups
+        .iter()
+        .filter(|g| matches!(g.status, GroupStatus::Fitted | GroupStatus::AtBound))
+        .map(|g| g.group)
+        .collect();
     let changed: BTreeMap<String, f64> = network
         .pipes
         .iter()
         .zip(&result.pipe_c_after)
-        .filter(|(pipe, c)| pipe.c_factor != **c)
+        .filter(|(pipe, c)| pipe.group.is_some_and(|g| moved.contains(&g)) && pipe.c_factor != **c)
         .map(|(pipe, &c)| (pipe.id.clone(), c))
         .collect();
     Ok(apply_c_factors(network_text, &changed)?)

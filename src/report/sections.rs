@@ -104,7 +104,8 @@ pub fn statistics_table(result: &CalibrationResult, units: UnitSystem) -> TextTa
         ("before", Align::Right),
         ("after", Align::Right),
     ]);
-    let rows: [(String, fn(&FitStatistics) -> String); 6] = [
+    type Cell = fn(&FitStatistics) -> String;
+    let rows: [(String, Cell); 6] = [
         ("readings".into(), |s| s.n.to_string()),
         (format!("mean error ({unit})"), |s| pressure(s.mean_error)),
         (format!("RMSE ({unit})"), |s| pressure(s.rmse)),
