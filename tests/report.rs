@@ -192,7 +192,8 @@ impl Fixture {
             tests,
             options,
             excluded: vec![ExcludedTest {
-                id: "FT-9".into(),
+                test_id: "FT-9".into(),
+                row: 9,
                 reason: "residual pressure above static".into(),
             }],
             result,
@@ -402,7 +403,7 @@ fn report_md_says_what_was_fitted_how_and_how_well() {
         "prior: none",
         "converged after",
         "| FT-0 ",
-        "| FT-9 | residual pressure above static |",
+        "| FT-9 |             10 | residual pressure above static |",
         "| ci-old ",
         "not informed",
         "a test at S1, S2, J15 would stress it",
@@ -631,4 +632,68 @@ fn apply_cli_writes_refuses_and_reports_bad_sets() {
         "{message}"
     );
     assert!(!bad_out.exists());
+}
+
+#[test]
+fn calibrate_cli_writes_refuses_and_fails_when_not_converged() {
+    // The bundled demo district and its invented field sheet: the command's behaviour, not its values.
+    let root = std::path::Path::new(env!("CARGO_MANIFEST_DIR"));
+    let network = root.join("demo-network/district.toml");
+    let sheet = root.join("field-sheets/demo.csv");
+    let dir = tempfile::tempdir().unwrap();
+    let out = dir.path().join("run");
+    let calibrate = |extra: &[&str]| {
+        let mut all: Vec<&std::ffi::OsStr> =
+            vec!["calibrate".as_ref(), network.as_os_str(), sheet.as_os_str()];
+        all.extend(extra.iter().map(std::ffi::OsStr::new));
+        roughcal(&all)
+    };
+    let out_arg = out.to_str().unwrap();
+    let first = calibrate(&["--out", out_arg]);
+    let stdout = String::from_utf8_lossy(&first.stdout);
+    assert!(
+        first.status.success(),
+        "{}",
+        String::from_utf8_lossy(&first.stderr)
+    );
+    assert!(stdout.contains("Caution:"), "{stdout}");
+    for name in OUTPUT_FILES {
+        assert!(out.join(name).exists(), "{name} not written");
+    }
+    // `apply` of the written set gives the written calibrated network.
+    let applied = dir.path().join("applied.toml");
+    let apply = roughcal(&[
+        "apply".as_ref(),
+        network.as_os_str(),
+        out.join(COEFFICIENTS_TOML).as_os_str(),
+        "--out".as_ref(),
+        applied.as_os_str(),
+    ]);
+    assert!(apply.status.success());
+    assert_eq!(
+        std::fs::read(&applied).unwrap(),
+        std::fs::read(out.join(CALIBRATED_NETWORK)).unwrap()
+    );
+
+    let refused = calibrate(&["--out", out_arg]);
+    assert_eq!(refused.status.code(), Some(1));
+    let message = String::from_utf8_lossy(&refused.stderr);
+    assert!(
+        message.contains("coefficients.csv") && message.contains("--force"),
+        "{message}"
+    );
+    assert!(calibrate(&["--out", out_arg, "--force"]).status.success());
+
+    let json = calibrate(&["--json"]);
+    assert!(json.status.success());
+    let value: serde_json::Value = serde_json::from_slice(&json.stdout).expect("stdout is JSON");
+    assert_eq!(value["converged"], true);
+    assert!(!value["groups"].as_array().unwrap().is_empty());
+
+    let stopped = calibrate(&["--max-iterations", "1"]);
+    assert_eq!(stopped.status.code(), Some(1));
+    assert!(String::from_utf8_lossy(&stopped.stdout).contains("NOT CONVERGED"));
+
+    let bad_flag = calibrate(&["--gauge-sd=0"]);
+    assert_eq!(bad_flag.status.code(), Some(1));
 }

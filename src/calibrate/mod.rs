@@ -374,19 +374,21 @@ fn group_candidates(net: &Network) -> Vec<GroupCandidate> {
                 .iter()
                 .map(|&k| net.pipes[k].c_factor * net.pipes[k].length_m)
                 .sum();
-            // One shared C is taken as it is: the weighted mean would round it (100 -> 99.99999999999999)
-            // and write that into every output.
-            let first_c = net.pipes[pipes[0]].c_factor;
-            let uniform = pipes.iter().all(|&k| net.pipes[k].c_factor == first_c);
             let (min_c, max_c) = if group.min_c < group.max_c {
                 (group.min_c, group.max_c)
             } else {
                 (DEFAULT_GROUP_MIN_C, DEFAULT_GROUP_MAX_C)
             };
+            let first_c = net.pipes[pipes[0]].c_factor;
+            let all_equal = pipes.iter().all(|&k| net.pipes[k].c_factor == first_c);
             Some(GroupCandidate {
                 group: g,
+                start_c: if all_equal {
+                    first_c
+                } else {
+                    weighted / length
+                },
                 pipes,
-                start_c: if uniform { first_c } else { weighted / length },
                 min_c,
                 max_c,
                 locked: group.locked,

@@ -6,7 +6,9 @@ use std::process::ExitCode;
 
 use anyhow::Context as _;
 use roughcal::network::edit::apply_group_c;
-use roughcal::network::file::{NetworkFileError, parse_network};
+use roughcal::network::file::parse_network;
+
+use super::load_network_or_report;
 use roughcal::report::coefficients::{group_changes, group_changes_text};
 use roughcal::report::load_coefficients;
 use roughcal::storage::write_new;
@@ -19,16 +21,9 @@ pub fn run(
 ) -> anyhow::Result<ExitCode> {
     let text = std::fs::read_to_string(network)
         .with_context(|| format!("cannot read network file {}", network.display()))?;
-    let loaded = match parse_network(&text, &network.display().to_string()) {
-        Ok(loaded) => loaded,
-        Err(NetworkFileError::Invalid { diagnostics }) => {
-            for diagnostic in &diagnostics {
-                eprintln!("{diagnostic}");
-            }
-            eprintln!("{}: fix the network file first", network.display());
-            return Ok(ExitCode::from(1));
-        }
-        Err(error) => return Err(error.into()),
+    let parse = |path: &Path| parse_network(&text, &path.display().to_string());
+    let Some(loaded) = load_network_or_report(network, parse)? else {
+        return Ok(ExitCode::from(1));
     };
     let set = load_coefficients(coefficients)?;
     set.check_against(&loaded.network)?;

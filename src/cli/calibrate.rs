@@ -7,16 +7,16 @@ use std::process::ExitCode;
 use std::sync::atomic::AtomicBool;
 
 use anyhow::{Context as _, bail};
-use roughcal::calibrate::{self as core, CalibrationOptions, CalibrationTest};
-use roughcal::fieldtest::{FieldSheet, load_sheet};
+use roughcal::calibrate::{self as core, CalibrationOptions};
+use roughcal::fieldtest::{calibration_tests, load_sheet, screen_sheet};
 use roughcal::network::Network;
-use roughcal::network::file::{NetworkFileError, parse_network};
+use roughcal::network::file::parse_network;
 use roughcal::report::{
-    CalibrationOutputs, ExcludedTest, OutputWriteError, RunContext, existing_outputs, json_summary,
-    text_summary, write_outputs,
+    CalibrationOutputs, OutputWriteError, RunContext, existing_outputs, json_summary, text_summary,
+    write_outputs,
 };
 
-use super::FitTarget;
+use super::{FitTarget, load_network_or_report};
 
 pub struct Args {
     pub network: PathBuf,
@@ -35,17 +35,11 @@ pub fn run(args: Args) -> anyhow::Result<ExitCode> {
     let network_file = args.network.display().to_string();
     let network_text = std::fs::read_to_string(&args.network)
         .with_context(|| format!("cannot read network file {network_file}"))?;
-    let network = match parse_network(&network_text, &network_file) {
-        Ok(loaded) => loaded.network,
-        Err(NetworkFileError::Invalid { diagnostics }) => {
-            for diagnostic in &diagnostics {
-                eprintln!("{diagnostic}");
-            }
-            eprintln!("{network_file}: fix the network file first");
-            return Ok(ExitCode::from(1));
-        }
-        Err(error) => return Err(error.into()),
+    let parse = |_: &Path| parse_network(&network_text, &network_file);
+    let Some(loaded) = load_network_or_report(&args.network, parse)? else {
+        return Ok(ExitCode::from(1));
     };
+    let network = loaded.network;
     let options = options(&args, &network)?;
     // Refuse before a long run rather than after it.
     if let Some(out) = &args.out
@@ -53,11 +47,15 @@ pub fn run(args: Args) -> anyhow::Result<ExitCode> {
     {
         refuse_existing(out)?;
     }
-    let sheet = load_sheet(&args.sheet)?;
-    let (tests, excluded) = usable_tests(&network, &sheet)?;
-    for excluded in &excluded {
-        eprintln!("excluded {}: {}", excluded.id, excluded.reason);
-    }
+    let sheet = match load_sheet(&args.sheet) {
+        Ok(sheet) => sheet,
+        Err(error) => {
+            eprintln!("{error}");
+            return Ok(ExitCode::from(1));
+        }
+    };
+    let reading = screen_sheet(&sheet, Some(&network));
+    let (tests, excluded) = calibration_tests(&network, &reading);
 
     let mut progress = |report: &core::IterationReport| {
         eprintln!(
@@ -170,12 +168,4 @@ fn options(args: &Args, network: &Network) -> anyhow::Result<CalibrationOptions>
     }
     options.max_iterations = args.max_iterations;
     Ok(options)
-}
-
-/// The sheet's tests resolved against the network, and the ones screening left out with the reason.
-fn usable_tests(
-    _network: &Network,
-    _sheet: &FieldSheet,
-) -> anyhow::Result<(Vec<CalibrationTest>, Vec<ExcludedTest>)> {
-    bail!("reading flow tests from the field sheet for calibration is not available yet")
 }

@@ -70,7 +70,7 @@ pub fn json_summary(run: &RunContext<'_>) -> Value {
     let excluded: Vec<Value> = run
         .excluded
         .iter()
-        .map(|e| json!({"test": e.id, "reason": e.reason}))
+        .map(|e| json!({"test": e.test_id, "data_row": e.row + 1, "reason": e.reason}))
         .collect();
     json!({
         "groups": groups,

@@ -67,9 +67,17 @@ pub fn report_markdown(run: &RunContext<'_>) -> String {
         let _ = writeln!(out, "No test was excluded.\n");
     } else {
         let _ = writeln!(out, "{} test(s) excluded:\n", run.excluded.len());
-        let mut table = TextTable::new(&[("test", Align::Left), ("reason", Align::Left)]);
+        let mut table = TextTable::new(&[
+            ("test", Align::Left),
+            ("sheet data row", Align::Right),
+            ("reason", Align::Left),
+        ]);
         for excluded in run.excluded {
-            table.row(vec![excluded.id.clone(), excluded.reason.clone()]);
+            table.row(vec![
+                excluded.test_id.clone(),
+                (excluded.row + 1).to_string(),
+                excluded.reason.clone(),
+            ]);
         }
         out.push_str(&table.markdown());
         let _ = writeln!(out);

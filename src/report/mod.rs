@@ -55,12 +55,8 @@ pub const OUTPUT_FILES: [&str; 5] = [
     FIT_SVG,
 ];
 
-/// A field test left out of the calibration, and why.
-#[derive(Debug, Clone, PartialEq)]
-pub struct ExcludedTest {
-    pub id: String,
-    pub reason: String,
-}
+/// A field test left out of the calibration, and why (from [`crate::fieldtest::calibration_tests`]).
+pub use crate::fieldtest::ExcludedTest;
 
 /// A calibration run as the outputs describe it: inputs, settings and result.
 #[derive(Debug, Clone, Copy)]

@@ -28,7 +28,11 @@ pub fn text_summary(run: &RunContext<'_>) -> String {
         run.excluded.len()
     );
     for excluded in run.excluded {
-        let _ = writeln!(out, "    excluded {}: {}", excluded.id, excluded.reason);
+        let _ = writeln!(
+            out,
+            "    excluded {}: {}",
+            excluded.test_id, excluded.reason
+        );
     }
     let _ = writeln!(out, "  optimizer: {}", sections::optimizer_line(result));
     let _ = writeln!(out);
