@@ -8,4 +8,5 @@ pub mod demo;
 pub mod fieldtest;
 pub mod hydraulics;
 pub mod network;
+pub mod report;
 pub mod storage;

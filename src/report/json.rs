@@ -1,0 +1,95 @@
+//! The machine-readable summary `calibrate --json` prints.
+
+use serde_json::{Value, json};
+
+use crate::calibrate::{CAUTION, FitStatistics};
+
+use super::RunContext;
+
+fn statistics(s: &FitStatistics) -> Value {
+    json!({
+        "n": s.n,
+        "mean_error": s.mean_error,
+        "rmse": s.rmse,
+        "max_abs_error": s.max_abs_error,
+        "share_within": {
+            "tight": s.within_tight,
+            "loose": s.within_loose,
+            "share_tight": s.share_within_tight,
+            "share_loose": s.share_within_loose,
+        },
+    })
+}
+
+/// `{"groups": [...], "before": {...}, "after": {...}, "tests": [...]}` plus run details; pressures in
+/// the network's units.
+pub fn json_summary(run: &RunContext<'_>) -> Value {
+    let result = run.result;
+    let groups: Vec<Value> = result
+        .groups
+        .iter()
+        .map(|g| {
+            json!({
+                "name": g.name,
+                "start": g.start_c,
+                "fitted": g.fitted_c,
+                "std_error": g.std_error,
+                "status": g.status.label(),
+                "ci_low": g.ci95.map(|ci| ci.0),
+                "ci_high": g.ci95.map(|ci| ci.1),
+                "min": g.min_c,
+                "max": g.max_c,
+                "pipes": g.pipe_count,
+                "tests_informing": g.tests_informing,
+                "suggested_test_nodes": g.suggested_test_nodes,
+            })
+        })
+        .collect();
+    let tests: Vec<Value> = result
+        .tests
+        .iter()
+        .map(|t| {
+            json!({
+                "test": t.id,
+                "measured_residual": t.measured_residual,
+                "modelled_before": t.modelled_residual_before,
+                "modelled_after": t.modelled_residual_after,
+                "measured_static": t.measured_static,
+                "modelled_static_before": t.modelled_static_before,
+                "modelled_static_after": t.modelled_static_after,
+                "rmse_before": t.before.rmse,
+                "rmse_after": t.after.rmse,
+            })
+        })
+        .collect();
+    let strongly: Vec<Value> = result
+        .strongly_correlated
+        .iter()
+        .map(|(a, b, r)| json!({"groups": [a, b], "correlation": r}))
+        .collect();
+    let excluded: Vec<Value> = run
+        .excluded
+        .iter()
+        .map(|e| json!({"test": e.test_id, "data_row": e.row + 1, "reason": e.reason}))
+        .collect();
+    json!({
+        "groups": groups,
+        "before": statistics(&result.before),
+        "after": statistics(&result.after),
+        "tests": tests,
+        "units": run.network.units.key(),
+        "pressure_unit": run.network.units.pressure_label(),
+        "fit": result.fit.label(),
+        "converged": result.converged,
+        "termination": result.termination,
+        "iterations": result.iterations.len(),
+        "reduced_chi_square": result.reduced_chi_square,
+        "correlation": {
+            "groups": result.correlation_groups,
+            "matrix": result.correlation,
+            "strongly_correlated": strongly,
+        },
+        "excluded": excluded,
+        "caution": CAUTION,
+    })
+}

@@ -1,0 +1,154 @@
+//! `report.md`: the written record of a calibration run.
+
+use std::fmt::Write as _;
+
+use crate::calibrate::{CAUTION, INFORMED_C_CHANGE};
+
+use super::RunContext;
+use super::sections;
+use super::table::{Align, TextTable};
+
+/// The whole report: caution first, then inputs and method, groups, correlation, statistics before and
+/// after (overall and per test), groups no test informs, and the optimizer's iterations.
+pub fn report_markdown(run: &RunContext<'_>) -> String {
+    let result = run.result;
+    let units = run.network.units;
+    let unit = units.pressure_label();
+    let mut out = String::new();
+    let title = if run.network.title.is_empty() {
+        run.network_file
+    } else {
+        run.network.title.as_str()
+    };
+    let _ = writeln!(out, "# Roughness calibration: {title}\n");
+    let _ = writeln!(out, "> **Caution.** {CAUTION}\n");
+    if !result.converged {
+        let _ = writeln!(out, "> **{}.**\n", sections::not_converged_line(result));
+    }
+
+    let _ = writeln!(out, "## What was fitted and how\n");
+    let _ = writeln!(out, "- Network: `{}`", run.network_file);
+    let _ = writeln!(out, "- Field sheet: `{}`", run.sheet_file);
+    let _ = writeln!(
+        out,
+        "- Units: {} (pressures in {unit}, flows in {})",
+        units.key(),
+        units.flow_label()
+    );
+    let _ = writeln!(out, "- Fit target: {}", sections::fit_target(result.fit));
+    let _ = writeln!(out, "- Settings: {}", sections::settings_line(run));
+    let _ = writeln!(
+        out,
+        "- A group counts as informed by a test when a change of {INFORMED_C_CHANGE} in its C moves \
+         one of the test's fitted readings by at least {} gauge standard deviations.",
+        run.options.informed_response_sd
+    );
+    let _ = writeln!(
+        out,
+        "- Optimizer: Gauss-Newton with a backtracking line search, each C kept inside its group's \
+         bounds; {} (limit {} iterations).",
+        sections::optimizer_line(result),
+        run.options.max_iterations
+    );
+    if let Some(chi) = result.reduced_chi_square {
+        let _ = writeln!(
+            out,
+            "- Reduced chi-square at the solution: {chi:.2} (about 1 when the gauge accuracy explains \
+             the remaining misfit; larger values widen the standard errors accordingly)."
+        );
+    }
+    let _ = writeln!(out);
+
+    let _ = writeln!(out, "## Tests\n");
+    let _ = writeln!(out, "{} test(s) used:\n", run.tests.len());
+    out.push_str(&sections::used_tests_table(run).markdown());
+    let _ = writeln!(out);
+    if run.excluded.is_empty() {
+        let _ = writeln!(out, "No test was excluded.\n");
+    } else {
+        let _ = writeln!(out, "{} test(s) excluded:\n", run.excluded.len());
+        let mut table = TextTable::new(&[
+            ("test", Align::Left),
+            ("sheet data row", Align::Right),
+            ("reason", Align::Left),
+        ]);
+        for excluded in run.excluded {
+            table.row(vec![
+                excluded.test_id.clone(),
+                (excluded.row + 1).to_string(),
+                excluded.reason.clone(),
+            ]);
+        }
+        out.push_str(&table.markdown());
+        let _ = writeln!(out);
+    }
+
+    let _ = writeln!(out, "## Roughness groups (Hazen-Williams C)\n");
+    out.push_str(&sections::group_table(result).markdown());
+    let _ = writeln!(
+        out,
+        "\nThe 95 % interval is the fitted value plus or minus 1.96 standard errors (normal \
+         approximation), clipped to the group's bounds.\n"
+    );
+
+    let _ = writeln!(out, "## Correlation of the fitted C\n");
+    match sections::correlation_table(result) {
+        Some(table) => {
+            out.push_str(&table.markdown());
+            let _ = writeln!(out);
+        }
+        None => {
+            let _ = writeln!(
+                out,
+                "Fewer than two groups were fitted inside their bounds: no correlation to show.\n"
+            );
+        }
+    }
+    for warning in sections::correlation_warnings(result) {
+        let _ = writeln!(out, "- **Warning:** {warning}");
+    }
+    if !result.strongly_correlated.is_empty() {
+        let _ = writeln!(out);
+    }
+
+    let _ = writeln!(out, "## Fit before and after\n");
+    out.push_str(&sections::statistics_table(result, units).markdown());
+    let _ = writeln!(out, "\n### Per test ({unit})\n");
+    out.push_str(&sections::per_test_table(result).markdown());
+    let _ = writeln!(out);
+
+    let not_informed = sections::not_informed_lines(result);
+    let _ = writeln!(out, "## Groups no test informs\n");
+    if not_informed.is_empty() {
+        let _ = writeln!(
+            out,
+            "Every unlocked group was informed by at least one test.\n"
+        );
+    } else {
+        for line in not_informed {
+            let _ = writeln!(out, "- {line}");
+        }
+        let _ = writeln!(out);
+    }
+
+    if !result.iterations.is_empty() {
+        let _ = writeln!(out, "## Optimizer iterations\n");
+        let mut table = TextTable::new(&[
+            ("iteration", Align::Right),
+            ("objective", Align::Right),
+            ("largest C step", Align::Right),
+        ]);
+        for it in &result.iterations {
+            table.row(vec![
+                it.iteration.to_string(),
+                format!("{:.4}", it.objective),
+                format!("{:.3}", it.step_c),
+            ]);
+        }
+        out.push_str(&table.markdown());
+        let _ = writeln!(out);
+    }
+
+    let _ = writeln!(out, "---\n\n**Caution.** {CAUTION}");
+    out
+}

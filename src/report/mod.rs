@@ -1,0 +1,205 @@
+//! Calibration outputs: everything `calibrate` prints and writes, built as strings from a
+//! [`CalibrationResult`] and the run that produced it, and the coefficient set that `apply` reads back.
+//!
+//! Every builder is pure. The one piece of I/O is [`write_outputs`], which puts the built files into a
+//! folder through [`crate::storage`], refusing to replace earlier outputs unless asked to.
+//!
+//! Files written into the output folder (names are a contract scripts rely on):
+//! - [`COEFFICIENTS_CSV`]: one row per group (see [`coefficients::CSV_HEADER`]);
+//! - [`COEFFICIENTS_TOML`]: a `[[group]]` list that `apply` reads (see `docs/coefficients-file.md`);
+//! - [`CALIBRATED_NETWORK`]: the input network with the fitted C written in, otherwise byte-identical;
+//! - [`REPORT_MD`]: what was fitted, how, how well, and the caution;
+//! - [`FIT_SVG`]: measured against modelled pressure, before and after, with the 1:1 line.
+
+pub mod coefficients;
+mod json;
+mod markdown;
+mod plot;
+mod sections;
+mod table;
+mod text;
+
+use std::collections::BTreeMap;
+use std::path::{Path, PathBuf};
+
+pub use coefficients::{
+    CoefficientEntry, CoefficientError, CoefficientErrorKind, CoefficientSet, coefficients_csv,
+    coefficients_toml, load_coefficients, parse_coefficients_csv, parse_coefficients_toml,
+};
+pub use json::json_summary;
+pub use markdown::report_markdown;
+pub use plot::fit_svg;
+pub use text::text_summary;
+
+use crate::calibrate::{CalibrationOptions, CalibrationResult, CalibrationTest, GroupStatus};
+use crate::network::Network;
+use crate::network::edit::{NetworkEditError, apply_c_factors};
+use crate::storage::{WriteError, write_new};
+
+/// File name of the coefficient table.
+pub const COEFFICIENTS_CSV: &str = "coefficients.csv";
+/// File name of the coefficient set `apply` reads.
+pub const COEFFICIENTS_TOML: &str = "coefficients.toml";
+/// File name of the network with the fitted C applied.
+pub const CALIBRATED_NETWORK: &str = "calibrated.toml";
+/// File name of the written report.
+pub const REPORT_MD: &str = "report.md";
+/// File name of the measured-against-modelled plot.
+pub const FIT_SVG: &str = "fit.svg";
+/// Every file [`write_outputs`] writes, in the order it writes them.
+pub const OUTPUT_FILES: [&str; 5] = [
+    COEFFICIENTS_CSV,
+    COEFFICIENTS_TOML,
+    CALIBRATED_NETWORK,
+    REPORT_MD,
+    FIT_SVG,
+];
+
+/// A field test left out of the calibration, and why (from [`crate::fieldtest::calibration_tests`]).
+pub use crate::fieldtest::ExcludedTest;
+
+/// A calibration run as the outputs describe it: inputs, settings and result.
+#[derive(Debug, Clone, Copy)]
+pub struct RunContext<'a> {
+    pub network: &'a Network,
+    /// Display names of the input files.
+    pub network_file: &'a str,
+    pub sheet_file: &'a str,
+    pub options: &'a CalibrationOptions,
+    /// The tests the fit used, in the order given to [`crate::calibrate::calibrate`].
+    pub tests: &'a [CalibrationTest],
+    pub excluded: &'a [ExcludedTest],
+    pub result: &'a CalibrationResult,
+}
+
+/// Why an output could not be built.
+#[derive(Debug, Clone, PartialEq, thiserror::Error)]
+pub enum ReportError {
+    #[error("cannot write the fitted C into the network text: {0}")]
+    Edit(#[from] NetworkEditError),
+    #[error("cannot draw the fit plot: {0}")]
+    Plot(String),
+    #[error("the result has {result} pipe C-factors but the network has {network} pipes")]
+    PipeCount { result: usize, network: usize },
+}
+
+/// The network text with the pipes of every fitted group (status fitted or at bound) given their C after
+/// the fit. Every other pipe is left as written, so the output is the input byte for byte except the fitted values.
+pub fn calibrated_network(
+    network_text: &str,
+    network: &Network,
+    result: &CalibrationResult,
+) -> Result<String, ReportError> {
+    if result.pipe_c_after.len() != network.pipes.len() {
+        return Err(ReportError::PipeCount {
+            result: result.pipe_c_after.len(),
+            network: network.pipes.len(),
+        });
+    }
+    // Only groups the fit moved are written: a locked or uninformed group keeps each pipe's own C.
+    let moved: Vec<usize> = result
+        .groups
+        .iter()
+        .filter(|g| matches!(g.status, GroupStatus::Fitted | GroupStatus::AtBound))
+        .map(|g| g.group)
+        .collect();
+    let changed: BTreeMap<String, f64> = network
+        .pipes
+        .iter()
+        .zip(&result.pipe_c_after)
+        .filter(|(pipe, c)| pipe.group.is_some_and(|g| moved.contains(&g)) && pipe.c_factor != **c)
+        .map(|(pipe, &c)| (pipe.id.clone(), c))
+        .collect();
+    Ok(apply_c_factors(network_text, &changed)?)
+}
+
+/// The five output files of a run, named and built, ready for [`write_outputs`].
+#[derive(Debug, Clone, PartialEq)]
+pub struct CalibrationOutputs {
+    /// (file name, content), in [`OUTPUT_FILES`] order.
+    pub files: Vec<(&'static str, String)>,
+}
+
+impl CalibrationOutputs {
+    /// Builds every output of `run`; `network_text` is the network file as read.
+    pub fn build(run: &RunContext<'_>, network_text: &str) -> Result<Self, ReportError> {
+        Ok(Self {
+            files: vec![
+                (COEFFICIENTS_CSV, coefficients_csv(run.result)),
+                (
+                    COEFFICIENTS_TOML,
+                    coefficients_toml(run.result, run.network_file),
+                ),
+                (
+                    CALIBRATED_NETWORK,
+                    calibrated_network(network_text, run.network, run.result)?,
+                ),
+                (REPORT_MD, report_markdown(run)),
+                (FIT_SVG, fit_svg(run.result, run.network.units)?),
+            ],
+        })
+    }
+
+    /// Content of one output by file name.
+    pub fn get(&self, name: &str) -> Option<&str> {
+        self.files
+            .iter()
+            .find(|(n, _)| *n == name)
+            .map(|(_, content)| content.as_str())
+    }
+}
+
+/// Why the outputs were not written.
+#[derive(Debug, thiserror::Error)]
+pub enum OutputWriteError {
+    #[error(
+        "{} already holds {}; refusing to overwrite without --force",
+        .folder.display(),
+        .files.join(", ")
+    )]
+    Exists { folder: PathBuf, files: Vec<String> },
+    #[error("cannot create the output folder {}: {source}", .folder.display())]
+    CreateFolder {
+        folder: PathBuf,
+        source: std::io::Error,
+    },
+    #[error(transparent)]
+    Write(#[from] WriteError),
+}
+
+/// The outputs of a run already present in `folder`.
+pub fn existing_outputs(folder: &Path) -> Vec<&'static str> {
+    OUTPUT_FILES
+        .into_iter()
+        .filter(|name| folder.join(name).exists())
+        .collect()
+}
+
+/// Writes `outputs` into `folder` (created if missing), each file atomically. Without `force`, nothing
+/// is written when the folder already holds any of [`OUTPUT_FILES`]. Returns the paths written.
+pub fn write_outputs(
+    folder: &Path,
+    outputs: &CalibrationOutputs,
+    force: bool,
+) -> Result<Vec<PathBuf>, OutputWriteError> {
+    if !force {
+        let existing = existing_outputs(folder);
+        if !existing.is_empty() {
+            return Err(OutputWriteError::Exists {
+                folder: folder.to_path_buf(),
+                files: existing.iter().map(|s| s.to_string()).collect(),
+            });
+        }
+    }
+    std::fs::create_dir_all(folder).map_err(|source| OutputWriteError::CreateFolder {
+        folder: folder.to_path_buf(),
+        source,
+    })?;
+    let mut written = Vec::with_capacity(outputs.files.len());
+    for (name, content) in &outputs.files {
+        let path = folder.join(name);
+        write_new(&path, content.as_bytes(), force)?;
+        written.push(path);
+    }
+    Ok(written)
+}
