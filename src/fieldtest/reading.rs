@@ -10,6 +10,10 @@ use super::screening::{Finding, Rule, Severity, number, screen};
 use super::sheet::{FieldSheet, SheetColumn};
 use crate::network::{Network, UnitSystem};
 
+/// The largest number a cell may hold (in the sheet's units): far above any pressure, flow, outlet or
+/// coefficient a crew can read, and small enough that every unit conversion stays finite.
+pub const MAX_READING: f64 = 1e9;
+
 /// One hydrant flowing during a test.
 #[derive(Debug, Clone, PartialEq)]
 pub struct FlowingHydrant {
@@ -293,7 +297,8 @@ impl RowReader<'_> {
         }
     }
 
-    /// A single number; `None` (with a finding) when not a finite number or negative.
+    /// A single number; `None` (with a finding) when not a finite number, negative or above
+    /// [`MAX_READING`].
     fn number(&mut self, column: SheetColumn, text: &str, what: &str) -> Option<f64> {
         let name = self.name(column);
         match text.parse::<f64>() {
@@ -302,6 +307,15 @@ impl RowReader<'_> {
                     Rule::Negative,
                     &name,
                     format!("{what} {text} is negative; readings here are never below zero"),
+                );
+                None
+            }
+            // 1e300 psi is a finite f64 but turns infinite in SI: no gauge or meter reads a billion.
+            Ok(value) if value.is_finite() && value > MAX_READING => {
+                self.push(
+                    Rule::NotNumber,
+                    &name,
+                    format!("{what} {text} is too large to be a reading"),
                 );
                 None
             }
