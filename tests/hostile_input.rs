@@ -179,7 +179,10 @@ fn assert_network_outcome(text: &str) {
                     shown.starts_with(&format!("net.toml:{}:{}: ", d.line, d.column)),
                     "{shown}"
                 );
-                assert!(d.line >= 1 && d.line <= lines, "line out of the file: {shown}");
+                assert!(
+                    d.line >= 1 && d.line <= lines,
+                    "line out of the file: {shown}"
+                );
                 assert!(d.column >= 1, "{shown}");
             }
         }
@@ -214,7 +217,9 @@ fn assert_sheet_outcome(text: &str) {
         }
         Err(error) => {
             let shown = error.to_string();
-            let line = error.line.expect("a sheet rejected for its content names a line");
+            let line = error
+                .line
+                .expect("a sheet rejected for its content names a line");
             assert!(shown.starts_with(&format!("s.csv:{line}: ")), "{shown}");
         }
     }
@@ -273,13 +278,12 @@ fn non_finite_and_huge_numbers_are_rejected_at_their_line() {
     for value in ["nan", "inf", "-inf", "-5"] {
         let text = NETWORK.replace("length = 600.0", &format!("length = {value}"));
         let error = parse_network(&text, "net.toml").expect_err(value);
-        let line = NETWORK
-            .lines()
-            .position(|l| l == "length = 600.0")
-            .unwrap()
-            + 1;
+        let line = NETWORK.lines().position(|l| l == "length = 600.0").unwrap() + 1;
         let shown = error.to_string();
-        assert!(shown.contains(&format!("net.toml:{line}:")), "{value}: {shown}");
+        assert!(
+            shown.contains(&format!("net.toml:{line}:")),
+            "{value}: {shown}"
+        );
         assert!(shown.contains("length"), "{value}: {shown}");
     }
 }
@@ -312,7 +316,10 @@ fn duplicate_keys_and_entries() {
     // The same junction id twice is a diagnostic at the second.
     let dup = NETWORK.replace("id = \"J-4\"", "id = \"J-3\"");
     let shown = parse_network(&dup, "net.toml").unwrap_err().to_string();
-    assert!(shown.contains("duplicate") && shown.contains("J-3"), "{shown}");
+    assert!(
+        shown.contains("duplicate") && shown.contains("J-3"),
+        "{shown}"
+    );
     assert_network_outcome(&NETWORK.replace("[[pump]]", "[[pump]]\n[[pump]]"));
 }
 
@@ -324,9 +331,28 @@ fn every_hostile_value_in_every_sheet_cell() {
         let cells: Vec<&str> = line.split(',').collect();
         for column in 0..cells.len() {
             for value in [
-                "nan", "NaN", "inf", "-inf", "1e308", "1e400", "-1", "0", "1,5", "\"1,5\"", "abc",
-                "", " ", ";", "\u{202e}J-1", "J\u{301}-1", "\u{1f6b0}", "1e-400", "0x10", "+5",
-                ";;;", "1;",
+                "nan",
+                "NaN",
+                "inf",
+                "-inf",
+                "1e308",
+                "1e400",
+                "-1",
+                "0",
+                "1,5",
+                "\"1,5\"",
+                "abc",
+                "",
+                " ",
+                ";",
+                "\u{202e}J-1",
+                "J\u{301}-1",
+                "\u{1f6b0}",
+                "1e-400",
+                "0x10",
+                "+5",
+                ";;;",
+                "1;",
             ] {
                 let mut changed = cells.clone();
                 changed[column] = value;
