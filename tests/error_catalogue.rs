@@ -263,6 +263,22 @@ fn cli_outcomes(s: &Scratch) -> Vec<Outcome> {
         ],
     ));
 
+    out.push(s.run("loops pump", &["loops", net]));
+    let no_pump = s.file(
+        "nopump.toml",
+        BASE.replace("[[pump]]", "[[pump]]\noff = true").as_bytes(),
+    );
+    out.push(s.run("loops check valve", &["loops", no_pump.to_str().unwrap()]));
+    let plain = s.file(
+        "plain.toml",
+        BASE.replace("[[pump]]", "[[pump]]\noff = true")
+            .replace("check_valve = true", "")
+            .as_bytes(),
+    );
+    out.push(s.run(
+        "loops iterations",
+        &["loops", plain.to_str().unwrap(), "--iterations", "1"],
+    ));
     out.push(s.run("demand form", &["solve", net, "--demand", "J-1"]));
     out.push(s.run("demand node", &["solve", net, "--demand", "J-9=100"]));
     out.push(s.run("demand number", &["solve", net, "--demand", "J-1=lots"]));

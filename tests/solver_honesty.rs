@@ -268,3 +268,54 @@ fn calibration_refuses_to_fit_an_isolated_gauge() {
         "{error}"
     );
 }
+
+#[test]
+fn loops_flags_negative_pressure_and_prints_a_checked_balance() {
+    let path = data("negative-pressure.toml");
+    let path = path.to_str().unwrap();
+    let out = roughcal(&["loops", path]);
+    assert!(out.status.success(), "{}", text(&out.stderr));
+    let table = text(&out.stdout);
+    let row = table.lines().find(|l| l.starts_with("J-HILL")).unwrap();
+    assert!(row.ends_with("NEGATIVE"), "{row}");
+    assert!(table.contains("warning: negative pressure (grade below ground): J-HILL"));
+
+    // A looped, pipes-only network: the balance printed is recomputed here from the printed flows.
+    let base = include_str!("data/base.toml");
+    let pump_at = base.find("[[pump]]").unwrap();
+    let condition_at = base.find("[[condition]]").unwrap();
+    let looped = format!("{}{}", &base[..pump_at], &base[condition_at..])
+        .replace("check_valve = true\n", "")
+        .replace("pumps_off = [\"PU-1\"]\n", "");
+    let dir = tempfile::tempdir().unwrap();
+    let file = dir.path().join("looped.toml");
+    std::fs::write(&file, looped).unwrap();
+    let out = roughcal(&["loops", file.to_str().unwrap(), "--json"]);
+    assert!(out.status.success(), "{}", text(&out.stderr));
+    let json: Value = serde_json::from_str(&text(&out.stdout)).unwrap();
+    assert_eq!(json["converged"], true);
+    let net = load_network_file(&file).unwrap().network;
+    let mut balance: Vec<f64> = net
+        .junctions
+        .iter()
+        .map(|j| -net.units.flow_from_m3s(j.demand_m3s))
+        .collect();
+    for (pipe, printed) in net.pipes.iter().zip(json["pipes"].as_array().unwrap()) {
+        assert_eq!(printed["id"], pipe.id.as_str());
+        let q = printed["flow"].as_f64().unwrap();
+        for (end, signed) in [(pipe.from, -q), (pipe.to, q)] {
+            if let roughcal::network::NodeRef::Junction(j) = end {
+                balance[j] += signed;
+            }
+        }
+    }
+    let worst = balance.iter().map(|b| b.abs()).fold(0.0, f64::max);
+    let printed = json["max_imbalance"]
+        .as_f64()
+        .expect("max_imbalance printed");
+    assert!(worst < 0.05, "junction balance misses by {worst} gpm");
+    assert!(
+        (worst - printed).abs() < 1e-6,
+        "printed {printed}, recomputed {worst}"
+    );
+}
