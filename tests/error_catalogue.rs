@@ -94,6 +94,7 @@ fn network_variants() -> Vec<(&'static str, String)> {
         ),
         ("not string", r("id = \"J-4\"", "id = 12")),
         ("empty id", r("id = \"J-4\"", "id = \"\"")),
+        ("hidden character", r("id = \"J-4\"", "id = \"J-4\\u202e\"")),
         (
             "not array",
             format!(

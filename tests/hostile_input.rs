@@ -403,3 +403,36 @@ fn a_reading_too_large_to_convert_is_a_finding_not_an_infinite_head() {
     assert!(finding.reason.contains("too large"), "{finding:?}");
     assert!(reading.usable_tests().all(|t| t.test_id != "HT-1"));
 }
+
+/// An id with a NUL, a tab or a bidi override looks like another id on screen (or scrambles the line it
+/// is printed in): refused at its line, without echoing the character.
+#[test]
+fn ids_with_hidden_characters_are_refused() {
+    for (written, code) in [
+        ("J-4\\u0000", "U+0000"),
+        ("\\u202eJ-4", "U+202E"),
+        ("J-4\\u200f", "U+200F"),
+        ("J-4\\t", "U+0009"),
+    ] {
+        let text = NETWORK.replace("id = \"J-4\"", &format!("id = \"{written}\""));
+        let shown = parse_network(&text, "net.toml").unwrap_err().to_string();
+        let line = NETWORK.lines().position(|l| l == "id = \"J-4\"").unwrap() + 1;
+        assert!(shown.contains(&format!("net.toml:{line}:")), "{shown}");
+        assert!(
+            shown.contains("text-direction characters") && shown.contains(code),
+            "{shown}"
+        );
+        assert!(
+            !shown.contains('\u{202e}') && !shown.contains('\0'),
+            "{shown}"
+        );
+        // The uses of `J-4` stay dangling (the declared id is another string): two more diagnostics.
+        let diagnostics = parse_network(&text, "net.toml").unwrap_err();
+        assert_eq!(diagnostics.diagnostics().len(), 3, "{shown}");
+    }
+    // Letters of any script, combining accents and emoji are ordinary ids.
+    for id in ["J\u{301}-4", "\u{5d0}\u{5d1}-4", "\u{1f6b0}-4"] {
+        let text = NETWORK.replace("\"J-4\"", &format!("\"{id}\""));
+        assert!(parse_network(&text, "net.toml").is_ok(), "{id}");
+    }
+}
