@@ -14,7 +14,11 @@ fuzz_target!(|data: &[u8]| {
             }
             let written = sheet.to_csv_string();
             let again = FieldSheet::parse(&written, "fuzz.csv").expect("a written sheet parses");
-            assert_eq!(again.to_csv_string(), written, "a written sheet round-trips");
+            assert_eq!(
+                again.to_csv_string(),
+                written,
+                "a written sheet round-trips"
+            );
         }
         Err(error) => {
             let _ = error.to_string();

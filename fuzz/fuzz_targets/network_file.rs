@@ -16,7 +16,10 @@ fuzz_target!(|data: &[u8]| {
             }
         }
         Err(NetworkFileError::Invalid { diagnostics }) => {
-            assert!(!diagnostics.is_empty(), "an invalid file names at least one defect");
+            assert!(
+                !diagnostics.is_empty(),
+                "an invalid file names at least one defect"
+            );
             for d in &diagnostics {
                 assert!(d.line >= 1 && d.column >= 1);
                 let _ = d.to_string();
