@@ -233,6 +233,7 @@ fn tests_command_flags_an_isolated_gauge() {
     assert_eq!(iso["test"], "HT-ISO");
     assert_eq!(iso["gauge_isolated_in_model"], true);
     assert!(iso["modelled_static"].is_null() && iso["modelled_residual"].is_null());
+    assert_eq!(iso["usable"], false);
     assert_eq!(json["tests"][1]["gauge_isolated_in_model"], false);
     let out = roughcal(&["tests", n, s]);
     let table = text(&out.stdout);

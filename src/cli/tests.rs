@@ -57,7 +57,7 @@ pub fn run(
                     "total_flow": c.total_flow,
                     "field_available_flow": c.field_available.value(),
                     "model_available_flow": c.model_available,
-                    "usable": !c.has_error(),
+                    "usable": !c.has_error() && !c.gauge_isolated_in_model,
                     "negative_pressure_in_model": c.negative_pressure_somewhere,
                     "gauge_isolated_in_model": c.gauge_isolated_in_model,
                     "findings": c.findings.iter().map(finding_json).collect::<Vec<_>>(),

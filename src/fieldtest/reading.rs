@@ -4,6 +4,9 @@
 //! Typed values are in SI, named so (`static_head_m`, `flow_m3s`); the methods without a unit in their
 //! name (`static_pressure`, `flow`) give the sheet's own units (psi or kPa, gpm or L/s, in or mm).
 
+// Sheets are edited by hand: no indexing that could panic on what they hold.
+#![cfg_attr(not(test), deny(clippy::indexing_slicing))]
+
 use super::fireflow::{AvailableFlow, available_flow};
 use super::pitot::{DEFAULT_OUTLET_COEFFICIENT, pitot_flow};
 use super::screening::{Finding, Rule, Severity, number, screen};
@@ -120,8 +123,9 @@ impl SheetReading {
     /// Findings about one data row.
     pub fn findings_for_row(&self, row: usize) -> impl Iterator<Item = &Finding> {
         let start = self.findings.partition_point(|f| f.row < row);
-        self.findings[start..]
+        self.findings
             .iter()
+            .skip(start)
             .take_while(move |f| f.row == row)
     }
 
@@ -285,7 +289,12 @@ impl RowReader<'_> {
                 ),
             );
         } else if cells < header {
-            let column = self.sheet.headers()[cells].clone();
+            let column = self
+                .sheet
+                .headers()
+                .get(cells)
+                .cloned()
+                .unwrap_or_else(|| format!("field {}", cells + 1));
             self.push(
                 Rule::TooFewCells,
                 &column,
@@ -436,8 +445,8 @@ impl RowReader<'_> {
         }
         let at = |list: &NumberList, i: usize| -> Option<f64> {
             let list = list.as_ref()?;
-            if list.len() == 1 {
-                list[0]
+            if let [single] = list.as_slice() {
+                *single
             } else {
                 list.get(i).copied().flatten()
             }

@@ -6,6 +6,9 @@
 //! instead of stopping at the first. It does no I/O: [`parse_network`] takes the text and a display
 //! name; [`load_network_file`] is the thin helper that reads a file first.
 
+// Network files are edited by hand: no indexing that could panic on what they hold.
+#![cfg_attr(not(test), deny(clippy::indexing_slicing))]
+
 use std::collections::HashMap;
 use std::fmt;
 use std::ops::Range;
