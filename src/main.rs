@@ -1,5 +1,10 @@
 //! The `roughcal` binary: parse arguments, run, print errors with their context, set the exit code.
 
+#![cfg_attr(
+    not(test),
+    deny(clippy::unwrap_used, clippy::expect_used, clippy::panic)
+)]
+
 use std::process::ExitCode;
 
 use clap::Parser;

@@ -167,4 +167,22 @@ mod tests {
         keep_original(&path).unwrap();
         assert_eq!(fs::read(&copy).unwrap(), b"c");
     }
+
+    #[test]
+    fn keep_original_copies_only_an_existing_file_and_never_replaces_the_copy() {
+        let dir = tempfile::tempdir().unwrap();
+        let sheet = dir.path().join("day1.csv");
+        // Nothing to keep yet: no copy is made (a new sheet has no original).
+        let copy = keep_original(&sheet).unwrap();
+        assert_eq!(copy, dir.path().join("day1.csv.orig"));
+        assert!(!copy.exists());
+        write_atomic(&sheet, b"as the crew typed it").unwrap();
+        keep_original(&sheet).unwrap();
+        write_atomic(&sheet, b"first edit").unwrap();
+        // A later session's first edit keeps the copy of the very first original.
+        keep_original(&sheet).unwrap();
+        write_atomic(&sheet, b"second session").unwrap();
+        assert_eq!(fs::read(&copy).unwrap(), b"as the crew typed it");
+        assert_eq!(fs::read(&sheet).unwrap(), b"second session");
+    }
 }

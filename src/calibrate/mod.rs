@@ -223,6 +223,27 @@ pub enum CalibrationError {
     Optimizer(String),
     #[error("test `{test}` names junction index {junction}, which the network does not have")]
     BadTest { test: String, junction: usize },
+    #[error(
+        "test `{test}`: the gauge's junction is isolated in the model (no open path to a fixed head), so it has no modelled pressure to fit"
+    )]
+    GaugeIsolated { test: String },
+}
+
+/// An isolated gauge has a NaN head; fitting to it would be fitting to nothing.
+fn check_gauges_connected(
+    tests: &[CalibrationTest],
+    evaluations: &[evaluate::TestEvaluation],
+) -> Result<(), CalibrationError> {
+    match tests
+        .iter()
+        .zip(evaluations)
+        .find(|(_, e)| !(e.static_head_m.is_finite() && e.residual_head_m.is_finite()))
+    {
+        Some((test, _)) => Err(CalibrationError::GaugeIsolated {
+            test: test.id.clone(),
+        }),
+        None => Ok(()),
+    }
 }
 
 /// Fits the C of every unlocked, informed group of `net` to `tests`.
@@ -263,6 +284,7 @@ pub fn calibrate(
     let start_c: Vec<f64> = candidates.iter().map(|c| c.start_c).collect();
     let screening = evaluate::Evaluator::new(net, tests, all_pipes)?;
     let start_eval = screening.evaluate(&start_c, true)?;
+    check_gauges_connected(tests, &start_eval)?;
     let (_, start_rows) =
         evaluate::residual_rows(tests, &start_eval, options.fit, options.gauge_sd_m);
     let rows_per_test = start_rows.len() / tests.len();
@@ -303,6 +325,7 @@ pub fn calibrate(
         }
     }
     let final_eval = screening.evaluate(&final_c, true)?;
+    check_gauges_connected(tests, &final_eval)?;
     let (final_residuals, final_rows) =
         evaluate::residual_rows(tests, &final_eval, options.fit, options.gauge_sd_m);
 

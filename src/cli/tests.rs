@@ -57,8 +57,9 @@ pub fn run(
                     "total_flow": c.total_flow,
                     "field_available_flow": c.field_available.value(),
                     "model_available_flow": c.model_available,
-                    "usable": !c.has_error(),
+                    "usable": !c.has_error() && !c.gauge_isolated_in_model,
                     "negative_pressure_in_model": c.negative_pressure_somewhere,
+                    "gauge_isolated_in_model": c.gauge_isolated_in_model,
                     "findings": c.findings.iter().map(finding_json).collect::<Vec<_>>(),
                 })
             })
@@ -124,6 +125,12 @@ fn table(rows: &[ModelComparison], target: f64, pressure: &str, flow: &str) -> S
                 format!("{word} {}: {}", f.column, f.reason)
             })
             .collect();
+        if c.gauge_isolated_in_model {
+            flags.push(
+                "warn: the gauge's junction is isolated in the model (no open path to a fixed head): no modelled pressure"
+                    .into(),
+            );
+        }
         if c.negative_pressure_somewhere {
             flags.push("warn: the model shows negative pressure somewhere while flowing".into());
         }

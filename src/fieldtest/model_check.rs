@@ -33,6 +33,9 @@ pub struct ModelComparison {
     pub findings: Vec<Finding>,
     /// The model gave a negative pressure somewhere in the residual state.
     pub negative_pressure_somewhere: bool,
+    /// The gauge's junction has no open path to a fixed head in the static or the residual state, so
+    /// the model has no pressure for it (a closed check valve or a pump that cannot lift cut it off).
+    pub gauge_isolated_in_model: bool,
 }
 
 impl ModelComparison {
@@ -119,6 +122,7 @@ pub fn compare_with_model(
             model_available: None,
             findings: Vec::new(),
             negative_pressure_somewhere: false,
+            gauge_isolated_in_model: false,
         };
         let resolved = if reading.row_has_error(test.row) {
             None
@@ -137,6 +141,7 @@ pub fn compare_with_model(
             comparison.modelled_residual = residual_head.map(|h| units.pressure_from_head_m(h));
             comparison.negative_pressure_somewhere =
                 !flowing.negative_pressure_junctions(net).is_empty();
+            comparison.gauge_isolated_in_model = static_head.is_none() || residual_head.is_none();
             if let Some(h) = static_head
                 && let Some(finding) = check_modelled_static(test, h)
             {

@@ -4,11 +4,18 @@
 //! Typed values are in SI, named so (`static_head_m`, `flow_m3s`); the methods without a unit in their
 //! name (`static_pressure`, `flow`) give the sheet's own units (psi or kPa, gpm or L/s, in or mm).
 
+// Sheets are edited by hand: no indexing that could panic on what they hold.
+#![cfg_attr(not(test), deny(clippy::indexing_slicing))]
+
 use super::fireflow::{AvailableFlow, available_flow};
 use super::pitot::{DEFAULT_OUTLET_COEFFICIENT, pitot_flow};
 use super::screening::{Finding, Rule, Severity, number, screen};
 use super::sheet::{FieldSheet, SheetColumn};
 use crate::network::{Network, UnitSystem};
+
+/// The largest number a cell may hold (in the sheet's units): far above any pressure, flow, outlet or
+/// coefficient a crew can read, and small enough that every unit conversion stays finite.
+pub const MAX_READING: f64 = 1e9;
 
 /// One hydrant flowing during a test.
 #[derive(Debug, Clone, PartialEq)]
@@ -116,8 +123,9 @@ impl SheetReading {
     /// Findings about one data row.
     pub fn findings_for_row(&self, row: usize) -> impl Iterator<Item = &Finding> {
         let start = self.findings.partition_point(|f| f.row < row);
-        self.findings[start..]
+        self.findings
             .iter()
+            .skip(start)
             .take_while(move |f| f.row == row)
     }
 
@@ -281,7 +289,12 @@ impl RowReader<'_> {
                 ),
             );
         } else if cells < header {
-            let column = self.sheet.headers()[cells].clone();
+            let column = self
+                .sheet
+                .headers()
+                .get(cells)
+                .cloned()
+                .unwrap_or_else(|| format!("field {}", cells + 1));
             self.push(
                 Rule::TooFewCells,
                 &column,
@@ -293,7 +306,8 @@ impl RowReader<'_> {
         }
     }
 
-    /// A single number; `None` (with a finding) when not a finite number or negative.
+    /// A single number; `None` (with a finding) when not a finite number, negative or above
+    /// [`MAX_READING`].
     fn number(&mut self, column: SheetColumn, text: &str, what: &str) -> Option<f64> {
         let name = self.name(column);
         match text.parse::<f64>() {
@@ -302,6 +316,15 @@ impl RowReader<'_> {
                     Rule::Negative,
                     &name,
                     format!("{what} {text} is negative; readings here are never below zero"),
+                );
+                None
+            }
+            // 1e300 psi is a finite f64 but turns infinite in SI: no gauge or meter reads a billion.
+            Ok(value) if value.is_finite() && value > MAX_READING => {
+                self.push(
+                    Rule::NotNumber,
+                    &name,
+                    format!("{what} {text} is too large to be a reading"),
                 );
                 None
             }
@@ -422,8 +445,8 @@ impl RowReader<'_> {
         }
         let at = |list: &NumberList, i: usize| -> Option<f64> {
             let list = list.as_ref()?;
-            if list.len() == 1 {
-                list[0]
+            if let [single] = list.as_slice() {
+                *single
             } else {
                 list.get(i).copied().flatten()
             }

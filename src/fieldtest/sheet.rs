@@ -4,6 +4,9 @@
 //!
 //! Nothing here interprets a value; see [`super::reading`] for typed tests and findings.
 
+// The loader faces files edited by hand: no indexing that could panic on what they hold.
+#![cfg_attr(not(test), deny(clippy::indexing_slicing))]
+
 use std::collections::HashMap;
 use std::fmt;
 use std::path::Path;
@@ -198,10 +201,9 @@ impl Row {
 
     fn get(&self, index: usize) -> Option<&str> {
         let end = *self.ends.get(index)? as usize;
-        let start = if index == 0 {
-            0
-        } else {
-            self.ends[index - 1] as usize
+        let start = match index.checked_sub(1) {
+            Some(before) => *self.ends.get(before)? as usize,
+            None => 0,
         };
         self.text.get(start..end)
     }
@@ -216,8 +218,11 @@ impl Row {
         while cells.len() <= index {
             cells.push("");
         }
-        let old = cells[index].to_string();
-        cells[index] = value;
+        // The padding above makes `index` a cell of the row.
+        let old = match cells.get_mut(index) {
+            Some(cell) => std::mem::replace(cell, value).to_string(),
+            None => String::new(),
+        };
         *self = Row::from_cells(cells).ok_or(EditError::RowTooLong)?;
         Ok(old)
     }
@@ -378,7 +383,7 @@ impl FieldSheet {
                             name.clone(),
                             SheetErrorKind::MixedUnits {
                                 this: column_units.key(),
-                                other: headers[at].clone(),
+                                other: headers.get(at).cloned().unwrap_or_default(),
                                 other_units: seen.key(),
                             },
                         ));
@@ -386,7 +391,9 @@ impl FieldSheet {
                     Some(_) => {}
                 }
             }
-            let slot = &mut columns[column_slot(column)];
+            let Some(slot) = columns.get_mut(column_slot(column)) else {
+                continue; // column_slot is a position in SheetColumn::ALL, which has 13 entries.
+            };
             if let Some(first) = *slot {
                 return Err((
                     name.clone(),
@@ -396,7 +403,7 @@ impl FieldSheet {
             *slot = Some(i);
         }
         let units = units.map_or(UnitSystem::Us, |(u, _)| u);
-        let has = |c: SheetColumn| columns[column_slot(c)].is_some();
+        let has = |c: SheetColumn| columns.get(column_slot(c)).is_some_and(Option::is_some);
         for column in [
             SheetColumn::Test,
             SheetColumn::ResidualNode,
@@ -505,7 +512,7 @@ impl FieldSheet {
 
     /// Index in [`FieldSheet::headers`] of a known column, if the sheet has it.
     pub fn column_index(&self, column: SheetColumn) -> Option<usize> {
-        self.columns[column_slot(column)]
+        self.columns.get(column_slot(column)).copied().flatten()
     }
 
     /// Index of a column by its header name as written (exact text).
@@ -517,7 +524,10 @@ impl FieldSheet {
     /// get in this sheet's units.
     pub fn column_name(&self, column: SheetColumn) -> &str {
         match self.column_index(column) {
-            Some(i) => &self.headers[i],
+            Some(i) => self
+                .headers
+                .get(i)
+                .map_or_else(|| column.header_name(self.units), String::as_str),
             None => column.header_name(self.units),
         }
     }
@@ -610,7 +620,9 @@ impl FieldSheet {
         self.headers
             .push(column.header_name(self.units).to_string());
         let index = self.headers.len() - 1;
-        self.columns[column_slot(column)] = Some(index);
+        if let Some(slot) = self.columns.get_mut(column_slot(column)) {
+            *slot = Some(index);
+        }
         index
     }
 
@@ -680,7 +692,7 @@ pub fn load_sheet(path: &Path) -> Result<FieldSheet, SheetError> {
         Ok(text) => text,
         Err(e) => {
             let offset = e.valid_up_to();
-            let line = 1 + bytes[..offset].iter().filter(|&&b| b == b'\n').count();
+            let line = 1 + bytes.iter().take(offset).filter(|&&b| b == b'\n').count();
             return Err(SheetError {
                 file,
                 line: Some(line),

@@ -204,7 +204,9 @@ pub enum SolveError {
     },
     #[error("the network has no fixed head (reservoir or tank): nothing sets the grade")]
     NoFixedHead,
-    #[error("the head system could not be factorized: {0}")]
+    #[error(
+        "the head system could not be factorized ({0}): check for pipes of extreme length or diameter, or an extreme demand"
+    )]
     Factorization(String),
     #[error("unknown condition `{0}`")]
     UnknownCondition(String),

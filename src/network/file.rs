@@ -6,6 +6,9 @@
 //! instead of stopping at the first. It does no I/O: [`parse_network`] takes the text and a display
 //! name; [`load_network_file`] is the thin helper that reads a file first.
 
+// Network files are edited by hand: no indexing that could panic on what they hold.
+#![cfg_attr(not(test), deny(clippy::indexing_slicing))]
+
 use std::collections::HashMap;
 use std::fmt;
 use std::ops::Range;
@@ -591,6 +594,16 @@ impl<'t> Reader<'t> {
                     let message = format!("{} must not be empty", Self::what(rec, key));
                     self.report_at(rec, &span, message, key);
                     None
+                } else if let Some(odd) = id.chars().find(|&c| hidden_character(c)) {
+                    let message = format!(
+                        "{} must not hold control or text-direction characters, found U+{:04X}",
+                        Self::what(rec, key),
+                        u32::from(odd)
+                    );
+                    self.report(&span, message, None, Some(key));
+                    // Still registered, so that its uses do not pile up as unknown-id diagnostics; the
+                    // record's messages leave it out.
+                    Some((id, span))
                 } else {
                     rec.id = Some(id.clone());
                     Some((id, span))
@@ -1374,6 +1387,17 @@ fn reachable(network: &Network, closed_pipes: &[usize], pumps_off: &[usize]) -> 
     }
     reached.truncate(junction_count);
     reached
+}
+
+/// A character that prints as nothing or reorders what follows it on a terminal (NUL and other
+/// controls, bidi marks, embeddings, overrides and isolates): an id holding one looks like another id,
+/// or scrambles the diagnostics it is printed in.
+fn hidden_character(c: char) -> bool {
+    c.is_control()
+        || matches!(
+            c,
+            '\u{200e}' | '\u{200f}' | '\u{202a}'..='\u{202e}' | '\u{2066}'..='\u{2069}' | '\u{061c}'
+        )
 }
 
 /// A TOML number (integer or float) as f64.

@@ -1,0 +1,401 @@
+//! docs/errors.md cannot drift: every phrase it lists is produced by one of the triggers below, and
+//! every refusal the triggers produce is listed there.
+
+use std::path::{Path, PathBuf};
+use std::process::Command;
+use std::sync::atomic::AtomicBool;
+
+use roughcal::calibrate::{CalibrationOptions, CalibrationTest, calibrate};
+use roughcal::fieldtest::{FieldSheet, save_sheet};
+use roughcal::network::UnitSystem;
+use roughcal::network::file::parse_network;
+use roughcal::storage;
+
+const BASE: &str = include_str!("data/base.toml");
+const HEADER: &str = "test,date,time,residual_node,flow_node,static_psi,residual_psi,flow_gpm,pitot_psi,outlet_in,coefficient,condition,note";
+
+/// What one trigger produced: its label, its exit code (None for a library call) and its messages.
+struct Outcome {
+    label: String,
+    refused: bool,
+    text: String,
+}
+
+/// The identifying phrases of docs/errors.md: the first code span of every table row, except in the
+/// section of guards that are not triggered.
+fn catalogue() -> (Vec<String>, Vec<String>) {
+    let doc = std::fs::read_to_string(Path::new(env!("CARGO_MANIFEST_DIR")).join("docs/errors.md"))
+        .unwrap();
+    let (mut triggered, mut guards) = (Vec::new(), Vec::new());
+    let mut in_guards = false;
+    for line in doc.lines() {
+        if line.starts_with('#') {
+            in_guards = line.contains("(not triggered)");
+        }
+        let Some(rest) = line.strip_prefix("| `") else {
+            continue;
+        };
+        // The phrase may itself hold a code span (`pumps_off`): the cell ends at "` |".
+        let phrase = rest.split("` |").next().unwrap().to_string();
+        if in_guards {
+            guards.push(phrase);
+        } else {
+            triggered.push(phrase);
+        }
+    }
+    (triggered, guards)
+}
+
+struct Scratch {
+    dir: tempfile::TempDir,
+}
+
+impl Scratch {
+    fn file(&self, name: &str, content: &[u8]) -> PathBuf {
+        let path = self.dir.path().join(name);
+        std::fs::write(&path, content).unwrap();
+        path
+    }
+
+    fn run(&self, label: &str, args: &[&str]) -> Outcome {
+        let out = Command::new(env!("CARGO_BIN_EXE_roughcal"))
+            .args(args)
+            .current_dir(self.dir.path())
+            .output()
+            .unwrap();
+        let text = format!(
+            "{}{}",
+            String::from_utf8_lossy(&out.stdout),
+            String::from_utf8_lossy(&out.stderr)
+        );
+        assert!(!text.contains("panicked"), "{label}: {text}");
+        Outcome {
+            label: label.to_string(),
+            refused: !out.status.success(),
+            text,
+        }
+    }
+}
+
+fn network_variants() -> Vec<(&'static str, String)> {
+    let r = |from: &str, to: &str| {
+        assert!(BASE.contains(from), "{from}");
+        BASE.replacen(from, to, 1)
+    };
+    vec![
+        ("syntax", r("id = \"J-2\"", "id = J-2\"")),
+        ("unknown key", r("length = 600.0", "lenght = 600.0")),
+        ("missing key", r("diameter = 8.0\n", "")),
+        ("not finite", r("elevation = 700.0", "elevation = nan")),
+        ("not positive", r("length = 600.0", "length = -5")),
+        (
+            "not boolean",
+            r("check_valve = true", "check_valve = \"yes\""),
+        ),
+        ("not string", r("id = \"J-4\"", "id = 12")),
+        ("empty id", r("id = \"J-4\"", "id = \"\"")),
+        ("hidden character", r("id = \"J-4\"", "id = \"J-4\\u202e\"")),
+        (
+            "not array",
+            format!(
+                "group = \"ci-1950\"\n{}",
+                r("[[group]]\nname = \"ci-1950\"\nmin = 40.0\nmax = 140.0", "")
+            ),
+        ),
+        ("units", r("units = \"us\"", "units = \"metric\"")),
+        ("duplicate", r("id = \"J-4\"", "id = \"J-3\"")),
+        ("dangling", r("to = \"J-2\"", "to = \"J-9\"")),
+        ("self", r("to = \"J-2\"", "to = \"J-1\"")),
+        ("group", r("group = \"ci-1950\"", "group = \"ci-195\"")),
+        ("bounds", r("min = 40.0", "min = 150.0")),
+        ("plan", r("demand = 50.0", "demand = 50.0\nx = 3.0")),
+        (
+            "no fixed head",
+            r("[[fixed_head]]\nid = \"T-1\"\nhead = 900.0", "")
+                .replace("from = \"T-1\"", "from = \"J-4\""),
+        ),
+        (
+            "isolated",
+            format!("{BASE}\n[[junction]]\nid = \"J-9\"\nelevation = 1.0\n"),
+        ),
+        (
+            "condition cuts",
+            r("closed = [\"P-3\"]", "closed = [\"P-1\"]"),
+        ),
+        (
+            "condition pipe",
+            r("closed = [\"P-3\"]", "closed = [\"P-99\"]"),
+        ),
+        (
+            "condition kind",
+            r("closed = [\"P-3\"]", "closed = [\"PU-1\"]"),
+        ),
+        (
+            "condition head",
+            r("heads = { \"T-1\" = 880.0 }", "heads = { \"T-9\" = 880.0 }"),
+        ),
+        (
+            "curve points",
+            r(
+                "curve = [[0.0, 120.0], [300.0, 100.0], [600.0, 50.0]]",
+                "curve = [[0.0, 120.0], [300.0, 100.0]]",
+            ),
+        ),
+        (
+            "curve rises",
+            r(
+                "curve = [[0.0, 120.0], [300.0, 100.0], [600.0, 50.0]]",
+                "curve = [[0.0, 120.0], [300.0, 130.0], [600.0, 50.0]]",
+            ),
+        ),
+    ]
+}
+
+/// Sheet rows (under the us header) that each draw one kind of finding; run with `tests` against the
+/// base network so the network rules apply too.
+const FINDING_ROWS: &[&str] = &[
+    "HT-1,,,J-1,J-2,70,55,500,,,,,",
+    "HT-2,,,J-1,J-2,70,55,500,,,,,\"extra\",cell",
+    ",,,J-1,J-2,70,55,500,,,,,",
+    "HT-4,,,,J-2,70,55,500,,,,,",
+    "HT-5,,,J-1,,70,55,500,,,,,",
+    "HT-6,,,J-1,J-2,70,,500,,,,,",
+    "HT-7,,,J-1,J-2,7o,55,500,,,,,",
+    "HT-8,,,J-1,J-2,1e308,55,500,,,,,",
+    "HT-9,,,J-1,J-2,-70,55,500,,,,,",
+    "HT-10,,,J-1,J-2,70,55,0,,,,,",
+    "HT-11,,,J-1,J-2,70,55,,14,2.5,9,,",
+    "HT-12,,,J-1,J-2;J-3,70,55,500,,,,,",
+    "HT-13,,,J-1,J-2,55,70,500,,,,,",
+    "HT-14,,,J-1,J-1,70,55,500,,,,,",
+    "HT-15,,,J-1,J-2;J-2,70,55,500;400,,,,,",
+    "HT-16,,,J-1,J-2,70,55,,90,2.5,0.9,,",
+    "HT-17,,,J-1,J-2,70,66,500,,,,,",
+    "HT-18,,,J-99,J-2,70,55,500,,,,,",
+    "HT-19,,,J-1,T-1,70,55,500,,,,,",
+    "HT-20,,,J-1,J-2,70,55,500,,,,noon,",
+    "HT-21,,,J-1,J-2,20,5,500,,,,,",
+    "HT-1,,,J-2,J-3,70,50,500,,,,,",
+];
+
+fn cli_outcomes(s: &Scratch) -> Vec<Outcome> {
+    let mut out = Vec::new();
+    for (label, text) in network_variants() {
+        let path = s.file(
+            &format!("{}.toml", label.replace(' ', "-")),
+            text.as_bytes(),
+        );
+        let outcome = s.run(label, &["check", path.to_str().unwrap()]);
+        assert!(outcome.refused, "{label} was accepted");
+        out.push(outcome);
+    }
+    let net = s.file("base.toml", BASE.as_bytes());
+    let net = net.to_str().unwrap();
+    out.push(s.run("missing network", &["check", "nowhere.toml"]));
+    let junk = s.file("junk.toml", b"units = \"us\"\nti\xfftle = 1\n");
+    out.push(s.run("binary network", &["check", junk.to_str().unwrap()]));
+
+    let mut findings = format!("{HEADER}\n");
+    for row in FINDING_ROWS {
+        findings.push_str(row);
+        findings.push('\n');
+    }
+    let sheet = s.file("findings.csv", findings.as_bytes());
+    out.push(s.run("findings", &["tests", net, sheet.to_str().unwrap()]));
+    out.push(s.run(
+        "findings (fireflow)",
+        &["fireflow", sheet.to_str().unwrap()],
+    ));
+
+    let sheets: Vec<(&str, Vec<u8>)> = vec![
+        ("binary sheet", b"test,static_psi\n\xff\xfe\x00".to_vec()),
+        ("empty sheet", Vec::new()),
+        ("semicolons", HEADER.replace(',', ";").into_bytes()),
+        (
+            "duplicate column",
+            format!("{HEADER},static_psi\n").into_bytes(),
+        ),
+        (
+            "mixed units",
+            HEADER.replace("static_psi", "static_kpa").into_bytes(),
+        ),
+    ];
+    for (label, bytes) in sheets {
+        let path = s.file(&format!("{}.csv", label.replace(' ', "-")), &bytes);
+        let outcome = s.run(label, &["fireflow", path.to_str().unwrap()]);
+        assert!(outcome.refused, "{label} was accepted");
+        out.push(outcome);
+    }
+    out.push(s.run("missing sheet", &["fireflow", "nowhere.csv"]));
+
+    let honesty = |name: &str| {
+        PathBuf::from(env!("CARGO_MANIFEST_DIR"))
+            .join("tests/data/honesty")
+            .join(name)
+            .to_string_lossy()
+            .into_owned()
+    };
+    let lift = honesty("pump-cannot-lift.toml");
+    out.push(s.run("not converged", &["solve", &lift, "--demand", "J-D=1e15"]));
+    out.push(s.run("non-finite", &["solve", &lift, "--demand", "J-D=1e300"]));
+    let tiny = s.file(
+        "tiny.toml",
+        std::fs::read_to_string(&lift)
+            .unwrap()
+            .replace("diameter = 8.0", "diameter = 1e-300")
+            .as_bytes(),
+    );
+    out.push(s.run("factorization", &["solve", tiny.to_str().unwrap()]));
+    out.push(s.run("unknown condition", &["solve", net, "--condition", "noon"]));
+    out.push(s.run(
+        "warnings: isolated, lift",
+        &["solve", &honesty("isolated-behind-check-valve.toml")],
+    ));
+    out.push(s.run(
+        "warnings: negative",
+        &["solve", &honesty("negative-pressure.toml")],
+    ));
+    out.push(s.run(
+        "isolated gauge",
+        &[
+            "tests",
+            &honesty("isolated-behind-check-valve.toml"),
+            &honesty("isolated-gauge.csv"),
+        ],
+    ));
+
+    out.push(s.run("loops pump", &["loops", net]));
+    let no_pump = s.file(
+        "nopump.toml",
+        BASE.replace("[[pump]]", "[[pump]]\noff = true").as_bytes(),
+    );
+    out.push(s.run("loops check valve", &["loops", no_pump.to_str().unwrap()]));
+    let plain = s.file(
+        "plain.toml",
+        BASE.replace("[[pump]]", "[[pump]]\noff = true")
+            .replace("check_valve = true", "")
+            .as_bytes(),
+    );
+    out.push(s.run(
+        "loops iterations",
+        &["loops", plain.to_str().unwrap(), "--iterations", "1"],
+    ));
+    out.push(s.run("demand form", &["solve", net, "--demand", "J-1"]));
+    out.push(s.run("demand node", &["solve", net, "--demand", "J-9=100"]));
+    out.push(s.run("demand number", &["solve", net, "--demand", "J-1=lots"]));
+    out.push(s.run("demand nan", &["solve", net, "--demand", "J-1=NaN"]));
+    out.push(s.run(
+        "target",
+        &["fireflow", sheet.to_str().unwrap(), "--target=-5"],
+    ));
+    out.push(s.run("subcommand", &["slove", net]));
+    out.push(s.run("missing argument", &["solve"]));
+    out
+}
+
+fn library_outcomes(s: &Scratch) -> Vec<Outcome> {
+    let mut out = Vec::new();
+    let mut refusal = |label: &str, text: String| {
+        out.push(Outcome {
+            label: label.into(),
+            refused: true,
+            text,
+        })
+    };
+    let existing = s.file("coefficients.toml", b"kept");
+    refusal(
+        "write_new",
+        storage::write_new(&existing, b"new", false)
+            .unwrap_err()
+            .to_string(),
+    );
+    let missing = s.dir.path().join("missing/sheet.csv");
+    refusal(
+        "save into a missing folder",
+        save_sheet(&FieldSheet::empty(UnitSystem::Us), &missing)
+            .unwrap_err()
+            .to_string(),
+    );
+
+    let net = parse_network(BASE, "base.toml").unwrap().network;
+    let options = CalibrationOptions::for_units(UnitSystem::Us);
+    let fit = |tests: &[CalibrationTest], cancel: bool| {
+        calibrate(&net, tests, &options, &mut |_| {}, &AtomicBool::new(cancel))
+            .unwrap_err()
+            .to_string()
+    };
+    let test = |junction: usize| CalibrationTest {
+        id: "HT-1".into(),
+        residual_junction: junction,
+        condition: None,
+        hydrant_flows_m3s: vec![(1, 0.03)],
+        static_head_m: 50.0,
+        residual_head_m: 40.0,
+    };
+    refusal("no tests", fit(&[], false));
+    // A gauge downstream of the grouped pipes with a big flow informs the group, so the optimizer runs
+    // and sees the cancel flag.
+    let informing = CalibrationTest {
+        residual_junction: 2,
+        hydrant_flows_m3s: vec![(2, 0.08)],
+        ..test(0)
+    };
+    refusal("cancelled", fit(&[informing], true));
+    refusal("bad test", fit(&[test(999)], false));
+
+    let iso = parse_network(
+        include_str!("data/honesty/isolated-behind-check-valve.toml"),
+        "iso.toml",
+    )
+    .unwrap()
+    .network;
+    let behind = iso.find_junction("J-BEHIND").unwrap();
+    let isolated = CalibrationTest {
+        residual_junction: behind,
+        ..test(0)
+    };
+    refusal(
+        "isolated gauge",
+        calibrate(
+            &iso,
+            &[isolated],
+            &options,
+            &mut |_| {},
+            &AtomicBool::new(false),
+        )
+        .unwrap_err()
+        .to_string(),
+    );
+    out
+}
+
+#[test]
+fn every_catalogued_error_happens_and_every_refusal_is_catalogued() {
+    let (phrases, guards) = catalogue();
+    assert!(phrases.len() > 60, "only {} phrases read", phrases.len());
+    let scratch = Scratch {
+        dir: tempfile::tempdir().unwrap(),
+    };
+    let mut outcomes = cli_outcomes(&scratch);
+    outcomes.extend(library_outcomes(&scratch));
+
+    let missing: Vec<&String> = phrases
+        .iter()
+        .filter(|p| !outcomes.iter().any(|o| o.text.contains(p.as_str())))
+        .collect();
+    assert!(
+        missing.is_empty(),
+        "docs/errors.md lists messages no trigger produced: {missing:#?}"
+    );
+    for outcome in outcomes.iter().filter(|o| o.refused) {
+        assert!(
+            phrases
+                .iter()
+                .chain(&guards)
+                .any(|p| outcome.text.contains(p.as_str())),
+            "`{}` refused with a message docs/errors.md does not list:\n{}",
+            outcome.label,
+            outcome.text
+        );
+    }
+}

@@ -1,0 +1,438 @@
+//! Files somebody edited by hand or exported from a spreadsheet: the network loader, the sheet loader
+//! and what runs on what they accept must never panic or hang, and every rejection names the file and
+//! a line.
+//!
+//! The inputs: every prefix of a valid file, values replaced by wrong types, NaN, infinities, huge
+//! numbers, empty and duplicate ids, ids with odd Unicode (bidi marks, combining characters, NUL,
+//! emoji), and binary junk. Case counts are bounded so `cargo test` stays quick.
+
+use proptest::prelude::*;
+use roughcal::fieldtest::{FieldSheet, screen_sheet};
+use roughcal::hydraulics::{GradientSolver, OperatingState};
+use roughcal::network::file::{NetworkFileError, parse_network};
+
+/// A small valid network of our own: a tank, a booster, a loop, a check valve, a group, a condition.
+const NETWORK: &str = include_str!("data/base.toml");
+
+const SHEET: &str = "test,date,time,residual_node,flow_node,static_psi,residual_psi,flow_gpm,pitot_psi,outlet_in,coefficient,condition,note
+HT-1,2026-10-13,08:00,J-1,J-2,70.5,55.0,,14.0,2.5,0.9,,first
+HT-2,2026-10-13,08:40,J-2,J-3;J-1,68.0,41.0,900;650,,,,peak,two hydrants
+HT-3,2026-10-13,09:10,J-3,J-2,66,50,1000,,,,,
+";
+
+/// Values a spreadsheet or a hand edit puts where a number, a string or a list belongs.
+const HOSTILE_VALUES: &[&str] = &[
+    "nan",
+    "+nan",
+    "inf",
+    "-inf",
+    "1e308",
+    "1e400",
+    "-1e308",
+    "99999999999999999999999",
+    "0",
+    "-0.0",
+    "\"nan\"",
+    "\"\"",
+    "\"12,5\"",
+    "true",
+    "[]",
+    "[1, 2]",
+    "{}",
+    "{ a = 1 }",
+    "1979-05-27",
+    "\"\\u0000\"",
+    "\"\\u202e1-J\"",
+    "",
+];
+
+/// Ids with odd Unicode, written as TOML basic strings (escapes where TOML needs them).
+const ODD_IDS: &[&str] = &[
+    "",
+    " ",
+    "J-1\\u200f",
+    "\\u202eJ-1",
+    "J\\u0301-1",
+    "J-1\\u0000",
+    "\u{1f6b0}-1",
+    "\\u00a0J-1",
+    "J-1\\t",
+    "\u{5d0}\u{5d1}-1",
+    "J-1\\ufeff",
+];
+
+/// The rejection names the file and a line: `net.toml:LINE:COL: ...` for every diagnostic.
+fn assert_network_outcome(text: &str) {
+    match parse_network(text, "net.toml") {
+        Ok(loaded) => {
+            // What the loader accepts, the solver must take without a panic; an answer or an error.
+            let net = &loaded.network;
+            if let Ok(solver) = GradientSolver::new(net) {
+                for name in std::iter::once(None)
+                    .chain(net.conditions.iter().map(|c| Some(c.name.as_str())))
+                {
+                    if let Ok(state) = OperatingState::for_condition_name(net, name)
+                        && let Ok(solution) = solver.solve(net, &state, &net.c_factors(), None)
+                    {
+                        assert!(solution.max_imbalance_m3s.is_finite());
+                        for j in 0..net.junctions.len() {
+                            if let Some(p) = solution.pressure_head_m(net, j) {
+                                assert!(p.is_finite(), "a reported pressure is finite");
+                            }
+                        }
+                    }
+                }
+            }
+        }
+        Err(NetworkFileError::Invalid { diagnostics }) => {
+            assert!(!diagnostics.is_empty());
+            let lines = text.lines().count().max(1) + 1;
+            for d in &diagnostics {
+                let shown = d.to_string();
+                assert!(
+                    shown.starts_with(&format!("net.toml:{}:{}: ", d.line, d.column)),
+                    "{shown}"
+                );
+                assert!(
+                    d.line >= 1 && d.line <= lines,
+                    "line out of the file: {shown}"
+                );
+                assert!(d.column >= 1, "{shown}");
+            }
+        }
+        Err(other) => panic!("parse_network reads no file, yet: {other}"),
+    }
+}
+
+/// A rejected sheet names the file and a line (`s.csv:LINE: ...`); an accepted one screens without a
+/// panic, every finding has a line and a column, and no usable test carries a non-finite number.
+fn assert_sheet_outcome(text: &str) {
+    match FieldSheet::parse(text, "s.csv") {
+        Ok(sheet) => {
+            let reading = screen_sheet(&sheet, None);
+            for finding in &reading.findings {
+                assert!(finding.line >= 1, "{finding:?}");
+                assert!(!finding.column.is_empty(), "{finding:?}");
+            }
+            for test in reading.usable_tests() {
+                assert!(
+                    test.static_pressure().is_finite()
+                        && test.residual_pressure().is_finite()
+                        && test.total_flow().is_finite(),
+                    "a usable test with a non-finite reading: {test:?}"
+                );
+                if let Some(flow) = test.available_flow(20.0).value() {
+                    assert!(flow.is_finite(), "available flow {flow} for {test:?}");
+                }
+            }
+            let written = sheet.to_csv_string();
+            let again = FieldSheet::parse(&written, "s.csv").expect("a written sheet parses");
+            assert_eq!(again.to_csv_string(), written);
+        }
+        Err(error) => {
+            let shown = error.to_string();
+            let line = error
+                .line
+                .expect("a sheet rejected for its content names a line");
+            assert!(shown.starts_with(&format!("s.csv:{line}: ")), "{shown}");
+        }
+    }
+}
+
+/// Byte offsets of `key = ` values in a TOML text, for substitution.
+fn value_spans(text: &str) -> Vec<(usize, usize)> {
+    let mut spans = Vec::new();
+    let mut offset = 0;
+    for line in text.split_inclusive('\n') {
+        if let Some(eq) = line.find(" = ") {
+            let start = offset + eq + 3;
+            let end = offset + line.trim_end_matches('\n').len();
+            spans.push((start, end));
+        }
+        offset += line.len();
+    }
+    spans
+}
+
+#[test]
+fn the_bases_are_valid() {
+    let loaded = parse_network(NETWORK, "net.toml").unwrap();
+    assert_eq!(loaded.network.junctions.len(), 4);
+    let sheet = FieldSheet::parse(SHEET, "s.csv").unwrap();
+    let reading = screen_sheet(&sheet, Some(&loaded.network));
+    assert_eq!(reading.usable_tests().count(), 3, "{:?}", reading.findings);
+}
+
+#[test]
+fn every_prefix_of_a_network_file() {
+    for end in (0..=NETWORK.len()).filter(|&i| NETWORK.is_char_boundary(i)) {
+        assert_network_outcome(&NETWORK[..end]);
+    }
+}
+
+#[test]
+fn every_prefix_of_a_sheet() {
+    for end in (0..=SHEET.len()).filter(|&i| SHEET.is_char_boundary(i)) {
+        assert_sheet_outcome(&SHEET[..end]);
+    }
+}
+
+#[test]
+fn every_hostile_value_in_every_network_key() {
+    for (start, end) in value_spans(NETWORK) {
+        for value in HOSTILE_VALUES {
+            let text = format!("{}{value}{}", &NETWORK[..start], &NETWORK[end..]);
+            assert_network_outcome(&text);
+        }
+    }
+}
+
+#[test]
+fn non_finite_and_huge_numbers_are_rejected_at_their_line() {
+    for value in ["nan", "inf", "-inf", "-5"] {
+        let text = NETWORK.replace("length = 600.0", &format!("length = {value}"));
+        let error = parse_network(&text, "net.toml").expect_err(value);
+        let line = NETWORK.lines().position(|l| l == "length = 600.0").unwrap() + 1;
+        let shown = error.to_string();
+        assert!(
+            shown.contains(&format!("net.toml:{line}:")),
+            "{value}: {shown}"
+        );
+        assert!(shown.contains("length"), "{value}: {shown}");
+    }
+}
+
+#[test]
+fn a_number_too_large_for_a_float_is_a_syntax_error_at_its_line() {
+    let text = NETWORK.replace("length = 600.0", "length = 1e400");
+    let shown = parse_network(&text, "net.toml").unwrap_err().to_string();
+    assert!(shown.starts_with("net.toml:54:10: "), "{shown}");
+    assert!(shown.contains("overflow"), "{shown}");
+}
+
+#[test]
+fn odd_ids_everywhere_in_a_network() {
+    for id in ODD_IDS {
+        for target in ["\"J-2\"", "\"P-2\"", "\"ci-1950\"", "\"peak\""] {
+            assert_network_outcome(&NETWORK.replace(target, &format!("\"{id}\"")));
+            // Only the first use renamed: dangling references.
+            assert_network_outcome(&NETWORK.replacen(target, &format!("\"{id}\""), 1));
+        }
+    }
+}
+
+#[test]
+fn duplicate_keys_and_entries() {
+    // A key twice in one table is a TOML error at the second one.
+    let twice = NETWORK.replacen("head = 900.0", "head = 900.0\nhead = 901.0", 1);
+    let shown = parse_network(&twice, "net.toml").unwrap_err().to_string();
+    assert!(shown.starts_with("net.toml:7:"), "{shown}");
+    // The same junction id twice is a diagnostic at the second.
+    let dup = NETWORK.replace("id = \"J-4\"", "id = \"J-3\"");
+    let shown = parse_network(&dup, "net.toml").unwrap_err().to_string();
+    assert!(
+        shown.contains("duplicate") && shown.contains("J-3"),
+        "{shown}"
+    );
+    assert_network_outcome(&NETWORK.replace("[[pump]]", "[[pump]]\n[[pump]]"));
+}
+
+#[test]
+fn every_hostile_value_in_every_sheet_cell() {
+    let lines: Vec<&str> = SHEET.lines().collect();
+    let header = lines[0];
+    for (row, line) in lines.iter().enumerate().skip(1) {
+        let cells: Vec<&str> = line.split(',').collect();
+        for column in 0..cells.len() {
+            for value in [
+                "nan",
+                "NaN",
+                "inf",
+                "-inf",
+                "1e308",
+                "1e400",
+                "-1",
+                "0",
+                "1,5",
+                "\"1,5\"",
+                "abc",
+                "",
+                " ",
+                ";",
+                "\u{202e}J-1",
+                "J\u{301}-1",
+                "\u{1f6b0}",
+                "1e-400",
+                "0x10",
+                "+5",
+                ";;;",
+                "1;",
+            ] {
+                let mut changed = cells.clone();
+                changed[column] = value;
+                let mut text = String::from(header);
+                text.push('\n');
+                for (r, other) in lines.iter().enumerate().skip(1) {
+                    if r == row {
+                        text.push_str(&changed.join(","));
+                    } else {
+                        text.push_str(other);
+                    }
+                    text.push('\n');
+                }
+                assert_sheet_outcome(&text);
+            }
+        }
+    }
+}
+
+#[test]
+fn spreadsheet_exports_with_semicolons_are_rejected_at_the_header() {
+    let text = SHEET.replace(',', ";");
+    let error = FieldSheet::parse(&text, "s.csv").unwrap_err();
+    let shown = error.to_string();
+    assert!(shown.starts_with("s.csv:1: "), "{shown}");
+    assert!(shown.contains("required column missing"), "{shown}");
+}
+
+#[test]
+fn a_nul_byte_is_rejected_at_its_line() {
+    let text = SHEET.replace("first", "fi\0rst");
+    let shown = FieldSheet::parse(&text, "s.csv").unwrap_err().to_string();
+    assert!(shown.starts_with("s.csv:2: "), "{shown}");
+}
+
+fn network_mutation() -> impl Strategy<Value = String> {
+    let spans = value_spans(NETWORK);
+    (
+        0..spans.len(),
+        prop::sample::select(HOSTILE_VALUES),
+        0..spans.len(),
+        prop::sample::select(ODD_IDS),
+    )
+        .prop_map(move |(a, value, b, id)| {
+            let (a, b) = (spans[a], spans[b]);
+            // Two substitutions, the later one first so the earlier offsets hold.
+            let (first, second) = if a.0 <= b.0 {
+                ((a, value.to_string()), (b, format!("\"{id}\"")))
+            } else {
+                ((b, format!("\"{id}\"")), (a, value.to_string()))
+            };
+            let mut text = NETWORK.to_string();
+            if first.0 != second.0 {
+                text.replace_range(second.0.0..second.0.1, &second.1);
+            }
+            text.replace_range(first.0.0..first.0.1, &first.1);
+            text
+        })
+}
+
+proptest! {
+    #![proptest_config(ProptestConfig::with_cases(256))]
+
+    #[test]
+    fn network_with_two_hostile_values(text in network_mutation()) {
+        assert_network_outcome(&text);
+    }
+
+    #[test]
+    fn network_with_a_damaged_stretch(
+        at in 0usize..NETWORK.len(),
+        cut in 0usize..80,
+        junk in prop::collection::vec(any::<u8>(), 0..24),
+    ) {
+        let mut bytes = NETWORK.as_bytes().to_vec();
+        let end = (at + cut).min(bytes.len());
+        bytes.splice(at..end, junk);
+        assert_network_outcome(&String::from_utf8_lossy(&bytes));
+    }
+
+    #[test]
+    fn binary_junk_as_a_network(bytes in prop::collection::vec(any::<u8>(), 0..2000)) {
+        assert_network_outcome(&String::from_utf8_lossy(&bytes));
+    }
+
+    #[test]
+    fn sheet_with_a_damaged_stretch(
+        at in 0usize..SHEET.len(),
+        cut in 0usize..40,
+        junk in "[\\PC\u{0}\u{202e}\u{301};,\"\r\n]{0,12}",
+    ) {
+        let mut text = SHEET.as_bytes().to_vec();
+        let end = (at + cut).min(text.len());
+        text.splice(at..end, junk.bytes());
+        assert_sheet_outcome(&String::from_utf8_lossy(&text));
+    }
+
+    #[test]
+    fn binary_junk_as_a_sheet(bytes in prop::collection::vec(any::<u8>(), 0..2000)) {
+        assert_sheet_outcome(&String::from_utf8_lossy(&bytes));
+    }
+
+    #[test]
+    fn sheet_rows_of_any_cells(
+        rows in prop::collection::vec(
+            prop::collection::vec("[-+0-9.eE;naif J]{0,8}|\\PC{0,6}", 0..16),
+            0..12,
+        ),
+    ) {
+        let mut text = SHEET.lines().next().unwrap().to_string();
+        text.push('\n');
+        for cells in rows {
+            let quoted: Vec<String> =
+                cells.iter().map(|c| format!("\"{}\"", c.replace('"', "\"\""))).collect();
+            text.push_str(&quoted.join(","));
+            text.push('\n');
+        }
+        assert_sheet_outcome(&text);
+    }
+}
+
+/// Regression: 1e308 psi was a finite reading whose metres of water column are infinite, and it passed
+/// screening as a usable test.
+#[test]
+fn a_reading_too_large_to_convert_is_a_finding_not_an_infinite_head() {
+    let text = SHEET.replace("70.5", "1e308");
+    let sheet = FieldSheet::parse(&text, "s.csv").unwrap();
+    let reading = screen_sheet(&sheet, None);
+    let finding = reading
+        .findings
+        .iter()
+        .find(|f| f.line == 2 && f.column == "static_psi")
+        .expect("a finding on the static of line 2");
+    assert!(finding.reason.contains("too large"), "{finding:?}");
+    assert!(reading.usable_tests().all(|t| t.test_id != "HT-1"));
+}
+
+/// An id with a NUL, a tab or a bidi override looks like another id on screen (or scrambles the line it
+/// is printed in): refused at its line, without echoing the character.
+#[test]
+fn ids_with_hidden_characters_are_refused() {
+    for (written, code) in [
+        ("J-4\\u0000", "U+0000"),
+        ("\\u202eJ-4", "U+202E"),
+        ("J-4\\u200f", "U+200F"),
+        ("J-4\\t", "U+0009"),
+    ] {
+        let text = NETWORK.replace("id = \"J-4\"", &format!("id = \"{written}\""));
+        let shown = parse_network(&text, "net.toml").unwrap_err().to_string();
+        let line = NETWORK.lines().position(|l| l == "id = \"J-4\"").unwrap() + 1;
+        assert!(shown.contains(&format!("net.toml:{line}:")), "{shown}");
+        assert!(
+            shown.contains("text-direction characters") && shown.contains(code),
+            "{shown}"
+        );
+        assert!(
+            !shown.contains('\u{202e}') && !shown.contains('\0'),
+            "{shown}"
+        );
+        // The uses of `J-4` stay dangling (the declared id is another string): two more diagnostics.
+        let diagnostics = parse_network(&text, "net.toml").unwrap_err();
+        assert_eq!(diagnostics.diagnostics().len(), 3, "{shown}");
+    }
+    // Letters of any script, combining accents and emoji are ordinary ids.
+    for id in ["J\u{301}-4", "\u{5d0}\u{5d1}-4", "\u{1f6b0}-4"] {
+        let text = NETWORK.replace("\"J-4\"", &format!("\"{id}\""));
+        assert!(parse_network(&text, "net.toml").is_ok(), "{id}");
+    }
+}
