@@ -8,3 +8,4 @@ pub mod fieldtest;
 pub mod hydraulics;
 pub mod network;
 pub mod storage;
+pub mod tui;
