@@ -124,6 +124,60 @@ pub enum Command {
     Open { network: PathBuf, sheet: PathBuf },
     /// Start a new, empty field sheet from the template and open the workbench on it.
     New { network: PathBuf, sheet: PathBuf },
+    /// Regenerate the bundled demo district, its true C-factors and its field sheet (for maintainers).
+    #[command(hide = true)]
+    MakeDemo {
+        /// The repository folder holding demo-network/ and field-sheets/.
+        #[arg(long, default_value = ".")]
+        root: PathBuf,
+    },
+}
+
+fn make_demo(root: &std::path::Path) -> anyhow::Result<ExitCode> {
+    use roughcal::demo;
+    let files = [
+        (
+            root.join("demo-network/district.toml"),
+            demo::district_network_toml(),
+        ),
+        (root.join("demo-network/true-c.toml"), demo::true_c_toml()),
+        (root.join("field-sheets/demo.csv"), demo::demo_sheet_csv()?),
+    ];
+    for (path, text) in files {
+        roughcal::storage::write_atomic(&path, text.as_bytes())?;
+        println!("wrote {}", path.display());
+    }
+    Ok(ExitCode::SUCCESS)
+}
+
+/// Loads a network file; an invalid file has every diagnostic printed to stderr and yields `None` (the
+/// caller exits 1), an unreadable one is an error.
+pub fn load_network_or_report(
+    path: &std::path::Path,
+    load: impl Fn(
+        &std::path::Path,
+    ) -> Result<
+        roughcal::network::file::LoadedNetwork,
+        roughcal::network::file::NetworkFileError,
+    >,
+) -> anyhow::Result<Option<roughcal::network::file::LoadedNetwork>> {
+    use roughcal::network::file::NetworkFileError;
+    match load(path) {
+        Ok(loaded) => Ok(Some(loaded)),
+        Err(NetworkFileError::Invalid { diagnostics }) => {
+            for diagnostic in &diagnostics {
+                eprintln!("{diagnostic}");
+            }
+            eprintln!(
+                "{}: {} problem{} found; run `roughcal check` for a summary",
+                path.display(),
+                diagnostics.len(),
+                if diagnostics.len() == 1 { "" } else { "s" }
+            );
+            Ok(None)
+        }
+        Err(error) => Err(error.into()),
+    }
 }
 
 /// Runs the parsed command line; errors are printed by `main`.
@@ -184,5 +238,6 @@ pub fn run(cli: Cli) -> anyhow::Result<ExitCode> {
         }) => apply::run(&network, &coefficients, &out, force),
         Some(Command::Open { network, sheet }) => ui::run_open(&network, &sheet),
         Some(Command::New { network, sheet }) => ui::run_new(&network, &sheet),
+        Some(Command::MakeDemo { root }) => make_demo(&root),
     }
 }

@@ -4,6 +4,7 @@
 //! file loading, the CLI and the terminal UI sit at the edges.
 
 pub mod calibrate;
+pub mod demo;
 pub mod fieldtest;
 pub mod hydraulics;
 pub mod network;

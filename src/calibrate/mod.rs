@@ -379,10 +379,16 @@ fn group_candidates(net: &Network) -> Vec<GroupCandidate> {
             } else {
                 (DEFAULT_GROUP_MIN_C, DEFAULT_GROUP_MAX_C)
             };
+            let first_c = net.pipes[pipes[0]].c_factor;
+            let all_equal = pipes.iter().all(|&k| net.pipes[k].c_factor == first_c);
             Some(GroupCandidate {
                 group: g,
+                start_c: if all_equal {
+                    first_c
+                } else {
+                    weighted / length
+                },
                 pipes,
-                start_c: weighted / length,
                 min_c,
                 max_c,
                 locked: group.locked,

@@ -1,11 +1,160 @@
+//! `roughcal tests NETWORK SHEET [--target T] [--json]`: every field test next to the model.
+
+use std::fmt::Write as _;
 use std::path::Path;
 use std::process::ExitCode;
 
+use anyhow::bail;
+use roughcal::fieldtest::{
+    AvailableFlow, ModelComparison, Severity, compare_with_model, default_target, load_sheet,
+    screen_sheet,
+};
+use roughcal::network::file::load_network_file;
+use serde_json::json;
+
+use super::fireflow::{CAUTION, finding_json};
+use super::load_network_or_report;
+
 pub fn run(
-    _network: &Path,
-    _sheet: &Path,
-    _target: Option<f64>,
-    _json: bool,
+    network_path: &Path,
+    sheet_path: &Path,
+    target: Option<f64>,
+    json: bool,
 ) -> anyhow::Result<ExitCode> {
-    anyhow::bail!("`tests` is being built")
+    let Some(loaded) = load_network_or_report(network_path, load_network_file)? else {
+        return Ok(ExitCode::from(1));
+    };
+    let sheet = match load_sheet(sheet_path) {
+        Ok(sheet) => sheet,
+        Err(error) => {
+            eprintln!("{error}");
+            return Ok(ExitCode::from(1));
+        }
+    };
+    let units = sheet.units();
+    let target = target.unwrap_or_else(|| default_target(units));
+    if !target.is_finite() || target < 0.0 {
+        bail!("--target must be a pressure of zero or more, not {target}");
+    }
+    let net = &loaded.network;
+    let reading = screen_sheet(&sheet, Some(net));
+    let comparisons = compare_with_model(net, &reading, target)?;
+    if json {
+        let tests: Vec<_> = comparisons
+            .iter()
+            .map(|c| {
+                json!({
+                    "test": c.test_id,
+                    "residual_node": c.residual_node,
+                    "measured_static": c.measured_static,
+                    "measured_residual": c.measured_residual,
+                    "modelled_static": c.modelled_static,
+                    "modelled_residual": c.modelled_residual,
+                    "static_error": c.static_error(),
+                    "residual_error": c.residual_error(),
+                    "measured_drop": c.measured_drop(),
+                    "modelled_drop": c.modelled_drop(),
+                    "total_flow": c.total_flow,
+                    "field_available_flow": c.field_available.value(),
+                    "model_available_flow": c.model_available,
+                    "usable": !c.has_error(),
+                    "negative_pressure_in_model": c.negative_pressure_somewhere,
+                    "findings": c.findings.iter().map(finding_json).collect::<Vec<_>>(),
+                })
+            })
+            .collect();
+        let out = json!({
+            "target": target,
+            "units": units.key(),
+            "pressure_unit": units.pressure_label(),
+            "flow_unit": units.flow_label(),
+            "caution": CAUTION,
+            "tests": tests,
+        });
+        println!("{}", serde_json::to_string_pretty(&out)?);
+    } else {
+        print!(
+            "{}",
+            table(
+                &comparisons,
+                target,
+                units.pressure_label(),
+                units.flow_label()
+            )
+        );
+    }
+    Ok(ExitCode::SUCCESS)
+}
+
+fn number(value: Option<f64>, decimals: usize) -> String {
+    value.map_or_else(|| "-".into(), |v| format!("{v:.decimals$}"))
+}
+
+fn table(rows: &[ModelComparison], target: f64, pressure: &str, flow: &str) -> String {
+    let mut out = String::new();
+    let _ = writeln!(
+        out,
+        "Field tests against the model (pressures {pressure}, flows {flow}; available flow at {target} {pressure})\n"
+    );
+    let _ = writeln!(
+        out,
+        "{:<10} {:<9} {:>7} {:>7} {:>7} {:>7} {:>6} {:>6} {:>6} {:>6} {:>7} {:>7}  findings",
+        "test",
+        "gauge",
+        "S meas",
+        "S mod",
+        "R meas",
+        "R mod",
+        "dS",
+        "dR",
+        "drop",
+        "drop m",
+        "Q fld",
+        "Q mod"
+    );
+    for c in rows {
+        let mut flags: Vec<String> = c
+            .findings
+            .iter()
+            .map(|f| {
+                let word = match f.severity {
+                    Severity::Error => "ERROR",
+                    Severity::Warning => "warn",
+                };
+                format!("{word} {}: {}", f.column, f.reason)
+            })
+            .collect();
+        if c.negative_pressure_somewhere {
+            flags.push("warn: the model shows negative pressure somewhere while flowing".into());
+        }
+        let field_available = match c.field_available {
+            AvailableFlow::Undefined => None,
+            other => other.value(),
+        };
+        let _ = writeln!(
+            out,
+            "{:<10} {:<9} {:>7.1} {:>7} {:>7.1} {:>7} {:>6} {:>6} {:>6.1} {:>6} {:>7} {:>7}  {}",
+            c.test_id,
+            c.residual_node,
+            c.measured_static,
+            number(c.modelled_static, 1),
+            c.measured_residual,
+            number(c.modelled_residual, 1),
+            number(c.static_error(), 1),
+            number(c.residual_error(), 1),
+            c.measured_drop(),
+            number(c.modelled_drop(), 1),
+            number(field_available, 0),
+            number(c.model_available, 0),
+            flags.first().cloned().unwrap_or_default()
+        );
+        for flag in flags.iter().skip(1) {
+            let _ = writeln!(out, "{:>110}{flag}", "");
+        }
+    }
+    let _ = writeln!(
+        out,
+        "\nS static, R residual, d = measured - modelled, Q fld = NFPA 291 extrapolation of the field\nreadings, Q mod = the model's flow at the target.\n{CAUTION}"
+    );
+    out
 }

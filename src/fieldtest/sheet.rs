@@ -4,10 +4,12 @@
 //!
 //! Nothing here interprets a value; see [`super::reading`] for typed tests and findings.
 
+use std::collections::HashMap;
 use std::fmt;
 use std::path::Path;
 
 use crate::network::UnitSystem;
+use crate::storage::{WriteError, write_atomic};
 
 /// A known column of the field sheet, whatever its unit suffix.
 #[derive(Debug, Clone, Copy, PartialEq, Eq, Hash, PartialOrd, Ord)]
@@ -109,7 +111,7 @@ pub fn template_header(units: UnitSystem) -> Vec<&'static str> {
 pub enum SheetErrorKind {
     #[error("cannot read the file: {0}")]
     Io(String),
-    #[error("cannot write the file: {0}")]
+    #[error("{0}")]
     Write(String),
     #[error("not a text file: {0}")]
     NotText(String),
@@ -166,6 +168,8 @@ pub enum EditError {
     NoSuchRow { row: usize, rows: usize },
     #[error("column {0} does not exist")]
     NoSuchColumn(String),
+    #[error("the row would be longer than the sheet holds (4 GiB)")]
+    RowTooLong,
 }
 
 /// One data row: the cells concatenated in one string with the end offset of each, which keeps a
@@ -214,8 +218,7 @@ impl Row {
         }
         let old = cells[index].to_string();
         cells[index] = value;
-        *self = Row::from_cells(cells)
-            .ok_or_else(|| EditError::NoSuchColumn("(row too long)".to_string()))?;
+        *self = Row::from_cells(cells).ok_or(EditError::RowTooLong)?;
         Ok(old)
     }
 
@@ -355,12 +358,10 @@ impl FieldSheet {
     ) -> Result<(UnitSystem, [Option<usize>; 13]), (String, SheetErrorKind)> {
         let mut columns: [Option<usize>; 13] = [None; 13];
         let mut units: Option<(UnitSystem, usize)> = None;
+        let mut seen: HashMap<String, usize> = HashMap::with_capacity(headers.len());
         for (i, name) in headers.iter().enumerate() {
             // Any repeated name is ambiguous to a crew, known column or not.
-            if let Some(first) = headers[..i]
-                .iter()
-                .position(|h| h.trim().eq_ignore_ascii_case(name.trim()))
-            {
+            if let Some(first) = seen.insert(name.trim().to_ascii_lowercase(), i) {
                 return Err((
                     name.clone(),
                     SheetErrorKind::DuplicateColumn(first + 1, i + 1),
@@ -419,7 +420,9 @@ impl FieldSheet {
                 ));
             }
         }
-        if !has(SheetColumn::Flow) && !(has(SheetColumn::Pitot) && has(SheetColumn::Outlet)) {
+        let flow_given =
+            has(SheetColumn::Flow) || (has(SheetColumn::Pitot) && has(SheetColumn::Outlet));
+        if !flow_given {
             let flow = SheetColumn::Flow.header_name(units);
             return Err((
                 flow.to_string(),
@@ -623,8 +626,7 @@ impl FieldSheet {
         if at > self.rows.len() {
             return Err(self.no_such_row(at));
         }
-        let row = Row::from_cells(cells.iter().map(String::as_str))
-            .ok_or_else(|| EditError::NoSuchColumn("(row too long)".to_string()))?;
+        let row = Row::from_cells(cells.iter().map(String::as_str)).ok_or(EditError::RowTooLong)?;
         self.rows.insert(at, row);
         self.lines.insert(at, 0);
         self.renumber();
@@ -692,23 +694,28 @@ pub fn load_sheet(path: &Path) -> Result<FieldSheet, SheetError> {
     FieldSheet::parse(text, &file)
 }
 
-/// Writes a field sheet file. The text goes to a temporary file beside it that then replaces the
-/// sheet, so a save interrupted half-way (an editor saves after every edit) never leaves half a sheet.
+/// Writes a field sheet file through [`crate::storage::write_atomic`]: a save interrupted half-way (an
+/// editor saves after every edit) leaves the previous file, never half a sheet.
 pub fn save_sheet(sheet: &FieldSheet, path: &Path) -> Result<(), SheetError> {
-    let error = |e: std::io::Error| SheetError {
-        file: path.display().to_string(),
-        line: None,
-        column: None,
-        kind: SheetErrorKind::Write(e.to_string()),
-    };
-    let name = path
-        .file_name()
-        .map_or_else(|| "sheet".into(), |n| n.to_string_lossy().into_owned());
-    let temporary = path.with_file_name(format!(".{name}.saving"));
-    std::fs::write(&temporary, sheet.to_csv_string()).map_err(error)?;
-    std::fs::rename(&temporary, path).map_err(|e| {
-        let _ = std::fs::remove_file(&temporary);
-        error(e)
+    write_atomic(path, sheet.to_csv_string().as_bytes()).map_err(|e| {
+        let reason = match &e {
+            WriteError::Temporary { source, .. } => {
+                format!("cannot write a temporary file beside it: {source}")
+            }
+            WriteError::Write { source, .. } => {
+                format!("writing failed, the previous file is kept: {source}")
+            }
+            WriteError::Replace { source, .. } => {
+                format!("cannot replace the file, the previous file is kept: {source}")
+            }
+            WriteError::Exists { .. } => "the file already exists".to_string(),
+        };
+        SheetError {
+            file: path.display().to_string(),
+            line: None,
+            column: None,
+            kind: SheetErrorKind::Write(reason),
+        }
     })
 }
 
@@ -750,6 +757,19 @@ mod tests {
             sheet.set_cell(9, SheetColumn::Test, "x"),
             Err(EditError::NoSuchRow { row: 9, rows: 2 })
         ));
+    }
+
+    #[test]
+    fn odd_rows_round_trip() {
+        // A lone blank quoted cell, an unterminated quote, a blank line (dropped: it is no row).
+        let header = template_header(UnitSystem::Us).join(",");
+        for rows in ["\"\"\n", "T1,\"open\n", "\n\nT1\n", "\"a\"\"b\",,\n"] {
+            let text = format!("{header}\n{rows}");
+            let sheet = FieldSheet::parse(&text, "odd.csv").unwrap();
+            let again = FieldSheet::parse(&sheet.to_csv_string(), "odd.csv").unwrap();
+            assert_eq!(again.to_csv_string(), sheet.to_csv_string(), "{rows:?}");
+            assert_eq!(again.row_count(), sheet.row_count(), "{rows:?}");
+        }
     }
 
     #[test]

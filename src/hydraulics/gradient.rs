@@ -37,6 +37,10 @@ use faer::{MatMut, Side};
 use super::headloss::{HW_FLOW_EXPONENT, HazenWilliams};
 use crate::network::{Condition, Network, NodeRef};
 
+/// Largest junction imbalance a solution may have, as a share of the total demand (or of 1 L/s when the
+/// network carries almost nothing).
+pub const MASS_BALANCE_TOLERANCE: f64 = 1e-6;
+
 /// Tunable limits of the gradient solver; see the module documentation for what each one means.
 #[derive(Debug, Clone, Copy, PartialEq)]
 pub struct SolverSettings {
@@ -214,6 +218,13 @@ pub enum SolveError {
         "the solution went non-finite at iteration {iteration}: check for zero-length or zero-diameter pipes"
     )]
     NonFinite { iteration: usize },
+    #[error(
+        "the solution fails the mass-balance check: a junction is out of balance by {imbalance_m3s:.3e} m^3/s (allowed {allowed_m3s:.3e})"
+    )]
+    MassBalance {
+        imbalance_m3s: f64,
+        allowed_m3s: f64,
+    },
 }
 
 /// A converged steady state. Heads of isolated junctions are NaN and listed in `isolated`; use
@@ -705,7 +716,7 @@ impl GradientSolver {
                 && relative_change < settings.relative_flow_tolerance
                 && head_residual < settings.head_tolerance_m
             {
-                return Ok(self.finish(
+                return self.finish(
                     net,
                     state,
                     &resistance,
@@ -719,7 +730,7 @@ impl GradientSolver {
                         iterations: iteration,
                         llt: last_llt,
                     },
-                ));
+                );
             }
         }
         Err(SolveError::NotConverged {
@@ -863,7 +874,7 @@ impl GradientSolver {
         state: &OperatingState,
         resistance: &[f64],
         outcome: SolveOutcome,
-    ) -> Solution {
+    ) -> Result<Solution, SolveError> {
         let SolveOutcome {
             mut head,
             flow,
@@ -893,6 +904,17 @@ impl GradientSolver {
             .filter(|(_, cut)| !**cut)
             .map(|(v, _)| v.abs())
             .fold(0.0, f64::max);
+
+        // Every solution handed out must balance: the Newton update satisfies continuity exactly up to the
+        // linear solve, so anything beyond round-off means the factorization went wrong.
+        let total_demand: f64 = demand.iter().map(|d| d.abs()).sum();
+        let allowed_m3s = MASS_BALANCE_TOLERANCE * total_demand.max(1e-3);
+        if max_imbalance_m3s > allowed_m3s || !max_imbalance_m3s.is_finite() {
+            return Err(SolveError::MassBalance {
+                imbalance_m3s: max_imbalance_m3s,
+                allowed_m3s,
+            });
+        }
 
         let isolated_list: Vec<usize> = (0..n).filter(|&j| isolated[j]).collect();
         for &j in &isolated_list {
@@ -950,7 +972,7 @@ impl GradientSolver {
                 junctions: negative,
             });
         }
-        solution
+        Ok(solution)
     }
 }
 

@@ -1,15 +1,18 @@
 //! Writing calibrated values back into a network file.
 //!
-//! The edits go through `toml_edit`, so the output is the original text byte for byte except the values
-//! that change: comments, key order, spacing and number formatting elsewhere are kept, and a changed
-//! value keeps the comment that followed it on its line. A value set to what it already was is left
-//! untouched (so `c = 110` stays `110`, not `110.0`). New values are written with the shortest decimal
-//! that reads back as the same `f64`; round them first if a shorter form is wanted.
+//! The file is parsed with `toml_edit` to find each value, and the output is the original text with only
+//! the bytes of the changed values replaced: comments, key order, spacing, line endings and number
+//! formatting everywhere else stay byte for byte. A value set to what it already was is left untouched
+//! (so `c = 110` stays `110`, not `110.0`). A key that is absent (a group's `min`, say) is added on a
+//! new line after the entry's last value. New numbers are written as the shortest decimal that reads
+//! back as the same `f64`; round them first if a shorter form is wanted.
 
 use std::collections::{BTreeMap, BTreeSet};
+use std::ops::Range;
 
-use toml_edit::{DocumentMut, Item, TableLike, Value};
+use toml_edit::{Document, InlineTable, Item, Table, TableLike, Value};
 
+use super::file::value_number;
 use super::model::{DEFAULT_GROUP_MAX_C, DEFAULT_GROUP_MIN_C};
 
 /// Why an edit of a network file could not be made. Nothing is written when any edit fails.
@@ -25,7 +28,8 @@ pub enum NetworkEditError {
     /// Ids given for editing that no `[[pipe]]` of the file has.
     #[error("no pipe with these ids in the network file: {}", .0.join(", "))]
     UnknownPipes(Vec<String>),
-    /// Group names that neither a `[[group]]` nor a pipe of the file uses.
+    /// Group names that neither a `[[group]]` nor a pipe of the file uses (for bounds: that have no
+    /// `[[group]]` entry).
     #[error("no group with these names in the network file: {}", .0.join(", "))]
     UnknownGroups(Vec<String>),
     /// A C-factor or bound that is not a positive finite number.
@@ -34,6 +38,9 @@ pub enum NetworkEditError {
     /// Bounds that would leave a group with min >= max.
     #[error("group {group}: min ({min}) must be below max ({max})")]
     BoundsCrossed { group: String, min: f64, max: f64 },
+    /// The key to change is written in a form that is not a plain value (e.g. a sub-table).
+    #[error("cannot change `{key}` of {entry}: it is not a plain value")]
+    NotEditable { entry: String, key: String },
 }
 
 /// New settings for one `[[group]]`; `None` leaves a setting as it is.
@@ -52,24 +59,25 @@ pub fn apply_c_factors(
     for (id, &c) in c_by_pipe_id {
         check_positive(&format!("C-factor of pipe {id}"), c)?;
     }
-    let mut document = parse(original_text)?;
-    let mut found = BTreeSet::new();
-    for pipe in entries_mut(&mut document, "pipe") {
-        let id = pipe.get("id").and_then(Item::as_str).map(str::to_string);
-        if let Some((id, &c)) = id.and_then(|id| c_by_pipe_id.get_key_value(id.as_str())) {
-            found.insert(id.clone());
-            set_number(pipe, "c", c);
-        }
-    }
-    let unknown: Vec<String> = c_by_pipe_id
-        .keys()
-        .filter(|id| !found.contains(*id))
-        .cloned()
+    let mut editor = Editor::new(original_text)?;
+    let targets: Vec<(usize, String, f64)> = editor
+        .entries("pipe")
+        .iter()
+        .enumerate()
+        .filter_map(|(index, pipe)| {
+            let (id, &c) = c_by_pipe_id.get_key_value(pipe.get_str("id")?)?;
+            Some((index, id.clone(), c))
+        })
         .collect();
+    let found: BTreeSet<&String> = targets.iter().map(|(_, id, _)| id).collect();
+    let unknown = keys_not_in(c_by_pipe_id, |id| found.contains(id));
     if !unknown.is_empty() {
         return Err(NetworkEditError::UnknownPipes(unknown));
     }
-    Ok(document.to_string())
+    for (index, _, c) in &targets {
+        set_number(&mut editor, "pipe", *index, "c", *c)?;
+    }
+    Ok(editor.finish())
 }
 
 /// Sets the `c` of every pipe whose `group` is a key of `c_by_group_name`. Every name must be a group
@@ -82,26 +90,30 @@ pub fn apply_group_c(
     for (name, &c) in c_by_group_name {
         check_positive(&format!("C-factor of group {name}"), c)?;
     }
-    let mut document = parse(original_text)?;
-    let mut known: BTreeSet<String> = declared_group_names(&mut document);
-    for pipe in entries_mut(&mut document, "pipe") {
-        let Some(group) = pipe.get("group").and_then(Item::as_str).map(str::to_string) else {
+    let mut editor = Editor::new(original_text)?;
+    let mut known: BTreeSet<String> = editor
+        .entries("group")
+        .iter()
+        .filter_map(|group| group.get_str("name").map(str::to_string))
+        .collect();
+    let mut targets: Vec<(usize, f64)> = Vec::new();
+    for (index, pipe) in editor.entries("pipe").iter().enumerate() {
+        let Some(group) = pipe.get_str("group") else {
             continue;
         };
-        if let Some(&c) = c_by_group_name.get(&group) {
-            set_number(pipe, "c", c);
+        if let Some(&c) = c_by_group_name.get(group) {
+            targets.push((index, c));
         }
-        known.insert(group);
+        known.insert(group.to_string());
     }
-    let unknown: Vec<String> = c_by_group_name
-        .keys()
-        .filter(|name| !known.contains(*name))
-        .cloned()
-        .collect();
+    let unknown = keys_not_in(c_by_group_name, |name| known.contains(name));
     if !unknown.is_empty() {
         return Err(NetworkEditError::UnknownGroups(unknown));
     }
-    Ok(document.to_string())
+    for (index, c) in targets {
+        set_number(&mut editor, "pipe", index, "c", c)?;
+    }
+    Ok(editor.finish())
 }
 
 /// Updates `min`, `max` and `locked` of `[[group]]` entries, adding a key to the entry when it was
@@ -111,17 +123,20 @@ pub fn update_groups(
     original_text: &str,
     updates: &BTreeMap<String, GroupUpdate>,
 ) -> Result<String, NetworkEditError> {
-    let mut document = parse(original_text)?;
+    let mut editor = Editor::new(original_text)?;
+    let mut targets: Vec<(usize, GroupUpdate)> = Vec::new();
     let mut found = BTreeSet::new();
-    for group in entries_mut(&mut document, "group") {
-        let name = group.get("name").and_then(Item::as_str).map(str::to_string);
-        let Some((name, update)) = name.and_then(|name| updates.get_key_value(name.as_str()))
+    for (index, group) in editor.entries("group").iter().enumerate() {
+        let Some((name, update)) = group
+            .get_str("name")
+            .and_then(|name| updates.get_key_value(name))
         else {
             continue;
         };
         found.insert(name.clone());
         let current = |key: &str, default: f64| {
             group
+                .table_like()
                 .get(key)
                 .and_then(Item::as_value)
                 .and_then(value_number)
@@ -142,27 +157,31 @@ pub fn update_groups(
                 max,
             });
         }
-        if let Some(min) = update.min {
-            set_number(group, "min", min);
-        }
-        if let Some(max) = update.max {
-            set_number(group, "max", max);
-        }
-        if let Some(locked) = update.locked {
-            set_value(group, "locked", Value::from(locked), |old| {
-                old.as_bool() == Some(locked)
-            });
-        }
+        targets.push((index, *update));
     }
-    let unknown: Vec<String> = updates
-        .keys()
-        .filter(|name| !found.contains(*name))
-        .cloned()
-        .collect();
+    let unknown = keys_not_in(updates, |name| found.contains(name));
     if !unknown.is_empty() {
         return Err(NetworkEditError::UnknownGroups(unknown));
     }
-    Ok(document.to_string())
+    for (index, update) in targets {
+        if let Some(min) = update.min {
+            set_number(&mut editor, "group", index, "min", min)?;
+        }
+        if let Some(max) = update.max {
+            set_number(&mut editor, "group", index, "max", max)?;
+        }
+        if let Some(locked) = update.locked {
+            editor.set("group", index, "locked", locked.to_string(), |old| {
+                old.as_bool() == Some(locked)
+            })?;
+        }
+    }
+    Ok(editor.finish())
+}
+
+/// The keys of `map` for which `found` is false, in order.
+fn keys_not_in<T>(map: &BTreeMap<String, T>, found: impl Fn(&String) -> bool) -> Vec<String> {
+    map.keys().filter(|key| !found(key)).cloned().collect()
 }
 
 fn check_positive(what: &str, value: f64) -> Result<(), NetworkEditError> {
@@ -176,77 +195,185 @@ fn check_positive(what: &str, value: f64) -> Result<(), NetworkEditError> {
     }
 }
 
-fn parse(text: &str) -> Result<DocumentMut, NetworkEditError> {
-    text.parse::<DocumentMut>().map_err(|error| {
-        let offset = error.span().map_or(0, |span| span.start).min(text.len());
-        let before = text.get(..offset).unwrap_or("");
-        let line = before.matches('\n').count() + 1;
-        let column = before.rsplit('\n').next().unwrap_or("").chars().count() + 1;
-        NetworkEditError::Syntax {
-            line,
-            column,
-            message: error.message().trim().replace('\n', "; "),
+/// A replacement of the original text: the bytes of `range` become `text`.
+struct Splice {
+    range: Range<usize>,
+    text: String,
+}
+
+/// An entry of an array of tables, written either as a `[[...]]` table or as an inline table.
+#[derive(Clone, Copy)]
+enum Entry<'d> {
+    Table(&'d Table),
+    Inline(&'d InlineTable),
+}
+
+impl<'d> Entry<'d> {
+    fn table_like(self) -> &'d dyn TableLike {
+        match self {
+            Self::Table(table) => table,
+            Self::Inline(table) => table,
         }
-    })
-}
+    }
 
-/// The `[[key]]` entries of the root, written either as an array of tables or as an inline array of
-/// inline tables.
-fn entries_mut<'d>(document: &'d mut DocumentMut, key: &str) -> Vec<&'d mut dyn TableLike> {
-    match document.as_table_mut().get_mut(key) {
-        Some(Item::ArrayOfTables(tables)) => tables
-            .iter_mut()
-            .map(|table| table as &mut dyn TableLike)
-            .collect(),
-        Some(Item::Value(Value::Array(array))) => array
-            .iter_mut()
-            .filter_map(Value::as_inline_table_mut)
-            .map(|table| table as &mut dyn TableLike)
-            .collect(),
-        _ => Vec::new(),
+    fn get_str(self, key: &str) -> Option<&'d str> {
+        self.table_like().get(key).and_then(Item::as_str)
     }
 }
 
-fn declared_group_names(document: &mut DocumentMut) -> BTreeSet<String> {
-    entries_mut(document, "group")
-        .into_iter()
-        .filter_map(|group| group.get("name").and_then(Item::as_str).map(str::to_string))
-        .collect()
+/// The original text with the edits collected so far.
+struct Editor<'t> {
+    text: &'t str,
+    document: Document<&'t str>,
+    splices: Vec<Splice>,
 }
 
-fn value_number(value: &Value) -> Option<f64> {
-    match value {
-        Value::Integer(i) => Some(*i.value() as f64),
-        Value::Float(f) => Some(*f.value()),
-        _ => None,
-    }
-}
-
-fn set_number(table: &mut dyn TableLike, key: &str, number: f64) {
-    set_value(table, key, Value::from(number), |old| {
-        value_number(old) == Some(number)
-    });
-}
-
-/// Sets `key` to `new` unless `unchanged(old)` says it already holds that value. A replaced value keeps
-/// the spacing and comment around the old one.
-fn set_value(
-    table: &mut dyn TableLike,
-    key: &str,
-    mut new: Value,
-    unchanged: impl Fn(&Value) -> bool,
-) {
-    match table.get_mut(key) {
-        Some(Item::Value(old)) => {
-            if unchanged(old) {
-                return;
+impl<'t> Editor<'t> {
+    fn new(text: &'t str) -> Result<Self, NetworkEditError> {
+        let document = Document::parse(text).map_err(|error| {
+            let offset = error.span().map_or(0, |span| span.start).min(text.len());
+            let before = text.get(..offset).unwrap_or("");
+            let line = before.matches('\n').count() + 1;
+            let column = before.rsplit('\n').next().unwrap_or("").chars().count() + 1;
+            NetworkEditError::Syntax {
+                line,
+                column,
+                message: error.message().trim().replace('\n', "; "),
             }
-            *new.decor_mut() = old.decor().clone();
-            *old = new;
-        }
-        Some(other) => *other = Item::Value(new),
-        None => {
-            table.insert(key, Item::Value(new));
+        })?;
+        Ok(Self {
+            text,
+            document,
+            splices: Vec::new(),
+        })
+    }
+
+    /// The `[[key]]` entries of the root, written either as an array of tables or as an inline array
+    /// of inline tables.
+    fn entries(&self, key: &str) -> Vec<Entry<'_>> {
+        match self.document.as_table().get(key) {
+            Some(Item::ArrayOfTables(tables)) => tables.iter().map(Entry::Table).collect(),
+            Some(Item::Value(Value::Array(array))) => array
+                .iter()
+                .filter_map(Value::as_inline_table)
+                .map(Entry::Inline)
+                .collect(),
+            _ => Vec::new(),
         }
     }
+
+    /// Plans setting `key` of the entry `index` of `[[section]]` to `new_text`, unless `unchanged`
+    /// says its value already is the new one. An absent key is added after the entry's last value.
+    fn set(
+        &mut self,
+        section: &str,
+        index: usize,
+        key: &str,
+        new_text: String,
+        unchanged: impl Fn(&Value) -> bool,
+    ) -> Result<(), NetworkEditError> {
+        let entries = self.entries(section);
+        let Some(&entry) = entries.get(index) else {
+            return Ok(());
+        };
+        let not_editable = || NetworkEditError::NotEditable {
+            entry: format!(
+                "[[{section}]] {}",
+                entry
+                    .get_str("id")
+                    .or_else(|| entry.get_str("name"))
+                    .unwrap_or("?")
+            ),
+            key: key.to_string(),
+        };
+        let table = entry.table_like();
+        let splice = match table.get(key) {
+            Some(Item::Value(old)) => {
+                if unchanged(old) {
+                    return Ok(());
+                }
+                let range = old.span().ok_or_else(not_editable)?;
+                Splice {
+                    range,
+                    text: new_text,
+                }
+            }
+            Some(_) => return Err(not_editable()),
+            None => {
+                let last_end = table
+                    .iter()
+                    .filter_map(|(_, item)| item.span())
+                    .map(|span| span.end)
+                    .max()
+                    .ok_or_else(not_editable)?;
+                match entry {
+                    Entry::Inline(_) => Splice {
+                        range: last_end..last_end,
+                        text: format!(", {key} = {new_text}"),
+                    },
+                    Entry::Table(_) => self.line_after(last_end, &format!("{key} = {new_text}")),
+                }
+            }
+        };
+        self.splices.push(splice);
+        Ok(())
+    }
+
+    /// Inserts `line` as a new line after the line holding `offset`, with the same line ending.
+    fn line_after(&self, offset: usize, line: &str) -> Splice {
+        let rest = self.text.get(offset..).unwrap_or("");
+        match rest.find('\n') {
+            Some(newline) => {
+                let at = offset + newline + 1;
+                let crlf = self
+                    .text
+                    .get(..offset + newline)
+                    .is_some_and(|s| s.ends_with('\r'));
+                let ending = if crlf { "\r\n" } else { "\n" };
+                Splice {
+                    range: at..at,
+                    text: format!("{line}{ending}"),
+                }
+            }
+            None => Splice {
+                range: self.text.len()..self.text.len(),
+                text: format!("\n{line}"),
+            },
+        }
+    }
+
+    /// The original text with every planned edit made.
+    fn finish(mut self) -> String {
+        let mut out = self.text.to_string();
+        // Apply from the end of the text backwards so earlier offsets stay valid; of two insertions at
+        // one place the one planned last goes in first, so they read in the order they were planned.
+        self.splices.reverse();
+        self.splices
+            .sort_by_key(|splice| std::cmp::Reverse(splice.range.start));
+        for splice in self.splices {
+            if out.is_char_boundary(splice.range.start) && out.is_char_boundary(splice.range.end) {
+                out.replace_range(splice.range, &splice.text);
+            }
+        }
+        out
+    }
+}
+
+/// A TOML float: Debug formatting of f64 is the shortest round-trip decimal and always has a `.` or an
+/// exponent (`110.0`, `97.25`, `1e-7`), which TOML reads back as the same float.
+fn float_text(value: f64) -> String {
+    format!("{value:?}")
+}
+
+/// Plans setting a number, unless it already holds that value.
+fn set_number(
+    editor: &mut Editor<'_>,
+    section: &str,
+    index: usize,
+    key: &str,
+    number: f64,
+) -> Result<(), NetworkEditError> {
+    editor.set(section, index, key, float_text(number), |old| {
+        value_number(old) == Some(number)
+    })
 }

@@ -62,7 +62,7 @@ impl fmt::Display for Diagnostic {
 #[derive(Debug, thiserror::Error)]
 pub enum NetworkFileError {
     /// The file could not be read at all.
-    #[error("cannot read network file {file}: {source}")]
+    #[error("cannot read network file {file}")]
     Unreadable {
         file: String,
         #[source]
@@ -302,6 +302,21 @@ impl<T: Copy> Namespace<T> {
             seen: HashMap::new(),
             order: Vec::new(),
         }
+    }
+
+    /// A namespace of ids gathered from several kinds of entries, registered in file order so that a
+    /// duplicate is reported where it appears second.
+    fn in_file_order(
+        reader: &mut Reader<'_>,
+        name: &'static str,
+        mut pending: Vec<((String, Span), T, &'static str)>,
+    ) -> Self {
+        pending.sort_by_key(|((_, span), _, _)| span.start);
+        let mut namespace = Self::new(name);
+        for (id, target, what) in &pending {
+            namespace.register(reader, what, id, *target, "id");
+        }
+        namespace
     }
 
     fn get(&self, id: &str) -> Option<&Seen<T>> {
@@ -682,7 +697,7 @@ impl<'t> Reader<'t> {
             ..SourceMap::default()
         };
 
-        let mut nodes: Namespace<NodeRef> = Namespace::new("node id");
+        let mut pending_nodes: Vec<((String, Span), NodeRef, &'static str)> = Vec::new();
         let mut junction_spans: Vec<Span> = Vec::new();
 
         for mut rec in self.records(root, Section::Junction) {
@@ -695,7 +710,7 @@ impl<'t> Reader<'t> {
             let index = network.junctions.len();
             let id_span = id.as_ref().map_or(rec.header.clone(), |(_, s)| s.clone());
             if let Some(id) = &id {
-                nodes.register(self, "junction", id, NodeRef::Junction(index), "id");
+                pending_nodes.push((id.clone(), NodeRef::Junction(index), "junction"));
             }
             junction_spans.push(id_span);
             network.junctions.push(Junction {
@@ -716,7 +731,7 @@ impl<'t> Reader<'t> {
             let position = self.position(&rec);
             let index = network.fixed_heads.len();
             if let Some(id) = &id {
-                nodes.register(self, "fixed head", id, NodeRef::FixedHead(index), "id");
+                pending_nodes.push((id.clone(), NodeRef::FixedHead(index), "fixed head"));
             }
             network.fixed_heads.push(FixedHead {
                 id: id.map(|(id, _)| id).unwrap_or_default(),
@@ -724,6 +739,8 @@ impl<'t> Reader<'t> {
                 position,
             });
         }
+
+        let nodes = Namespace::in_file_order(self, "node id", pending_nodes);
 
         let mut groups: Namespace<usize> = Namespace::new("group name");
         for mut rec in self.records(root, Section::Group) {
@@ -740,7 +757,7 @@ impl<'t> Reader<'t> {
             });
         }
 
-        let mut links: Namespace<LinkRef> = Namespace::new("link id");
+        let mut pending_links: Vec<((String, Span), LinkRef, &'static str)> = Vec::new();
         let mut all_links_resolved = true;
         for mut rec in self.records(root, Section::Pipe) {
             sources.pipes.push(self.location(rec.header.start));
@@ -755,7 +772,7 @@ impl<'t> Reader<'t> {
             let check_valve = self.boolean(&rec, "check_valve").value().unwrap_or(false);
             let index = network.pipes.len();
             if let Some(id) = &id {
-                links.register(self, "pipe", id, LinkRef::Pipe(index), "id");
+                pending_links.push((id.clone(), LinkRef::Pipe(index), "pipe"));
             }
             all_links_resolved &= ends.is_some();
             let (from, to) = ends.unwrap_or((NodeRef::Junction(0), NodeRef::Junction(0)));
@@ -781,7 +798,7 @@ impl<'t> Reader<'t> {
             let off = self.boolean(&rec, "off").value().unwrap_or(false);
             let index = network.pumps.len();
             if let Some(id) = &id {
-                links.register(self, "pump", id, LinkRef::Pump(index), "id");
+                pending_links.push((id.clone(), LinkRef::Pump(index), "pump"));
             }
             all_links_resolved &= ends.is_some();
             let (from, to) = ends.unwrap_or((NodeRef::Junction(0), NodeRef::Junction(0)));
@@ -798,6 +815,8 @@ impl<'t> Reader<'t> {
                 off,
             });
         }
+
+        let links = Namespace::in_file_order(self, "link id", pending_links);
 
         let mut conditions: Namespace<usize> = Namespace::new("condition name");
         let mut condition_spans: Vec<Span> = Vec::new();
@@ -827,7 +846,19 @@ impl<'t> Reader<'t> {
                 Some("fixed_head"),
             );
         } else if all_links_resolved {
-            self.check_connectivity(&network, &junction_spans, &condition_spans);
+            // A junction whose id is missing or a duplicate is already reported; no pipe can reach it.
+            let reported: Vec<bool> = (0..network.junctions.len())
+                .map(|j| {
+                    let id = network
+                        .junctions
+                        .get(j)
+                        .map_or("", |junction| junction.id.as_str());
+                    nodes
+                        .get(id)
+                        .is_none_or(|seen| seen.target != NodeRef::Junction(j))
+                })
+                .collect();
+            self.check_connectivity(&network, &junction_spans, &condition_spans, &reported);
         }
 
         LoadedNetwork { network, sources }
@@ -1049,8 +1080,8 @@ impl<'t> Reader<'t> {
         if slope_worst > tolerance {
             let message = format!(
                 "the least-squares curve h = a + bQ + cQ^2 through pump `curve` rises with flow near \
-                 {:.4} {}: head gain must fall as flow rises over the whole range; correct or add points",
-                units.flow_from_m3s(q_worst),
+                 {} {}: head gain must fall as flow rises over the whole range; correct or add points",
+                short_number(units.flow_from_m3s(q_worst)),
                 units.flow_label()
             );
             self.report_at(rec, &curve_span, message, "curve");
@@ -1208,10 +1239,14 @@ impl<'t> Reader<'t> {
         network: &Network,
         junction_spans: &[Span],
         condition_spans: &[Span],
+        already_reported: &[bool],
     ) {
         let base = reachable(network, &[], &[]);
         let isolated: Vec<usize> = (0..network.junctions.len())
-            .filter(|&j| !base.get(j).copied().unwrap_or(false))
+            .filter(|&j| {
+                !base.get(j).copied().unwrap_or(false)
+                    && !already_reported.get(j).copied().unwrap_or(false)
+            })
             .collect();
         if let Some(&first) = isolated.first() {
             let ids = list_ids(network, &isolated);
@@ -1253,6 +1288,17 @@ impl<'t> Reader<'t> {
 enum LinkKind {
     Pipe,
     Pump,
+}
+
+/// A number with at most four decimals and no trailing zeros, for messages.
+fn short_number(value: f64) -> String {
+    let text = format!("{value:.4}");
+    let text = text.trim_end_matches('0').trim_end_matches('.');
+    if text == "-0" {
+        "0".to_string()
+    } else {
+        text.to_string()
+    }
 }
 
 fn list_ids(network: &Network, junctions: &[usize]) -> String {
@@ -1331,7 +1377,7 @@ fn reachable(network: &Network, closed_pipes: &[usize], pumps_off: &[usize]) -> 
 }
 
 /// A TOML number (integer or float) as f64.
-fn value_number(value: &Value) -> Option<f64> {
+pub(super) fn value_number(value: &Value) -> Option<f64> {
     match value {
         Value::Integer(i) => Some(*i.value() as f64),
         Value::Float(f) => Some(*f.value()),

@@ -4,7 +4,7 @@ pub mod edit;
 pub mod file;
 pub mod model;
 mod pump_curve;
-mod suggest;
+pub mod suggest;
 pub mod summary;
 pub mod units;
 
