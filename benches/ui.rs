@@ -115,14 +115,18 @@ fn key_to_screen(c: &mut Criterion) {
             }
             let step = if down { Move::PageDown } else { Move::PageUp };
             update(&mut app, Action::MoveCursor(step));
-            terminal.draw(|frame| views::render(&app, frame)).expect("draw");
+            terminal
+                .draw(|frame| views::render(&app, frame))
+                .expect("draw");
         })
     });
     update(&mut app, Action::SwitchView(View::Map));
     c.bench_function("map test move + render", |b| {
         b.iter(|| {
             update(&mut app, Action::MoveCursor(Move::Right));
-            terminal.draw(|frame| views::render(&app, frame)).expect("draw");
+            terminal
+                .draw(|frame| views::render(&app, frame))
+                .expect("draw");
         })
     });
 }

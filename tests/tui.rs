@@ -13,16 +13,30 @@ use roughcal::storage;
 use roughcal::tui::app::{Action, View};
 use roughcal::tui::keymap::action_for_key;
 use roughcal::tui::views;
-use roughcal::tui::{App, Runner, Theme, demo_in, dispatch, open_files};
+use roughcal::tui::{App, Runner, Theme, demo_folder, demo_in, dispatch, open_files};
 
 const HEADER: &str = "test,date,time,residual_node,flow_node,static_psi,residual_psi,flow_gpm,pitot_psi,outlet_in,coefficient,condition,note\n";
 
-/// A workbench on a copy of the demo network with `sheet` as the field sheet, in `dir`.
+/// The small invented network (Larkspur Rise) the tests work on.
+const NETWORK: &str = include_str!("../demo-network/small.toml");
+
+/// Three invented tests on it.
+const SHEET: &str = "test,date,time,residual_node,flow_node,static_psi,residual_psi,flow_gpm,pitot_psi,outlet_in,coefficient,condition,note
+D1,2024-05-07,09:05,J-102,J-103,56,41,,24,2.5,0.9,,
+D2,2024-05-07,09:40,J-104,J-106,62,44,,30,2.5,0.9,,
+D3,2024-05-07,10:20,J-105,J-107,71,52,640,,,,,
+";
+
+/// A workbench on a copy of the small network with `sheet` as the field sheet, in `dir`.
 fn workbench(dir: &Path, sheet: &str) -> App {
-    let session = demo_in(dir).unwrap();
-    std::fs::write(&session.sheet_path, sheet).unwrap();
-    let session = open_files(&session.network_path, &session.sheet_path).unwrap();
-    App::new(session, Theme { no_color: false })
+    let network = dir.join("small.toml");
+    let sheet_path = dir.join("sheet.csv");
+    std::fs::write(&network, NETWORK).unwrap();
+    std::fs::write(&sheet_path, sheet).unwrap();
+    App::new(
+        open_files(&network, &sheet_path).unwrap(),
+        Theme { no_color: false },
+    )
 }
 
 fn press(app: &mut App, runner: &mut Runner, code: KeyCode, modifiers: KeyModifiers) {
@@ -80,7 +94,7 @@ fn typing_a_full_test_into_a_new_row_saves_exactly_what_was_typed() {
         ("T9", 1),
         ("2024-06-01", 1),
         ("08:30", 1),
-        ("J-10", 0),
+        ("J-10", 2),
         ("J-103", 1),
         ("60", 1),
         ("45", 1),
@@ -89,16 +103,19 @@ fn typing_a_full_test_into_a_new_row_saves_exactly_what_was_typed() {
         ("2.5", 1),
     ] {
         type_text(&mut app, &mut runner, text);
-        for _ in 0..=tab {
+        for _ in 0..tab {
             key(&mut app, &mut runner, KeyCode::Tab);
         }
     }
     // `J-10` + Tab completed to the first junction with that prefix, a second Tab committed it.
-    assert_eq!(app.session.sheet.cell(0, SheetColumn::ResidualNode), Some("J-101"));
+    assert_eq!(
+        app.session.sheet.cell(0, SheetColumn::ResidualNode),
+        Some("J-101")
+    );
     let expected = format!("{HEADER}T9,2024-06-01,08:30,J-101,J-103,60,45,,25,2.5,,,\n");
     assert_eq!(on_disk(&app), expected);
     let reading = &app.readings.rows[0];
-    assert!(reading.test.is_some(), "{:?}", reading.findings);
+    assert!(reading.usable, "{:?}", reading.findings);
     // NFPA 291: Q = 29.83 c d^2 sqrt(p) with c = 0.9 (the default outlet) -> 29.83*0.9*6.25*5 = 839 gpm.
     let flow = reading.total_flow.unwrap();
     assert!((flow - 29.83 * 0.9 * 6.25 * 5.0).abs() < 2.0, "{flow}");
@@ -148,12 +165,15 @@ fn a_bad_value_is_flagged_with_its_reason_while_typing() {
     // A residual above the static: flagged before Enter, from the edit preview.
     type_text(&mut app, &mut runner, "61");
     let preview = app.row_reading(0).unwrap();
-    assert!(preview.test.is_none());
+    assert!(!preview.usable);
     key(&mut app, &mut runner, KeyCode::Enter);
     key(&mut app, &mut runner, KeyCode::Up);
     let text = screen(&app, 80, 24);
     assert!(text.contains("x A1"), "{text}");
-    assert!(text.contains("residual 61 is above static 56"), "{text}");
+    assert!(
+        text.contains("residual 61 psi is not below static 56 psi"),
+        "{text}"
+    );
     // A node that is not in the network.
     key(&mut app, &mut runner, KeyCode::Home);
     for _ in 0..3 {
@@ -161,17 +181,22 @@ fn a_bad_value_is_flagged_with_its_reason_while_typing() {
     }
     type_text(&mut app, &mut runner, "Z-9");
     key(&mut app, &mut runner, KeyCode::Esc);
-    assert_eq!(app.session.sheet.cell(0, SheetColumn::ResidualNode), Some("J-102"));
+    assert_eq!(
+        app.session.sheet.cell(0, SheetColumn::ResidualNode),
+        Some("J-102")
+    );
     type_text(&mut app, &mut runner, "Z-9");
     key(&mut app, &mut runner, KeyCode::Enter);
     key(&mut app, &mut runner, KeyCode::Up);
-    assert!(screen(&app, 80, 24).contains("`Z-9` is not a junction of the network"));
+    let text = screen(&app, 80, 24);
+    assert!(text.contains("node Z-9 is not in the network"), "{text}");
 }
 
 #[test]
 fn a_row_added_and_deleted_with_confirmation() {
     let dir = tempfile::tempdir().unwrap();
-    let start = format!("{HEADER}A1,,,J-102,J-103,56,41,700,,,,,\nA2,,,J-104,J-106,62,44,800,,,,,\n");
+    let start =
+        format!("{HEADER}A1,,,J-102,J-103,56,41,700,,,,,\nA2,,,J-104,J-106,62,44,800,,,,,\n");
     let mut app = workbench(dir.path(), &start);
     let mut runner = Runner::new();
     key(&mut app, &mut runner, KeyCode::Insert);
@@ -180,7 +205,9 @@ fn a_row_added_and_deleted_with_confirmation() {
     key(&mut app, &mut runner, KeyCode::Enter);
     assert_eq!(
         on_disk(&app),
-        format!("{HEADER}A1,,,J-102,J-103,56,41,700,,,,,\nNEW,,,,,,,,,,,,\nA2,,,J-104,J-106,62,44,800,,,,,\n")
+        format!(
+            "{HEADER}A1,,,J-102,J-103,56,41,700,,,,,\nNEW,,,,,,,,,,,,\nA2,,,J-104,J-106,62,44,800,,,,,\n"
+        )
     );
     // Delete A2 (the cursor went down after Enter); `n` keeps it, `y` deletes it.
     ctrl(&mut app, &mut runner, 'd');
@@ -208,6 +235,7 @@ fn opening_real_files_keeps_the_original_on_the_first_edit() {
     let mut runner = Runner::new();
     type_text(&mut app, &mut runner, "B1");
     key(&mut app, &mut runner, KeyCode::Enter);
+    key(&mut app, &mut runner, KeyCode::Right);
     type_text(&mut app, &mut runner, "X");
     key(&mut app, &mut runner, KeyCode::Enter);
     let original = storage::original_copy_path(&app.session.sheet_path);
@@ -244,7 +272,7 @@ fn a_failing_save_keeps_the_previous_sheet_and_says_so() {
 #[test]
 fn every_view_renders_at_80_by_24() {
     let dir = tempfile::tempdir().unwrap();
-    let mut app = workbench(dir.path(), roughcal::tui::demo::SHEET);
+    let mut app = workbench(dir.path(), SHEET);
     let mut runner = Runner::new();
     let readings = screen(&app, 80, 24);
     assert!(readings.contains("1 Readings"));
@@ -253,7 +281,10 @@ fn every_view_renders_at_80_by_24() {
     assert!(readings.contains("^R fit"));
     key(&mut app, &mut runner, KeyCode::F(3));
     let groups = screen(&app, 80, 24);
-    assert!(groups.contains("ci-1950") && groups.contains("di-1985"), "{groups}");
+    assert!(
+        groups.contains("ci-1950") && groups.contains("di-1985"),
+        "{groups}"
+    );
     assert!(groups.contains("start C"));
     key(&mut app, &mut runner, KeyCode::F(4));
     assert!(screen(&app, 80, 24).contains("no fit yet"));
@@ -290,7 +321,7 @@ fn no_color_draws_without_any_colour() {
 #[test]
 fn groups_edits_are_written_into_the_network_file() {
     let dir = tempfile::tempdir().unwrap();
-    let mut app = workbench(dir.path(), roughcal::tui::demo::SHEET);
+    let mut app = workbench(dir.path(), SHEET);
     let mut runner = Runner::new();
     key(&mut app, &mut runner, KeyCode::F(3));
     // Cursor on ci-1950; to max (start C -> min -> max), type 125, Enter; then Space locks.
@@ -301,8 +332,10 @@ fn groups_edits_are_written_into_the_network_file() {
     key(&mut app, &mut runner, KeyCode::Up);
     key(&mut app, &mut runner, KeyCode::Char(' '));
     let text = std::fs::read_to_string(&app.session.network_path).unwrap();
-    assert!(text.contains("max = 125"), "{text}");
-    assert!(text.contains("name = \"ci-1950\"  # unlined cast iron laid around 1950\nmin = 40.0\nmax = 125"));
+    assert!(text.contains("max = 125"), "{:?}", app.message);
+    assert!(text.contains(
+        "name = \"ci-1950\"  # unlined cast iron laid around 1950\nmin = 40.0\nmax = 125"
+    ));
     assert!(app.session.network.groups[0].locked);
     assert_eq!(app.session.network.groups[0].max_c, 125.0);
     // Crossed bounds are refused with the reason, and nothing is written.
@@ -310,13 +343,16 @@ fn groups_edits_are_written_into_the_network_file() {
     type_text(&mut app, &mut runner, "130");
     key(&mut app, &mut runner, KeyCode::Enter);
     assert!(screen(&app, 80, 24).contains("must be below max"));
-    assert_eq!(std::fs::read_to_string(&app.session.network_path).unwrap(), text);
+    assert_eq!(
+        std::fs::read_to_string(&app.session.network_path).unwrap(),
+        text
+    );
 }
 
 #[test]
 fn the_fit_runs_on_a_worker_and_can_be_cancelled() {
     let dir = tempfile::tempdir().unwrap();
-    let mut app = workbench(dir.path(), roughcal::tui::demo::SHEET);
+    let mut app = workbench(dir.path(), SHEET);
     let mut runner = Runner::new();
     ctrl(&mut app, &mut runner, 'r');
     assert!(app.fit.running.is_some());
@@ -347,10 +383,30 @@ fn the_fit_runs_on_a_worker_and_can_be_cancelled() {
     ctrl(&mut app, &mut runner, 'e');
     let folder = app.export_folder.clone().expect("exported");
     assert!(folder.join("coefficients.csv").exists());
-    assert!(std::fs::read_to_string(folder.join("report.md")).unwrap().contains("licensed engineer"));
+    assert!(
+        std::fs::read_to_string(folder.join("report.md"))
+            .unwrap()
+            .contains("licensed engineer")
+    );
     ctrl(&mut app, &mut runner, 'e');
     assert!(app.confirm.is_some());
     key(&mut app, &mut runner, KeyCode::Char('y'));
     assert!(app.confirm.is_none());
     assert!(app.message.as_ref().unwrap().text.contains("exported to"));
+}
+
+#[test]
+fn the_demo_opens_on_a_scratch_copy() {
+    let dir = tempfile::tempdir().unwrap();
+    let app = App::new(
+        demo_in(&dir.path().join("demo")).unwrap(),
+        Theme { no_color: false },
+    );
+    assert_eq!(app.session.sheet.row_count(), 18);
+    assert!(app.session.sheet_path.starts_with(dir.path()));
+    // The mistyped node of AF-18 is flagged; the weak AF-17 is kept with a warning.
+    assert!(!app.readings.rows[17].usable);
+    assert!(app.readings.rows[16].usable);
+    assert!(app.readings.tests.len() >= 15);
+    assert!(demo_folder().ends_with(format!("roughcal-demo-{}", std::process::id())));
 }

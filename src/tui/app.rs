@@ -19,7 +19,7 @@ use crate::network::{DEFAULT_GROUP_MAX_C, DEFAULT_GROUP_MIN_C, Network};
 use super::export_adapter::ExportJob;
 use super::layout;
 use super::map_model::{MapGeometry, MapShading, Point, pipe_ends, pipe_shades};
-use super::reading_adapter::{self, RowReading};
+use super::sheet_reading::{self, RowReading};
 use super::theme::Theme;
 
 /// The four views.
@@ -162,13 +162,26 @@ pub struct ReadingsState {
     pub redo: Vec<SheetEdit>,
     /// One reading per sheet row.
     pub rows: Vec<RowReading>,
+    /// The tests calibration may use, as the sheet stands.
+    pub tests: Vec<CalibrationTest>,
+    /// The sheet's header with no rows (for reading one row while it is typed).
+    pub header: Option<FieldSheet>,
     /// Display widths of the sheet's columns.
     pub widths: Vec<u16>,
 }
 
 /// Columns of the groups table.
 pub const GROUP_COLUMNS: [&str; 10] = [
-    "group", "pipes", "length", "start C", "min", "max", "lock", "fitted", "95% range", "status",
+    "group",
+    "pipes",
+    "length",
+    "start C",
+    "min",
+    "max",
+    "lock",
+    "fitted",
+    "95% range",
+    "status",
 ];
 /// The editable columns of the groups table (start C, min, max, lock).
 pub const GROUP_START: usize = 3;
@@ -202,7 +215,8 @@ pub struct GroupsState {
 #[derive(Debug, Clone, Default)]
 pub struct RunningFit {
     pub iterations: Vec<IterationReport>,
-    pub tests: usize,
+    /// The tests the run was given.
+    pub tests: Vec<CalibrationTest>,
     pub cancelling: bool,
 }
 
@@ -374,7 +388,10 @@ impl App {
             width: 80,
             height: 24,
             readings: ReadingsState::default(),
-            groups: GroupsState::default(),
+            groups: GroupsState {
+                column: GROUP_START,
+                ..GroupsState::default()
+            },
             fit: FitState::default(),
             map: MapState::default(),
             confirm: None,
@@ -387,6 +404,7 @@ impl App {
         };
         app.network_changed();
         app.read_all_rows();
+        app.readings.header = Some(sheet_reading::header_only(&app.session.sheet));
         app.readings.widths = (0..app.session.sheet.headers().len())
             .map(|i| layout::column_width(app.session.sheet.column_at(i)))
             .collect();
@@ -403,28 +421,20 @@ impl App {
         index.sort();
         self.node_index = index;
         self.groups.rows = group_rows(net);
-        self.groups.row = self.groups.row.min(self.groups.rows.len().saturating_sub(1));
+        self.groups.row = self
+            .groups
+            .row
+            .min(self.groups.rows.len().saturating_sub(1));
         self.map.ends = pipe_ends(net);
         self.rebuild_map();
     }
 
+    /// Reads and screens the whole sheet again (after any change of the sheet or the network: rules
+    /// such as a repeated test id span rows).
     fn read_all_rows(&mut self) {
-        let sheet = &self.session.sheet;
-        let net = &self.session.network;
-        self.readings.rows = (0..sheet.row_count())
-            .map(|r| reading_adapter::read_row(sheet, net, r, None))
-            .collect();
-    }
-
-    fn reread_row(&mut self, row: usize) {
-        if let Some(slot) = self.readings.rows.get_mut(row) {
-            *slot = reading_adapter::read_row(&self.session.sheet, &self.session.network, row, None);
-        }
-    }
-
-    /// The usable tests of the sheet as it stands.
-    pub fn usable_tests(&self) -> Vec<CalibrationTest> {
-        reading_adapter::calibration_tests(&self.readings.rows)
+        let (rows, tests) = sheet_reading::read_sheet(&self.session.sheet, &self.session.network);
+        self.readings.rows = rows;
+        self.readings.tests = tests;
     }
 
     /// The reading of a row, with the edit preview in place for the row being typed.
@@ -446,7 +456,9 @@ impl App {
     /// Junction ids starting with the last `;`-separated part of `text` (ignoring case), at most `limit`.
     pub fn node_completions(&self, text: &str, limit: usize) -> Vec<&str> {
         let part = text.rsplit(';').next().unwrap_or("").trim().to_lowercase();
-        let start = self.node_index.partition_point(|(key, _)| key.as_str() < part.as_str());
+        let start = self
+            .node_index
+            .partition_point(|(key, _)| key.as_str() < part.as_str());
         self.node_index[start..]
             .iter()
             .take_while(|(key, _)| key.starts_with(&part))
@@ -480,9 +492,8 @@ impl App {
                 .collect(),
             None => self
                 .readings
-                .rows
+                .tests
                 .iter()
-                .filter_map(|r| r.test.as_ref())
                 .filter_map(|t| {
                     Some(TestMarker {
                         id: t.id.clone(),
@@ -503,7 +514,8 @@ impl App {
             .map(|o| o.result.pipe_c_after.as_slice());
         let shades = pipe_shades(net, self.map.shading, after);
         let canvas = layout::map_canvas(layout::body_of(self.width, self.height));
-        self.map.geometry = MapGeometry::build(&self.map.ends, &shades, canvas.width, canvas.height);
+        self.map.geometry =
+            MapGeometry::build(&self.map.ends, &shades, canvas.width, canvas.height);
     }
 
     fn info(&mut self, text: impl Into<String>) {
@@ -520,10 +532,6 @@ impl App {
         });
     }
 
-    fn body_rows(&self) -> usize {
-        layout::readings_visible_rows(layout::body_of(self.width, self.height).height)
-    }
-
     /// Keeps the readings cursor inside the sheet and in sight.
     fn scroll_readings(&mut self) {
         let rows = self.session.sheet.row_count();
@@ -531,7 +539,8 @@ impl App {
         let r = &mut self.readings;
         r.row = r.row.min(rows.saturating_sub(1));
         r.column = r.column.min(columns.saturating_sub(1));
-        let visible = layout::readings_visible_rows(layout::body_of(self.width, self.height).height);
+        let visible =
+            layout::readings_visible_rows(layout::body_of(self.width, self.height).height);
         if r.row < r.first_row {
             r.first_row = r.row;
         } else if r.row >= r.first_row + visible {
@@ -548,7 +557,9 @@ impl App {
         }
     }
 
+    /// After a change of the sheet: read it again and save it.
     fn sheet_save(&mut self) -> Effect {
+        self.read_all_rows();
         self.unsaved = true;
         self.fit.stale = self.fit.outcome.is_some();
         let keep_original = std::mem::replace(&mut self.session.keep_original, false);
@@ -624,7 +635,11 @@ pub fn update(app: &mut App, action: Action) -> Vec<Effect> {
             app.help = false;
         }
         Action::NextView | Action::PreviousView => {
-            let step = if matches!(action, Action::NextView) { 1 } else { 3 };
+            let step = if matches!(action, Action::NextView) {
+                1
+            } else {
+                3
+            };
             let next = View::ALL[(app.view.number() - 1 + step) % 4];
             return update(app, Action::SwitchView(next));
         }
@@ -667,7 +682,7 @@ pub fn update(app: &mut App, action: Action) -> Vec<Effect> {
                     SaveTarget::Network => "network",
                 };
                 app.error(format!(
-                    "NOT SAVED: {message}. The {what} on disk is as before; your edit is kept here and the next edit saves again"
+                    "NOT SAVED: {message}; the {what} file is as before, the next edit saves again"
                 ));
             }
         },
@@ -749,11 +764,13 @@ fn confirm(app: &mut App, yes: bool, effects: &mut Vec<Effect>) {
                 app.error("that row is gone already");
                 return;
             };
-            app.readings.rows.remove(row);
             let test = cells.first().cloned().unwrap_or_default();
             record(app, SheetEdit::DeleteRow { at: row, cells });
             app.scroll_readings();
-            app.info(format!("row {} ({test}) deleted; Ctrl+Z brings it back", row + 1));
+            app.info(format!(
+                "row {} ({test}) deleted; Ctrl+Z brings it back",
+                row + 1
+            ));
             effects.push(app.sheet_save());
         }
         Confirm::OverwriteExport(_) => export(app, true, effects),
@@ -769,21 +786,26 @@ fn record(app: &mut App, edit: SheetEdit) {
 fn apply_sheet_edit(app: &mut App, edit: &SheetEdit, inverse: bool) -> Option<(usize, usize)> {
     let sheet = &mut app.session.sheet;
     match (edit, inverse) {
-        (SheetEdit::SetCell { row, column, before, after }, _) => {
+        (
+            SheetEdit::SetCell {
+                row,
+                column,
+                before,
+                after,
+            },
+            _,
+        ) => {
             let value = if inverse { before } else { after };
             sheet.set_cell_at(*row, *column, value).ok()?;
-            app.reread_row(*row);
             Some((*row, *column))
         }
-        (SheetEdit::InsertRow { at, cells }, false) | (SheetEdit::DeleteRow { at, cells }, true) => {
+        (SheetEdit::InsertRow { at, cells }, false)
+        | (SheetEdit::DeleteRow { at, cells }, true) => {
             sheet.insert_row_cells(*at, cells.clone()).ok()?;
-            let reading = reading_adapter::read_row(sheet, &app.session.network, *at, None);
-            app.readings.rows.insert(*at, reading);
             Some((*at, app.readings.column))
         }
         (SheetEdit::InsertRow { at, .. }, true) | (SheetEdit::DeleteRow { at, .. }, false) => {
             sheet.delete_row(*at).ok()?;
-            app.readings.rows.remove(*at);
             Some((at.saturating_sub(1), app.readings.column))
         }
     }
@@ -796,7 +818,11 @@ fn undo_redo(app: &mut App, undo: bool, effects: &mut Vec<Effect>) {
         app.readings.redo.pop()
     };
     let Some(edit) = popped else {
-        app.info(if undo { "nothing to undo" } else { "nothing to redo" });
+        app.info(if undo {
+            "nothing to undo"
+        } else {
+            "nothing to redo"
+        });
         return;
     };
     match apply_sheet_edit(app, &edit, undo) {
@@ -822,14 +848,18 @@ fn undo_redo(app: &mut App, undo: bool, effects: &mut Vec<Effect>) {
 }
 
 fn update_preview(app: &mut App) {
-    app.readings.preview = app.readings.edit.as_ref().map(|edit| {
-        reading_adapter::read_row(
+    let r = &app.readings;
+    app.readings.preview = match (&r.edit, &r.header) {
+        (Some(edit), Some(header)) => Some(sheet_reading::preview_row(
+            header,
             &app.session.sheet,
             &app.session.network,
             edit.row,
-            Some((edit.column, edit.buffer.as_str())),
-        )
-    });
+            edit.column,
+            &edit.buffer,
+        )),
+        _ => None,
+    };
 }
 
 /// Edits common to both tables: typing into a [`CellEdit`].
@@ -917,12 +947,22 @@ fn readings_action(app: &mut App, action: Action, effects: &mut Vec<Effect>) {
                 return;
             };
             if app.is_node_column(edit.column) {
-                let part = edit.buffer.rsplit(';').next().unwrap_or("").trim().to_string();
+                let part = edit
+                    .buffer
+                    .rsplit(';')
+                    .next()
+                    .unwrap_or("")
+                    .trim()
+                    .to_string();
                 let exact = app.node_index.iter().any(|(_, id)| *id == part);
-                let first = app.node_completions(&edit.buffer, 1).first().map(|s| s.to_string());
+                let first = app
+                    .node_completions(&edit.buffer, 1)
+                    .first()
+                    .map(|s| s.to_string());
                 if let (false, false, Some(id)) = (part.is_empty(), exact, first) {
                     if let Some(edit) = &mut app.readings.edit {
-                        let keep = edit.buffer.len() - edit.buffer.rsplit(';').next().unwrap_or("").len();
+                        let keep =
+                            edit.buffer.len() - edit.buffer.rsplit(';').next().unwrap_or("").len();
                         edit.buffer.truncate(keep);
                         edit.buffer.push_str(&id);
                         edit.cursor = edit.buffer.chars().count();
@@ -938,9 +978,12 @@ fn readings_action(app: &mut App, action: Action, effects: &mut Vec<Effect>) {
                 return;
             };
             app.readings.preview = None;
-            match app.session.sheet.set_cell_at(edit.row, edit.column, &edit.buffer) {
+            match app
+                .session
+                .sheet
+                .set_cell_at(edit.row, edit.column, &edit.buffer)
+            {
                 Ok(before) if before != edit.buffer => {
-                    app.reread_row(edit.row);
                     record(
                         app,
                         SheetEdit::SetCell {
@@ -973,16 +1016,26 @@ fn readings_action(app: &mut App, action: Action, effects: &mut Vec<Effect>) {
         Action::AddRow => {
             let at = if rows == 0 { 0 } else { app.readings.row + 1 };
             let cells = vec![String::new(); app.session.sheet.headers().len()];
-            if app.session.sheet.insert_row_cells(at, cells.clone()).is_err() {
+            if app
+                .session
+                .sheet
+                .insert_row_cells(at, cells.clone())
+                .is_err()
+            {
                 return;
             }
-            let reading = reading_adapter::read_row(&app.session.sheet, &app.session.network, at, None);
-            app.readings.rows.insert(at, reading);
             record(app, SheetEdit::InsertRow { at, cells });
             app.readings.row = at;
-            app.readings.column = app.session.sheet.column_index(SheetColumn::Test).unwrap_or(0);
+            app.readings.column = app
+                .session
+                .sheet
+                .column_index(SheetColumn::Test)
+                .unwrap_or(0);
             app.scroll_readings();
-            app.info(format!("row {} added: type the test id, Tab to the next column", at + 1));
+            app.info(format!(
+                "row {} added: type the test id, Tab to the next column",
+                at + 1
+            ));
             effects.push(app.sheet_save());
         }
         Action::DeleteRow => {
@@ -990,7 +1043,12 @@ fn readings_action(app: &mut App, action: Action, effects: &mut Vec<Effect>) {
                 return;
             }
             let row = app.readings.row;
-            let test = app.session.sheet.cell(row, SheetColumn::Test).unwrap_or("").to_string();
+            let test = app
+                .session
+                .sheet
+                .cell(row, SheetColumn::Test)
+                .unwrap_or("")
+                .to_string();
             app.confirm = Some(Confirm::DeleteRow(row));
             app.info(format!("delete row {} ({test})? (y/n)", row + 1));
         }
@@ -1048,7 +1106,10 @@ fn groups_action(app: &mut App, action: Action, effects: &mut Vec<Effect>) {
                 return;
             };
             let Ok(value) = edit.buffer.trim().parse::<f64>() else {
-                app.error(format!("`{}` is not a number; nothing changed", edit.buffer));
+                app.error(format!(
+                    "`{}` is not a number; nothing changed",
+                    edit.buffer
+                ));
                 return;
             };
             let name = app.groups.rows[edit.row].name.clone();
@@ -1057,9 +1118,15 @@ fn groups_action(app: &mut App, action: Action, effects: &mut Vec<Effect>) {
                 GROUP_START => apply_group_c(text, &BTreeMap::from([(name.clone(), value)])),
                 column => {
                     let update = if column == GROUP_MIN {
-                        GroupUpdate { min: Some(value), ..GroupUpdate::default() }
+                        GroupUpdate {
+                            min: Some(value),
+                            ..GroupUpdate::default()
+                        }
                     } else {
-                        GroupUpdate { max: Some(value), ..GroupUpdate::default() }
+                        GroupUpdate {
+                            max: Some(value),
+                            ..GroupUpdate::default()
+                        }
                     };
                     update_groups(text, &BTreeMap::from([(name.clone(), update)]))
                 }
@@ -1085,7 +1152,10 @@ fn groups_action(app: &mut App, action: Action, effects: &mut Vec<Effect>) {
                 locked: Some(!row.locked),
                 ..GroupUpdate::default()
             };
-            match update_groups(&app.session.network_text, &BTreeMap::from([(name.clone(), update)])) {
+            match update_groups(
+                &app.session.network_text,
+                &BTreeMap::from([(name.clone(), update)]),
+            ) {
                 Ok(new_text) => set_network_text(app, new_text, effects),
                 Err(e) => app.error(format!("{name}: {e}")),
             }
@@ -1131,13 +1201,13 @@ fn run_calibration(app: &mut App, effects: &mut Vec<Effect>) {
         app.info("a fit is already running (Esc cancels it)");
         return;
     }
-    let tests = app.usable_tests();
+    let tests = app.readings.tests.clone();
     if tests.is_empty() {
         app.error("no usable test on the sheet: fix the flagged rows first");
         return;
     }
     app.fit.running = Some(RunningFit {
-        tests: tests.len(),
+        tests: tests.clone(),
         ..RunningFit::default()
     });
     app.fit.failure = None;
@@ -1156,7 +1226,6 @@ fn finish_calibration(app: &mut App, result: Result<CalibrationResult, Calibrati
     };
     match result {
         Ok(result) => {
-            let tests = app.usable_tests();
             let mut by_error: Vec<usize> = (0..result.tests.len()).collect();
             let error = |i: usize| {
                 let t = &result.tests[i];
@@ -1169,7 +1238,7 @@ fn finish_calibration(app: &mut App, result: Result<CalibrationResult, Calibrati
             let termination = result.termination.clone();
             app.fit.outcome = Some(FitOutcome {
                 pipe_c_before: app.session.network.c_factors(),
-                tests: tests.into_iter().take(running.tests).collect(),
+                tests: running.tests,
                 result,
                 by_error,
             });

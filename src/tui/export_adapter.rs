@@ -64,7 +64,8 @@ pub fn write_export(job: &ExportJob) -> Result<PathBuf, ExportFailure> {
     std::fs::create_dir_all(&folder)
         .map_err(|e| ExportFailure::Failed(format!("{}: {e}", folder.display())))?;
     let result = &job.result;
-    let mut csv = String::from("group,pipes,start_c,fitted_c,min_c,max_c,ci95_low,ci95_high,status\n");
+    let mut csv =
+        String::from("group,pipes,start_c,fitted_c,min_c,max_c,ci95_low,ci95_high,status\n");
     for g in &result.groups {
         let (low, high) = g.ci95.map_or((String::new(), String::new()), |(l, h)| {
             (format!("{l:.1}"), format!("{h:.1}"))
@@ -89,9 +90,16 @@ pub fn write_export(job: &ExportJob) -> Result<PathBuf, ExportFailure> {
     let calibrated = apply_group_c(&job.network_text, &fitted)
         .map_err(|e| ExportFailure::Failed(format!("calibrated.toml: {e}")))?;
     let units = job.network.units.pressure_label();
-    let mut report = format!("# Calibration of {}\n\n> {}\n\n", job.network.title, job.caution);
+    let mut report = format!(
+        "# Calibration of {}\n\n> {}\n\n",
+        job.network.title, job.caution
+    );
     if !result.converged {
-        let _ = writeln!(report, "**The fit did not converge:** {}\n", result.termination);
+        let _ = writeln!(
+            report,
+            "**The fit did not converge:** {}\n",
+            result.termination
+        );
     }
     if job.stale {
         report.push_str("**The sheet or the groups changed after this fit.**\n\n");

@@ -11,7 +11,10 @@ pub const KEY_HELP: [(&str, &[(&str, &str)]); 6] = [
         "Everywhere",
         &[
             ("?", "this help (Esc or ? closes it)"),
-            ("F2 F3 F4 F5", "Readings, Groups, Fit, Map (also Alt+1..4; 1..4 outside Readings)"),
+            (
+                "F2 F3 F4 F5",
+                "Readings, Groups, Fit, Map (or Alt+1..4; 1..4 in Fit, Map)",
+            ),
             ("Ctrl+R", "run the fit on every usable test"),
             ("Esc", "cancel a running fit, a question, or an edit"),
             ("Ctrl+E", "export the fit to a folder beside the sheet"),
@@ -21,8 +24,14 @@ pub const KEY_HELP: [(&str, &[(&str, &str)]); 6] = [
     (
         "Readings",
         &[
-            ("arrows  h j k l", "move; PgUp PgDn page; Home End first/last column"),
-            ("type  Enter", "edit the cell (typing replaces it, Enter keeps its text)"),
+            (
+                "arrows  h j k l",
+                "move; PgUp PgDn page; Home End first/last column",
+            ),
+            (
+                "type  Enter",
+                "edit the cell (typing replaces it, Enter keeps its text)",
+            ),
             ("Tab  Shift+Tab", "next / previous column"),
             ("Ctrl+N  Insert", "add a row below"),
             ("Ctrl+D  Delete", "delete the row (asks y/n)"),
@@ -36,14 +45,20 @@ pub const KEY_HELP: [(&str, &[(&str, &str)]); 6] = [
             ("Tab", "complete a node id; else keep and go right"),
             ("Shift+Tab  Up  Down", "keep and go left / up / down"),
             ("Esc", "throw the typing away"),
-            ("Left Right Home End", "move in the text; Backspace Delete erase"),
+            (
+                "Left Right Home End",
+                "move in the text; Backspace Delete erase",
+            ),
         ],
     ),
     (
         "Groups",
         &[
             ("arrows  h j k l", "move between start C, min, max and lock"),
-            ("Enter  digits", "edit the value (saved into the network file)"),
+            (
+                "Enter  digits",
+                "edit the value (saved into the network file)",
+            ),
             ("Space", "lock or unlock the group"),
         ],
     ),
@@ -66,7 +81,12 @@ pub fn key_hints(app: &App) -> &'static [(&'static str, &'static str)] {
         return &[("Esc", "close help")];
     }
     if app.readings.edit.is_some() || app.groups.edit.is_some() {
-        return &[("Enter", "keep"), ("Tab", "next"), ("Esc", "cancel"), ("?", "help")];
+        return &[
+            ("Enter", "keep"),
+            ("Tab", "next"),
+            ("Esc", "cancel"),
+            ("?", "help"),
+        ];
     }
     if app.fit.running.is_some() {
         return &[("Esc", "cancel fit"), ("F2-F5", "views"), ("?", "help")];
@@ -234,9 +254,6 @@ fn readings_key(key: KeyEvent, ctrl: bool, alt: bool) -> Option<Action> {
 fn groups_key(key: KeyEvent, ctrl: bool, alt: bool) -> Option<Action> {
     if ctrl || alt {
         return None;
-    }
-    if let Some(view) = number_view(key.code) {
-        return Some(Action::SwitchView(view));
     }
     if let Some(m) = vertical_or_horizontal(key.code) {
         return Some(Action::MoveCursor(m));

@@ -66,9 +66,7 @@ pub fn pipe_shades(net: &Network, shading: MapShading, c_after: Option<&[f64]>) 
         .iter()
         .enumerate()
         .map(|(k, pipe)| match shading {
-            MapShading::Group => pipe
-                .group
-                .map_or(SHADE_UNGROUPED, |g| (g % 250) as u8),
+            MapShading::Group => pipe.group.map_or(SHADE_UNGROUPED, |g| (g % 250) as u8),
             MapShading::FittedChange => {
                 let change = c_after
                     .and_then(|c| c.get(k))
@@ -155,10 +153,18 @@ impl MapGeometry {
             let (ca, cb) = (cell(a), cell(b));
             if ca == cb {
                 if seen_dots.insert((ca, shade)) {
-                    geometry.dots.push(MapSegment { from: a, to: a, shade });
+                    geometry.dots.push(MapSegment {
+                        from: a,
+                        to: a,
+                        shade,
+                    });
                 }
             } else if seen_segments.insert((ca.min(cb), ca.max(cb), shade)) {
-                geometry.segments.push(MapSegment { from: a, to: b, shade });
+                geometry.segments.push(MapSegment {
+                    from: a,
+                    to: b,
+                    shade,
+                });
             }
         }
         geometry

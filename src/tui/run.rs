@@ -44,7 +44,10 @@ impl Runner {
 
     /// A runner writing through `write`.
     pub fn with_writer(write: WriteFn) -> Self {
-        Self { write, worker: None }
+        Self {
+            write,
+            worker: None,
+        }
     }
 
     /// Carries out one effect; returns the actions that report its outcome.
@@ -62,14 +65,15 @@ impl Runner {
                 };
                 let result = kept
                     .and_then(|()| (self.write)(&path, text.as_bytes()))
-                    .map_err(|e| e.to_string());
+                    .map_err(|e| short_write_error(&path, &e));
                 vec![Action::SaveFinished {
                     target: SaveTarget::Sheet,
                     result,
                 }]
             }
             Effect::SaveNetwork { path, text } => {
-                let result = (self.write)(&path, text.as_bytes()).map_err(|e| e.to_string());
+                let result =
+                    (self.write)(&path, text.as_bytes()).map_err(|e| short_write_error(&path, &e));
                 vec![Action::SaveFinished {
                     target: SaveTarget::Network,
                     result,
@@ -114,6 +118,20 @@ impl Runner {
             std::thread::sleep(Duration::from_millis(5));
         }
         actions
+    }
+}
+
+/// A failed write in few words, cause first, for the status line.
+fn short_write_error(path: &Path, error: &WriteError) -> String {
+    let name = path.file_name().map_or_else(
+        || path.display().to_string(),
+        |n| n.to_string_lossy().into_owned(),
+    );
+    match error {
+        WriteError::Temporary { source, .. }
+        | WriteError::Write { source, .. }
+        | WriteError::Replace { source, .. } => format!("cannot write {name}: {source}"),
+        WriteError::Exists { .. } => error.to_string(),
     }
 }
 
@@ -162,7 +180,11 @@ fn event_loop(
     mut runner: Runner,
 ) -> io::Result<()> {
     let size = terminal.size()?;
-    dispatch(&mut app, &mut runner, Action::Resize(size.width, size.height));
+    dispatch(
+        &mut app,
+        &mut runner,
+        Action::Resize(size.width, size.height),
+    );
     let mut redraw = true;
     loop {
         if redraw {

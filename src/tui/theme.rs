@@ -27,7 +27,7 @@ impl Theme {
     pub fn title(self) -> Style {
         self.pick(
             Style::default().fg(Color::Black).bg(Color::Cyan),
-            Style::default().add_modifier(Modifier::REVERSE),
+            Style::default().add_modifier(Modifier::REVERSED),
         )
     }
 
@@ -55,7 +55,7 @@ impl Theme {
     pub fn cursor(self) -> Style {
         self.pick(
             Style::default().fg(Color::Black).bg(Color::Yellow),
-            Style::default().add_modifier(Modifier::REVERSE),
+            Style::default().add_modifier(Modifier::REVERSED),
         )
     }
 

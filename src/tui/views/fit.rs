@@ -12,10 +12,8 @@ use crate::calibrate::FitStatistics;
 use crate::tui::app::App;
 
 pub fn render(app: &App, frame: &mut Frame, area: Rect) {
-    let [top, bottom] =
-        Layout::vertical([Constraint::Length(8), Constraint::Min(0)]).areas(area);
-    let [stats, run] =
-        Layout::horizontal([Constraint::Length(36), Constraint::Min(0)]).areas(top);
+    let [top, bottom] = Layout::vertical([Constraint::Length(8), Constraint::Min(0)]).areas(area);
+    let [stats, run] = Layout::horizontal([Constraint::Length(36), Constraint::Min(0)]).areas(top);
     statistics(app, frame, stats);
     run_state(app, frame, run);
     let [tests, chart] =
@@ -28,7 +26,12 @@ fn statistics(app: &App, frame: &mut Frame, area: Rect) {
     let theme = app.theme;
     let p = app.session.network.units.pressure_label();
     let mut lines = vec![Line::from(Span::styled(
-        format!("{}{}{}", fit_text("", 16), right("before", 10), right("after", 10)),
+        format!(
+            "{}{}{}",
+            fit_text("", 16),
+            right("before", 10),
+            right("after", 10)
+        ),
         theme.header(),
     ))];
     let Some(outcome) = &app.fit.outcome else {
@@ -41,12 +44,21 @@ fn statistics(app: &App, frame: &mut Frame, area: Rect) {
     };
     let (b, a) = (&outcome.result.before, &outcome.result.after);
     let row = |name: String, f: &dyn Fn(&FitStatistics) -> String| {
-        Line::from(format!("{}{}{}", fit_text(&name, 16), right(&f(b), 10), right(&f(a), 10)))
+        Line::from(format!(
+            "{}{}{}",
+            fit_text(&name, 16),
+            right(&f(b), 10),
+            right(&f(a), 10)
+        ))
     };
     lines.push(row("readings".into(), &|s| s.n.to_string()));
-    lines.push(row(format!("mean error {p}"), &|s| format!("{:+.2}", s.mean_error)));
+    lines.push(row(format!("mean error {p}"), &|s| {
+        format!("{:+.2}", s.mean_error)
+    }));
     lines.push(row(format!("RMSE {p}"), &|s| format!("{:.2}", s.rmse)));
-    lines.push(row(format!("max |error| {p}"), &|s| format!("{:.2}", s.max_abs_error)));
+    lines.push(row(format!("max |error| {p}"), &|s| {
+        format!("{:.2}", s.max_abs_error)
+    }));
     lines.push(row(format!("within {:.0} {p}", a.within_tight), &|s| {
         format!("{:.0}%", 100.0 * s.share_within_tight)
     }));
@@ -61,12 +73,21 @@ fn run_state(app: &App, frame: &mut Frame, area: Rect) {
     let width = usize::from(area.width);
     let mut lines = Vec::new();
     if let Some(running) = &app.fit.running {
-        let word = if running.cancelling { "cancelling" } else { "running" };
+        let word = if running.cancelling {
+            "cancelling"
+        } else {
+            "running"
+        };
         lines.push(Line::from(Span::styled(
-            format!("fit {word}: {} tests (Esc cancels)", running.tests),
+            format!("fit {word}: {} tests (Esc cancels)", running.tests.len()),
             theme.warning(),
         )));
-        for report in running.iterations.iter().rev().take(usize::from(area.height).saturating_sub(1)) {
+        for report in running
+            .iterations
+            .iter()
+            .rev()
+            .take(usize::from(area.height).saturating_sub(1))
+        {
             lines.push(Line::from(fit_text(
                 &format!(
                     "it {:>3}  objective {:>10.4}  step C {:>6.2}",
@@ -76,7 +97,10 @@ fn run_state(app: &App, frame: &mut Frame, area: Rect) {
             )));
         }
         if running.iterations.is_empty() {
-            lines.push(Line::from(Span::styled("solving the model for every test...", theme.dim())));
+            lines.push(Line::from(Span::styled(
+                "solving the model for every test...",
+                theme.dim(),
+            )));
         }
     } else if let Some(failure) = &app.fit.failure {
         lines.push(Line::from(Span::styled("FIT FAILED", theme.error())));
@@ -88,7 +112,10 @@ fn run_state(app: &App, frame: &mut Frame, area: Rect) {
             if r.converged {
                 lines.push(Line::from(Span::styled("converged", theme.good())));
             } else {
-                lines.push(Line::from(Span::styled("NOT CONVERGED: do not use as is", theme.error())));
+                lines.push(Line::from(Span::styled(
+                    "NOT CONVERGED: do not use as is",
+                    theme.error(),
+                )));
             }
             lines.push(Line::from(fit_text(&r.termination, width)));
             lines.push(Line::from(format!(
@@ -97,7 +124,9 @@ fn run_state(app: &App, frame: &mut Frame, area: Rect) {
                 r.fit.label()
             )));
             if let Some(chi) = r.reduced_chi_square {
-                lines.push(Line::from(format!("misfit / gauge accuracy {chi:.2} (1 is ideal)")));
+                lines.push(Line::from(format!(
+                    "misfit / gauge accuracy {chi:.2} (1 is ideal)"
+                )));
             }
             if app.fit.stale {
                 lines.push(Line::from(Span::styled(
@@ -126,12 +155,19 @@ fn test_table(app: &App, frame: &mut Frame, area: Rect) {
     ))];
     if let Some(outcome) = &app.fit.outcome {
         let visible = usize::from(area.height).saturating_sub(1);
-        let first = app.fit.first_row.min(outcome.by_error.len().saturating_sub(visible));
+        let first = app
+            .fit
+            .first_row
+            .min(outcome.by_error.len().saturating_sub(visible));
         for &i in outcome.by_error.iter().skip(first).take(visible) {
             let t = &outcome.result.tests[i];
             let static_error = t.measured_static - t.modelled_static_after;
             let residual_error = t.measured_residual - t.modelled_residual_after;
-            let worst = if static_error.abs() > residual_error.abs() { static_error } else { residual_error };
+            let worst = if static_error.abs() > residual_error.abs() {
+                static_error
+            } else {
+                residual_error
+            };
             let style = if worst.abs() <= outcome.result.after.within_tight {
                 theme.good()
             } else if worst.abs() <= outcome.result.after.within_loose {
@@ -161,11 +197,21 @@ fn scatter(app: &App, frame: &mut Frame, area: Rect) {
     let tests = &outcome.result.tests;
     let before: Vec<(f64, f64)> = tests
         .iter()
-        .flat_map(|t| [(t.measured_static, t.modelled_static_before), (t.measured_residual, t.modelled_residual_before)])
+        .flat_map(|t| {
+            [
+                (t.measured_static, t.modelled_static_before),
+                (t.measured_residual, t.modelled_residual_before),
+            ]
+        })
         .collect();
     let after: Vec<(f64, f64)> = tests
         .iter()
-        .flat_map(|t| [(t.measured_static, t.modelled_static_after), (t.measured_residual, t.modelled_residual_after)])
+        .flat_map(|t| {
+            [
+                (t.measured_static, t.modelled_static_after),
+                (t.measured_residual, t.modelled_residual_after),
+            ]
+        })
         .collect();
     let (mut low, mut high) = (f64::INFINITY, f64::NEG_INFINITY);
     for &(x, y) in before.iter().chain(&after) {
@@ -201,8 +247,20 @@ fn scatter(app: &App, frame: &mut Frame, area: Rect) {
     let p = app.session.network.units.pressure_label();
     let labels = |lo: f64, hi: f64| vec![format!("{lo:.0}"), format!("{hi:.0}")];
     let chart = Chart::new(datasets)
-        .block(Block::default().borders(Borders::LEFT).title(format!("modelled vs measured {p}")))
-        .x_axis(Axis::default().bounds([low, high]).labels(labels(low, high)))
-        .y_axis(Axis::default().bounds([low, high]).labels(labels(low, high)));
+        .block(
+            Block::default()
+                .borders(Borders::LEFT)
+                .title(format!("modelled vs measured {p}")),
+        )
+        .x_axis(
+            Axis::default()
+                .bounds([low, high])
+                .labels(labels(low, high)),
+        )
+        .y_axis(
+            Axis::default()
+                .bounds([low, high])
+                .labels(labels(low, high)),
+        );
     frame.render_widget(chart, area);
 }

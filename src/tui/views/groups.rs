@@ -26,7 +26,11 @@ pub fn render(app: &App, frame: &mut Frame, area: Rect) {
         } else {
             name.to_string()
         };
-        let text = if i == 0 { fit_text(&name, WIDTHS[i]) } else { right(&name, WIDTHS[i]) };
+        let text = if i == 0 {
+            fit_text(&name, WIDTHS[i])
+        } else {
+            right(&name, WIDTHS[i])
+        };
         header.push(Span::styled(format!("{text} "), theme.header()));
     }
     lines.push(Line::from(header));
@@ -46,7 +50,11 @@ pub fn render(app: &App, frame: &mut Frame, area: Rect) {
             row.start_c.map_or("-".into(), format_c),
             format_c(row.min_c),
             format_c(row.max_c),
-            if row.locked { "yes".into() } else { "no".into() },
+            if row.locked {
+                "yes".into()
+            } else {
+                "no".into()
+            },
             fit.map_or(String::new(), |g| format_c(g.fitted_c)),
             fit.and_then(|g| g.ci95)
                 .map_or(String::new(), |(l, h)| format!("{l:.0}-{h:.0}")),
@@ -87,7 +95,10 @@ pub fn render(app: &App, frame: &mut Frame, area: Rect) {
             GROUP_MIN | GROUP_MAX => "bounds: the fit keeps the group's C between min and max",
             _ => "lock: a locked group keeps its C (Space toggles)",
         };
-        lines.push(Line::from(Span::styled(format!("  {}: {column}", row.name), theme.dim())));
+        lines.push(Line::from(Span::styled(
+            format!("  {}: {column}", row.name),
+            theme.dim(),
+        )));
         if let Some(g) = outcome.and_then(|o| o.result.groups.iter().find(|g| g.name == row.name)) {
             let se = g.std_error.map_or("-".into(), |s| format!("{s:.1}"));
             lines.push(Line::from(format!(

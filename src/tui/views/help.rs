@@ -32,7 +32,10 @@ pub fn render(app: &App, frame: &mut Frame, area: Rect) {
         }
         lines
     };
-    frame.render_widget(Paragraph::new(section(0..3)).wrap(Wrap { trim: true }), left);
+    frame.render_widget(
+        Paragraph::new(section(0..3)).wrap(Wrap { trim: true }),
+        left,
+    );
     let mut lines = section(3..KEY_HELP.len());
     lines.push(Line::default());
     lines.push(Line::from(Span::styled("Caution", theme.header())));

@@ -52,7 +52,9 @@ pub fn render(app: &App, frame: &mut Frame, area: Rect) {
                 .max((t.measured_residual - t.modelled_residual_after).abs()),
         )
     };
-    let (tight, loose) = outcome.map_or((0.0, 0.0), |o| (o.result.after.within_tight, o.result.after.within_loose));
+    let (tight, loose) = outcome.map_or((0.0, 0.0), |o| {
+        (o.result.after.within_tight, o.result.after.within_loose)
+    });
     let canvas = Canvas::default()
         .x_bounds(bounds.x)
         .y_bounds(bounds.y)
@@ -81,8 +83,16 @@ pub fn render(app: &App, frame: &mut Frame, area: Rect) {
                     Some(_) => theme.error(),
                 };
                 let style = if i == selected { theme.cursor() } else { style };
-                let text = if i == selected { format!("[{}]", marker.id) } else { "@".to_string() };
-                ctx.print(marker.position.0, marker.position.1, Span::styled(text, style));
+                let text = if i == selected {
+                    format!("[{}]", marker.id)
+                } else {
+                    "@".to_string()
+                };
+                ctx.print(
+                    marker.position.0,
+                    marker.position.1,
+                    Span::styled(text, style),
+                );
             }
         });
     frame.render_widget(canvas, canvas_area);
@@ -98,27 +108,49 @@ pub fn render(app: &App, frame: &mut Frame, area: Rect) {
     let width = usize::from(panel.width.saturating_sub(2));
     let p = app.session.network.units.pressure_label();
     let mut lines = vec![
-        Line::from(Span::styled(format!("shading: {}", shading.label()), theme.header())),
         Line::from(Span::styled(
-            format!("{} of {} pipes placed", geometry.segments.len() + geometry.dots.len(), geometry.placed_pipes),
+            format!("shading: {}", shading.label()),
+            theme.header(),
+        )),
+        Line::from(Span::styled(
+            format!(
+                "{} of {} pipes placed",
+                geometry.segments.len() + geometry.dots.len(),
+                geometry.placed_pipes
+            ),
             theme.dim(),
         )),
         Line::default(),
     ];
     match markers.get(selected) {
-        None => lines.push(Line::from(Span::styled("no usable test to show", theme.dim()))),
+        None => lines.push(Line::from(Span::styled(
+            "no usable test to show",
+            theme.dim(),
+        ))),
         Some(marker) => {
             lines.push(Line::from(Span::styled(
-                fit_text(&format!("test {} ({}/{})", marker.id, selected + 1, markers.len()), width),
+                fit_text(
+                    &format!("test {} ({}/{})", marker.id, selected + 1, markers.len()),
+                    width,
+                ),
                 theme.header(),
             )));
             match marker.comparison.and_then(|c| outcome?.result.tests.get(c)) {
                 None => lines.push(Line::from(Span::styled("no fit yet: Ctrl+R", theme.dim()))),
                 Some(t) => {
                     lines.push(Line::from(format!("{:<9}{:>8}{:>8}", p, "static", "resid")));
-                    lines.push(Line::from(format!("{:<9}{:>8.1}{:>8.1}", "measured", t.measured_static, t.measured_residual)));
-                    lines.push(Line::from(format!("{:<9}{:>8.1}{:>8.1}", "before", t.modelled_static_before, t.modelled_residual_before)));
-                    lines.push(Line::from(format!("{:<9}{:>8.1}{:>8.1}", "after", t.modelled_static_after, t.modelled_residual_after)));
+                    lines.push(Line::from(format!(
+                        "{:<9}{:>8.1}{:>8.1}",
+                        "measured", t.measured_static, t.measured_residual
+                    )));
+                    lines.push(Line::from(format!(
+                        "{:<9}{:>8.1}{:>8.1}",
+                        "before", t.modelled_static_before, t.modelled_residual_before
+                    )));
+                    lines.push(Line::from(format!(
+                        "{:<9}{:>8.1}{:>8.1}",
+                        "after", t.modelled_static_after, t.modelled_residual_after
+                    )));
                     lines.push(Line::from(format!(
                         "{:<9}{:>+8.1}{:>+8.1}",
                         "error",
@@ -130,11 +162,23 @@ pub fn render(app: &App, frame: &mut Frame, area: Rect) {
         }
     }
     lines.push(Line::default());
-    lines.push(Line::from(Span::styled("markers: error after fit", theme.dim())));
+    lines.push(Line::from(Span::styled(
+        "markers: error after fit",
+        theme.dim(),
+    )));
     if outcome.is_some() {
-        lines.push(Line::from(Span::styled(format!(" within {tight:.0} {p}"), theme.good())));
-        lines.push(Line::from(Span::styled(format!(" within {loose:.0} {p}"), theme.warning())));
-        lines.push(Line::from(Span::styled(format!(" over {loose:.0} {p}"), theme.error())));
+        lines.push(Line::from(Span::styled(
+            format!(" within {tight:.0} {p}"),
+            theme.good(),
+        )));
+        lines.push(Line::from(Span::styled(
+            format!(" within {loose:.0} {p}"),
+            theme.warning(),
+        )));
+        lines.push(Line::from(Span::styled(
+            format!(" over {loose:.0} {p}"),
+            theme.error(),
+        )));
     }
     let paragraph = Paragraph::new(lines).block(Block::default().borders(Borders::LEFT));
     frame.render_widget(paragraph, panel);

@@ -7,10 +7,10 @@ use ratatui::text::{Line, Span};
 use ratatui::widgets::Paragraph;
 
 use super::{fit_text, right};
+use crate::fieldtest::Severity;
 use crate::fieldtest::SheetColumn;
 use crate::tui::app::App;
 use crate::tui::layout;
-use crate::tui::reading_adapter::Severity;
 
 /// Short header label of a column, with its unit.
 fn label(app: &App, index: usize) -> String {
@@ -54,10 +54,16 @@ pub fn render(app: &App, frame: &mut Frame, area: Rect) {
     let sheet = &app.session.sheet;
     let columns = layout::visible_columns(&state.widths, state.first_column, area.width);
     let mut lines = Vec::with_capacity(usize::from(area.height));
-    let mut header = vec![Span::styled(fit_text("", usize::from(layout::FLAG_WIDTH)), theme.header())];
+    let mut header = vec![Span::styled(
+        fit_text("", usize::from(layout::FLAG_WIDTH)),
+        theme.header(),
+    )];
     for c in columns.clone() {
         let width = usize::from(state.widths[c]);
-        header.push(Span::styled(format!("{} ", fit_text(&label(app, c), width)), theme.header()));
+        header.push(Span::styled(
+            format!("{} ", fit_text(&label(app, c), width)),
+            theme.header(),
+        ));
     }
     lines.push(Line::from(header));
     if sheet.row_count() == 0 {
@@ -81,7 +87,10 @@ pub fn render(app: &App, frame: &mut Frame, area: Rect) {
         for c in columns.clone() {
             let width = usize::from(state.widths[c]);
             let column = sheet.column_at(c);
-            let editing = state.edit.as_ref().filter(|e| e.row == row && e.column == c);
+            let editing = state
+                .edit
+                .as_ref()
+                .filter(|e| e.row == row && e.column == c);
             if let Some(edit) = editing {
                 spans.extend(edit_spans(app, &edit.buffer, edit.cursor, width));
                 spans.push(Span::raw(" "));
@@ -91,18 +100,16 @@ pub fn render(app: &App, frame: &mut Frame, area: Rect) {
             let mut style = Style::default();
             let mut text = raw.to_string();
             if column == Some(SheetColumn::Flow) && raw.trim().is_empty() {
-                if let Some(flow) = reading.filter(|r| r.flow_from_pitot).and_then(|r| r.total_flow) {
+                if let Some(flow) = reading
+                    .filter(|r| r.flow_from_pitot)
+                    .and_then(|r| r.total_flow)
+                {
                     text = format!("~{flow:.0}");
                     style = theme.computed();
                 }
             }
-            let finding = reading.and_then(|r| {
-                r.findings
-                    .iter()
-                    .filter(|f| f.column.is_some() && f.column == column)
-                    .map(|f| f.severity)
-                    .max()
-            });
+            let header_name = sheet.headers().get(c).map_or("", String::as_str);
+            let finding = reading.and_then(|r| r.column_severity(header_name));
             match finding {
                 Some(Severity::Error) => style = theme.error(),
                 Some(Severity::Warning) => style = theme.warning(),

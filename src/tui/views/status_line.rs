@@ -27,10 +27,33 @@ pub fn status_text(app: &App) -> (String, bool) {
     if app.view == View::Readings {
         let row = app.readings.row;
         let total = app.session.sheet.row_count();
-        if let Some(finding) = app.row_reading(row).and_then(|r| r.main_finding()) {
-            return (format!("row {}: {}", row + 1, finding.reason), true);
+        let cursor_column = app
+            .session
+            .sheet
+            .headers()
+            .get(app.readings.column)
+            .map_or("", String::as_str);
+        let reading = app.row_reading(row);
+        let at_cursor = reading.and_then(|r| r.findings.iter().find(|f| f.column == cursor_column));
+        if let Some(finding) = at_cursor.or_else(|| reading.and_then(|r| r.main_finding())) {
+            let more = app.row_reading(row).map_or(0, |r| r.findings.len()) - 1;
+            let more = if more > 0 {
+                format!(" (+{more} more)")
+            } else {
+                String::new()
+            };
+            let error = finding.severity == crate::fieldtest::Severity::Error;
+            return (
+                format!(
+                    "row {}, {}: {}{more}",
+                    row + 1,
+                    finding.column,
+                    finding.reason
+                ),
+                error,
+            );
         }
-        let usable = app.readings.rows.iter().filter(|r| r.test.is_some()).count();
+        let usable = app.readings.tests.len();
         return (
             format!(
                 "row {}/{total} | {usable} usable tests | {}",
