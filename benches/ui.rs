@@ -25,7 +25,7 @@ fn city() -> Network {
         })
         .collect();
     let mut pipes = Vec::new();
-    let mut add = |a: usize, b: usize, pipes: &mut Vec<Pipe>| {
+    let add = |a: usize, b: usize, pipes: &mut Vec<Pipe>| {
         let n = pipes.len();
         pipes.push(Pipe {
             id: format!("P{n}"),

@@ -392,7 +392,7 @@ fn the_fit_runs_on_a_worker_and_can_be_cancelled() {
     assert!(app.confirm.is_some());
     key(&mut app, &mut runner, KeyCode::Char('y'));
     assert!(app.confirm.is_none());
-    assert!(app.message.as_ref().unwrap().text.contains("exported to"));
+    assert!(app.message.as_ref().unwrap().text.contains("exported ("));
 }
 
 #[test]

@@ -327,7 +327,7 @@ pub enum Action {
     RunCalibration,
     CancelCalibration,
     CalibrationProgress(IterationReport),
-    CalibrationFinished(Result<CalibrationResult, CalibrationError>),
+    CalibrationFinished(Box<Result<CalibrationResult, CalibrationError>>),
     Export,
     /// The export folder already holds outputs.
     ExportRefused(PathBuf),
@@ -550,8 +550,10 @@ impl App {
         if r.column < r.first_column {
             r.first_column = r.column;
         }
+        let frozen = self.session.sheet.column_index(SheetColumn::Test);
         while r.first_column < r.column
-            && !layout::visible_columns(&r.widths, r.first_column, self.width).contains(&r.column)
+            && !layout::shown_columns(&r.widths, r.first_column, self.width, frozen)
+                .contains(&r.column)
         {
             r.first_column += 1;
         }
@@ -656,19 +658,19 @@ pub fn update(app: &mut App, action: Action) -> Vec<Effect> {
                 running.iterations.push(report);
             }
         }
-        Action::CalibrationFinished(result) => finish_calibration(app, result),
+        Action::CalibrationFinished(result) => finish_calibration(app, *result),
         Action::Export => export(app, false, &mut effects),
         Action::ExportRefused(folder) => {
             app.confirm = Some(Confirm::OverwriteExport(folder.clone()));
             app.info(format!(
-                "{} already holds outputs: overwrite them? (y/n)",
+                "overwrite the outputs in {}? (y/n)",
                 folder.display()
             ));
         }
         Action::ExportFinished(Ok(folder)) => {
             app.export_folder = Some(folder.clone());
             app.info(format!(
-                "exported to {} (review by a licensed engineer before use)",
+                "exported (an aid for a licensed engineer to review) to {}",
                 folder.display()
             ));
         }
@@ -899,11 +901,11 @@ fn edit_text(edit: &mut CellEdit, action: &Action) -> bool {
 }
 
 fn readings_action(app: &mut App, action: Action, effects: &mut Vec<Effect>) {
-    if let Some(edit) = &mut app.readings.edit {
-        if edit_text(edit, &action) {
-            update_preview(app);
-            return;
-        }
+    if let Some(edit) = &mut app.readings.edit
+        && edit_text(edit, &action)
+    {
+        update_preview(app);
+        return;
     }
     let rows = app.session.sheet.row_count();
     match action {
@@ -1059,10 +1061,10 @@ fn readings_action(app: &mut App, action: Action, effects: &mut Vec<Effect>) {
 }
 
 fn groups_action(app: &mut App, action: Action, effects: &mut Vec<Effect>) {
-    if let Some(edit) = &mut app.groups.edit {
-        if edit_text(edit, &action) {
-            return;
-        }
+    if let Some(edit) = &mut app.groups.edit
+        && edit_text(edit, &action)
+    {
+        return;
     }
     let count = app.groups.rows.len();
     if count == 0 {

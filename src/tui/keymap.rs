@@ -5,69 +5,58 @@ use crossterm::event::{KeyCode, KeyEvent, KeyEventKind, KeyModifiers};
 
 use super::app::{Action, After, App, Move, View};
 
-/// Every key, grouped for the help overlay: (section, [(keys, what they do)]).
+/// Every key, grouped for the help overlay: (section, [(keys, what they do)]). The first two sections
+/// fill the left column, the rest the right one; each description fits 25 characters.
 pub const KEY_HELP: [(&str, &[(&str, &str)]); 6] = [
     (
         "Everywhere",
         &[
-            ("?", "this help (Esc or ? closes it)"),
-            (
-                "F2 F3 F4 F5",
-                "Readings, Groups, Fit, Map (or Alt+1..4; 1..4 in Fit, Map)",
-            ),
-            ("Ctrl+R", "run the fit on every usable test"),
-            ("Esc", "cancel a running fit, a question, or an edit"),
-            ("Ctrl+E", "export the fit to a folder beside the sheet"),
-            ("Ctrl+Q  Ctrl+C", "quit (what you typed is already saved)"),
+            ("?", "these keys (Esc closes)"),
+            ("F2 .. F5", "Readings Groups Fit Map"),
+            ("Alt+1 .. 4", "same; 1 .. 4 in Fit, Map"),
+            ("Ctrl+R", "run the fit"),
+            ("Esc", "cancel fit/question/edit"),
+            ("Ctrl+E", "export beside the sheet"),
+            ("Ctrl+Q Ctrl+C", "quit (all is saved)"),
         ],
     ),
     (
         "Readings",
         &[
-            (
-                "arrows  h j k l",
-                "move; PgUp PgDn page; Home End first/last column",
-            ),
-            (
-                "type  Enter",
-                "edit the cell (typing replaces it, Enter keeps its text)",
-            ),
-            ("Tab  Shift+Tab", "next / previous column"),
-            ("Ctrl+N  Insert", "add a row below"),
-            ("Ctrl+D  Delete", "delete the row (asks y/n)"),
-            ("Ctrl+Z  Ctrl+Y", "undo / redo any edit"),
+            ("arrows hjkl", "move"),
+            ("PgUp PgDn", "page up / down"),
+            ("Home End", "first / last column"),
+            ("type, Enter", "edit the cell"),
+            ("Tab Shift+Tab", "next / previous column"),
+            ("Ctrl+N Insert", "add a row below"),
+            ("Ctrl+D Delete", "delete the row (y/n)"),
+            ("Ctrl+Z Ctrl+Y", "undo / redo"),
         ],
     ),
     (
-        "While typing a cell",
+        "Typing a cell",
         &[
-            ("Enter", "keep and go down"),
-            ("Tab", "complete a node id; else keep and go right"),
-            ("Shift+Tab  Up  Down", "keep and go left / up / down"),
+            ("Enter", "keep it, go down"),
+            ("Tab", "complete id / keep, right"),
+            ("S-Tab Up Down", "keep, go left / up / down"),
             ("Esc", "throw the typing away"),
-            (
-                "Left Right Home End",
-                "move in the text; Backspace Delete erase",
-            ),
+            ("<- -> Bksp", "move and erase in it"),
         ],
     ),
     (
         "Groups",
         &[
-            ("arrows  h j k l", "move between start C, min, max and lock"),
-            (
-                "Enter  digits",
-                "edit the value (saved into the network file)",
-            ),
-            ("Space", "lock or unlock the group"),
+            ("arrows hjkl", "start C, min, max, lock"),
+            ("Enter digits", "edit (saved to network)"),
+            ("Space", "lock / unlock the group"),
         ],
     ),
-    ("Fit", &[("Up Down  j k", "scroll the per-test table")]),
+    ("Fit", &[("Up Down j k", "scroll the tests")]),
     (
         "Map",
         &[
-            ("arrows  n p", "select the next / previous test"),
-            ("s", "shade pipes by group or by fitted change"),
+            ("arrows n p", "next / previous test"),
+            ("s", "shade: group / C change"),
         ],
     ),
 ];

@@ -75,6 +75,25 @@ pub fn visible_columns(widths: &[u16], first: usize, width: u16) -> std::ops::Ra
     first..end
 }
 
+/// The columns (header indices) the readings table shows: the `frozen` one (the test id) always at the
+/// left once scrolled past, then as many as fit from `first`.
+pub fn shown_columns(
+    widths: &[u16],
+    first: usize,
+    width: u16,
+    frozen: Option<usize>,
+) -> Vec<usize> {
+    match frozen {
+        Some(f) if f < first && f < widths.len() => {
+            let rest = width.saturating_sub(widths[f] + 1);
+            std::iter::once(f)
+                .chain(visible_columns(widths, first, rest))
+                .collect()
+        }
+        _ => visible_columns(widths, first, width).collect(),
+    }
+}
+
 /// The canvas of the map view, in cells, for a body of `body` size.
 pub fn map_canvas(body: Rect) -> Rect {
     let panel = if body.width >= MAP_PANEL_WIDTH + 20 {

@@ -39,7 +39,7 @@ impl Default for Runner {
 impl Runner {
     /// A runner writing through [`storage::write_atomic`].
     pub fn new() -> Self {
-        Self::with_writer(Box::new(|path, bytes| storage::write_atomic(path, bytes)))
+        Self::with_writer(Box::new(storage::write_atomic))
     }
 
     /// A runner writing through `write`.

@@ -14,7 +14,7 @@ use super::app::{Action, CalibrationJob};
 #[derive(Debug)]
 pub enum WorkerMessage {
     Progress(IterationReport),
-    Finished(Result<CalibrationResult, CalibrationError>),
+    Finished(Box<Result<CalibrationResult, CalibrationError>>),
 }
 
 impl WorkerMessage {
@@ -46,7 +46,7 @@ impl CalibrationWorker {
                 let _ = progress_sender.send(WorkerMessage::Progress(report.clone()));
             };
             let result = calibrate(&job.network, &job.tests, &job.options, &mut progress, &flag);
-            let _ = sender.send(WorkerMessage::Finished(result));
+            let _ = sender.send(WorkerMessage::Finished(Box::new(result)));
         });
         Self {
             receiver,
@@ -74,8 +74,10 @@ impl CalibrationWorker {
                 Err(TryRecvError::Disconnected) => {
                     if !finished {
                         // The thread ended without a result: it panicked.
-                        messages.push(WorkerMessage::Finished(Err(CalibrationError::Optimizer(
-                            "the calibration stopped unexpectedly".to_string(),
+                        messages.push(WorkerMessage::Finished(Box::new(Err(
+                            CalibrationError::Optimizer(
+                                "the calibration stopped unexpectedly".to_string(),
+                            ),
                         ))));
                     }
                     finished = true;
@@ -83,10 +85,8 @@ impl CalibrationWorker {
                 }
             }
         }
-        if finished {
-            if let Some(handle) = self.handle.take() {
-                let _ = handle.join();
-            }
+        if finished && let Some(handle) = self.handle.take() {
+            let _ = handle.join();
         }
         (messages, finished)
     }

@@ -35,10 +35,12 @@ fn statistics(app: &App, frame: &mut Frame, area: Rect) {
         theme.header(),
     ))];
     let Some(outcome) = &app.fit.outcome else {
-        lines.push(Line::from(Span::styled(
-            "no fit yet: Ctrl+R runs it",
-            theme.dim(),
-        )));
+        let text = if app.fit.running.is_some() {
+            "the first fit is running..."
+        } else {
+            "no fit yet: Ctrl+R runs it"
+        };
+        lines.push(Line::from(Span::styled(text, theme.dim())));
         frame.render_widget(Paragraph::new(lines), area);
         return;
     };
@@ -106,34 +108,33 @@ fn run_state(app: &App, frame: &mut Frame, area: Rect) {
         lines.push(Line::from(Span::styled("FIT FAILED", theme.error())));
         lines.push(Line::from(failure.clone()));
     }
-    if app.fit.running.is_none() {
-        if let Some(outcome) = &app.fit.outcome {
-            let r = &outcome.result;
-            if r.converged {
-                lines.push(Line::from(Span::styled("converged", theme.good())));
-            } else {
-                lines.push(Line::from(Span::styled(
-                    "NOT CONVERGED: do not use as is",
-                    theme.error(),
-                )));
-            }
-            lines.push(Line::from(fit_text(&r.termination, width)));
-            lines.push(Line::from(format!(
-                "{} iterations, fit on {}",
-                r.iterations.len(),
-                r.fit.label()
+    if app.fit.running.is_none()
+        && let Some(outcome) = &app.fit.outcome
+    {
+        let r = &outcome.result;
+        if r.converged {
+            lines.push(Line::from(Span::styled(
+                format!("converged in {} iterations", r.iterations.len()),
+                theme.good(),
             )));
-            if let Some(chi) = r.reduced_chi_square {
-                lines.push(Line::from(format!(
-                    "misfit / gauge accuracy {chi:.2} (1 is ideal)"
-                )));
-            }
-            if app.fit.stale {
-                lines.push(Line::from(Span::styled(
-                    "sheet or groups changed since: Ctrl+R",
-                    theme.warning(),
-                )));
-            }
+        } else {
+            lines.push(Line::from(Span::styled(
+                "NOT CONVERGED: do not use as is",
+                theme.error(),
+            )));
+        }
+        lines.push(Line::from(fit_text(&r.termination, width)));
+        lines.push(Line::from(format!("fit on {}", r.fit.label())));
+        if let Some(chi) = r.reduced_chi_square {
+            lines.push(Line::from(format!(
+                "misfit / gauge accuracy {chi:.2} (1 is ideal)"
+            )));
+        }
+        if app.fit.stale {
+            lines.push(Line::from(Span::styled(
+                "sheet or groups changed since: Ctrl+R",
+                theme.warning(),
+            )));
         }
     }
     let paragraph = Paragraph::new(lines).block(Block::default().borders(Borders::LEFT));

@@ -12,7 +12,7 @@ use crate::tui::app::{
     App, GROUP_COLUMNS, GROUP_LOCK, GROUP_MAX, GROUP_MIN, GROUP_START, format_c,
 };
 
-const WIDTHS: [usize; 10] = [11, 5, 7, 7, 5, 5, 4, 6, 9, 12];
+const WIDTHS: [usize; 10] = [15, 5, 6, 7, 4, 4, 4, 6, 7, 12];
 
 pub fn render(app: &App, frame: &mut Frame, area: Rect) {
     let theme = app.theme;

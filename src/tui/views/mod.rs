@@ -27,7 +27,7 @@ pub fn render(app: &App, frame: &mut Frame) {
     }
     status_line::render(app, frame, status);
     if app.help {
-        help::render(app, frame, body);
+        help::render(app, frame, frame.area());
     }
 }
 

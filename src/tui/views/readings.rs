@@ -52,13 +52,18 @@ pub fn render(app: &App, frame: &mut Frame, area: Rect) {
     let theme = app.theme;
     let state = &app.readings;
     let sheet = &app.session.sheet;
-    let columns = layout::visible_columns(&state.widths, state.first_column, area.width);
+    let columns = layout::shown_columns(
+        &state.widths,
+        state.first_column,
+        area.width,
+        sheet.column_index(SheetColumn::Test),
+    );
     let mut lines = Vec::with_capacity(usize::from(area.height));
     let mut header = vec![Span::styled(
         fit_text("", usize::from(layout::FLAG_WIDTH)),
         theme.header(),
     )];
-    for c in columns.clone() {
+    for &c in &columns {
         let width = usize::from(state.widths[c]);
         header.push(Span::styled(
             format!("{} ", fit_text(&label(app, c), width)),
@@ -84,7 +89,7 @@ pub fn render(app: &App, frame: &mut Frame, area: Rect) {
             None => ("  ", theme.good()),
         };
         let mut spans = vec![Span::styled(flag, flag_style)];
-        for c in columns.clone() {
+        for &c in &columns {
             let width = usize::from(state.widths[c]);
             let column = sheet.column_at(c);
             let editing = state
@@ -99,14 +104,14 @@ pub fn render(app: &App, frame: &mut Frame, area: Rect) {
             let raw = sheet.cell_at(row, c).unwrap_or("");
             let mut style = Style::default();
             let mut text = raw.to_string();
-            if column == Some(SheetColumn::Flow) && raw.trim().is_empty() {
-                if let Some(flow) = reading
+            if column == Some(SheetColumn::Flow)
+                && raw.trim().is_empty()
+                && let Some(flow) = reading
                     .filter(|r| r.flow_from_pitot)
                     .and_then(|r| r.total_flow)
-                {
-                    text = format!("~{flow:.0}");
-                    style = theme.computed();
-                }
+            {
+                text = format!("~{flow:.0}");
+                style = theme.computed();
             }
             let header_name = sheet.headers().get(c).map_or("", String::as_str);
             let finding = reading.and_then(|r| r.column_severity(header_name));
