@@ -6,6 +6,9 @@
 
 use std::fmt::Write as _;
 
+// A seeded splitmix64 stream, so the demo is the same on every machine.
+use crate::network::synthetic::SplitMix64 as Sequence;
+
 /// Groups of the demo: (name, start C in the model, true C the sheet was synthesised from, min, max,
 /// locked). The true values are what a crew would find: old mains rougher than assumed.
 pub const DEMO_GROUPS: [(&str, f64, f64, f64, f64, bool); 5] = [
@@ -21,31 +24,6 @@ const COLUMNS: usize = 14;
 const ROWS: usize = 12;
 /// Block length along x and y (ft).
 const BLOCK_FT: f64 = 420.0;
-
-/// Deterministic generator (splitmix64), so the demo is the same on every machine.
-struct Sequence(u64);
-
-impl Sequence {
-    fn next_u64(&mut self) -> u64 {
-        self.0 = self.0.wrapping_add(0x9E37_79B9_7F4A_7C15);
-        let mut z = self.0;
-        z = (z ^ (z >> 30)).wrapping_mul(0xBF58_476D_1CE4_E5B9);
-        z = (z ^ (z >> 27)).wrapping_mul(0x94D0_49BB_1331_11EB);
-        z ^ (z >> 31)
-    }
-
-    /// Uniform in [0, 1).
-    fn unit(&mut self) -> f64 {
-        (self.next_u64() >> 11) as f64 / (1u64 << 53) as f64
-    }
-
-    /// Standard normal (Box-Muller).
-    fn normal(&mut self) -> f64 {
-        let u1 = self.unit().max(1e-12);
-        let u2 = self.unit();
-        (-2.0 * u1.ln()).sqrt() * (2.0 * std::f64::consts::PI * u2).cos()
-    }
-}
 
 fn junction_id(column: usize, row: usize) -> String {
     format!("J-{}{:02}", (b'A' + row as u8) as char, column + 1)

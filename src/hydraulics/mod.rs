@@ -2,6 +2,7 @@
 
 pub mod gradient;
 pub mod headloss;
+pub mod loops;
 
 pub use gradient::{
     GradientSolver, LinkRef, LinkStatus, OperatingState, Solution, SolveError, SolveWarning,

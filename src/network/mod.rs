@@ -2,10 +2,12 @@
 
 pub mod edit;
 pub mod file;
+pub mod graph;
 pub mod model;
 mod pump_curve;
 pub mod suggest;
 pub mod summary;
+pub mod synthetic;
 pub mod units;
 
 pub use model::*;
