@@ -8,66 +8,13 @@ use criterion::{Criterion, criterion_group, criterion_main};
 use ratatui::Terminal;
 use ratatui::backend::TestBackend;
 use roughcal::fieldtest::FieldSheet;
-use roughcal::network::{Junction, Network, NodeRef, Pipe, RoughnessGroup, UnitSystem};
-use roughcal::tui::app::{Action, Move, Session, View};
+use roughcal::network::{Network, synthetic};
+use roughcal::tui::app::{Action, After, Move, Session, View};
 use roughcal::tui::{App, Theme, update, views};
 
-/// A 100 x 101 grid of junctions, every neighbour joined: 20,000 pipes in four groups.
+/// A 100 x 101 looped street grid: 20,000 pipes in three era groups.
 fn city() -> Network {
-    let (columns, rows) = (100usize, 101usize);
-    let units = UnitSystem::Us;
-    let junctions = (0..columns * rows)
-        .map(|i| Junction {
-            id: format!("J{i}"),
-            elevation_m: 30.0,
-            demand_m3s: 0.0005,
-            position: Some(((i % columns) as f64 * 300.0, (i / columns) as f64 * 300.0)),
-        })
-        .collect();
-    let mut pipes = Vec::new();
-    let add = |a: usize, b: usize, pipes: &mut Vec<Pipe>| {
-        let n = pipes.len();
-        pipes.push(Pipe {
-            id: format!("P{n}"),
-            from: NodeRef::Junction(a),
-            to: NodeRef::Junction(b),
-            length_m: units.length_to_m(300.0),
-            diameter_m: units.diameter_to_m(8.0),
-            c_factor: 110.0,
-            group: Some(n % 4),
-            closed: false,
-            check_valve: false,
-        });
-    };
-    for r in 0..rows {
-        for c in 0..columns {
-            let here = r * columns + c;
-            if c + 1 < columns {
-                add(here, here + 1, &mut pipes);
-            }
-            if r + 1 < rows && pipes.len() < 20_000 {
-                add(here, here + columns, &mut pipes);
-            }
-        }
-    }
-    pipes.truncate(20_000);
-    Network {
-        title: "bench city".into(),
-        units,
-        junctions,
-        fixed_heads: Vec::new(),
-        pipes,
-        pumps: Vec::new(),
-        groups: (0..4)
-            .map(|g| RoughnessGroup {
-                name: format!("g{g}"),
-                min_c: 40.0,
-                max_c: 150.0,
-                locked: false,
-            })
-            .collect(),
-        conditions: Vec::new(),
-    }
+    synthetic::grid(100, 101, 7)
 }
 
 fn app() -> App {
@@ -78,9 +25,9 @@ fn app() -> App {
     for i in 0..2000 {
         let _ = writeln!(
             csv,
-            "T{i},2024-05-01,09:00,J{},J{},{},{},,{},2.5,0.9,,row {i}",
-            (i * 5) % 10_000,
-            (i * 5 + 1) % 10_000,
+            "T{i},2024-05-01,09:00,{},{},{},{},,{},2.5,0.9,,row {i}",
+            network.junctions[(i * 5) % network.junctions.len()].id,
+            network.junctions[(i * 5 + 1) % network.junctions.len()].id,
             60 + i % 20,
             40 + i % 15,
             20 + i % 10
@@ -98,6 +45,8 @@ fn app() -> App {
     };
     let mut app = App::new(session, Theme { no_color: false });
     update(&mut app, Action::Resize(80, 24));
+    assert_eq!(app.session.network.pipes.len(), 20_000);
+    assert_eq!(app.session.sheet.row_count(), 2_000);
     app
 }
 
@@ -118,6 +67,36 @@ fn key_to_screen(c: &mut Criterion) {
             terminal
                 .draw(|frame| views::render(&app, frame))
                 .expect("draw");
+        })
+    });
+    // Typing into a cell: each character screens the row again (preview) and redraws.
+    update(&mut app, Action::MoveCursor(Move::Top));
+    update(&mut app, Action::BeginEdit);
+    c.bench_function("readings type a character + render", |b| {
+        b.iter(|| {
+            update(&mut app, Action::InsertChar('1'));
+            update(&mut app, Action::DeleteBack);
+            terminal
+                .draw(|frame| views::render(&app, frame))
+                .expect("draw");
+        })
+    });
+    update(&mut app, Action::CancelEdit);
+    // Committing a cell: the whole sheet is screened again and its text made for the save effect (the
+    // write itself is left out: it is the disk's time, not the screen's).
+    let mut flip = false;
+    c.bench_function("readings commit an edit (2,000 rows) + render", |b| {
+        b.iter(|| {
+            flip = !flip;
+            update(
+                &mut app,
+                Action::BeginEditWith(if flip { '7' } else { '8' }),
+            );
+            let effects = update(&mut app, Action::CommitEdit(After::Stay));
+            terminal
+                .draw(|frame| views::render(&app, frame))
+                .expect("draw");
+            effects
         })
     });
     update(&mut app, Action::SwitchView(View::Map));

@@ -357,13 +357,23 @@ fn the_fit_runs_on_a_worker_and_can_be_cancelled() {
     ctrl(&mut app, &mut runner, 'r');
     assert!(app.fit.running.is_some());
     assert_eq!(app.view, View::Fit);
-    for action in runner.wait_for_worker(Duration::from_secs(60)) {
+    let actions = runner.wait_for_worker(Duration::from_secs(60));
+    let progress = actions
+        .iter()
+        .filter(|a| matches!(a, Action::CalibrationProgress(_)))
+        .count();
+    assert!(progress > 0);
+    assert!(matches!(
+        actions.last(),
+        Some(Action::CalibrationFinished(_))
+    ));
+    for action in actions {
         dispatch(&mut app, &mut runner, action);
     }
     assert!(app.fit.running.is_none());
     let outcome = app.fit.outcome.as_ref().expect("a result");
     assert_eq!(outcome.result.tests.len(), 3);
-    assert!(!outcome.result.iterations.is_empty());
+    assert_eq!(outcome.result.iterations.len(), progress);
     let fit = screen(&app, 80, 24);
     assert!(fit.contains("RMSE"), "{fit}");
     assert!(fit.contains("modelled vs measured"), "{fit}");
@@ -407,6 +417,28 @@ fn the_demo_opens_on_a_scratch_copy() {
     // The mistyped node of AF-18 is flagged; the weak AF-17 is kept with a warning.
     assert!(!app.readings.rows[17].usable);
     assert!(app.readings.rows[16].usable);
-    assert!(app.readings.tests.len() >= 15);
+    assert!(app.usable_count() >= 15);
     assert!(demo_folder().ends_with(format!("roughcal-demo-{}", std::process::id())));
+}
+
+#[test]
+fn a_new_sheet_refuses_an_existing_file() {
+    let dir = tempfile::tempdir().unwrap();
+    let app = workbench(dir.path(), SHEET);
+    let refused = roughcal::tui::new_sheet(&app.session.network_path, &app.session.sheet_path);
+    assert!(matches!(
+        refused,
+        Err(roughcal::tui::OpenError::SheetExists { .. })
+    ));
+    let fresh = dir.path().join("fresh.csv");
+    let session = roughcal::tui::new_sheet(&app.session.network_path, &fresh).unwrap();
+    assert_eq!(session.sheet.row_count(), 0);
+    assert_eq!(
+        std::fs::read_to_string(&fresh).unwrap(),
+        std::fs::read_to_string(concat!(
+            env!("CARGO_MANIFEST_DIR"),
+            "/field-sheets/template.csv"
+        ))
+        .unwrap()
+    );
 }

@@ -4,7 +4,7 @@
 //! Nothing here touches a terminal, a file or a thread; the runner ([`super::run`]) carries out the
 //! effects and feeds their outcomes back as actions.
 
-use std::collections::BTreeMap;
+use std::collections::{BTreeMap, HashMap};
 use std::path::PathBuf;
 
 use crate::calibrate::{
@@ -162,8 +162,6 @@ pub struct ReadingsState {
     pub redo: Vec<SheetEdit>,
     /// One reading per sheet row.
     pub rows: Vec<RowReading>,
-    /// The tests calibration may use, as the sheet stands.
-    pub tests: Vec<CalibrationTest>,
     /// The sheet's header with no rows (for reading one row while it is typed).
     pub header: Option<FieldSheet>,
     /// Display widths of the sheet's columns.
@@ -287,6 +285,8 @@ pub struct App {
     pub message: Option<StatusMessage>,
     /// Junction ids for completion: (lower-case id, id), sorted.
     pub node_index: Vec<(String, String)>,
+    /// Junction index by id.
+    pub junction_index: HashMap<String, usize>,
     /// The sheet has edits the last save did not write.
     pub unsaved: bool,
     /// The network file has edits the last save did not write.
@@ -397,6 +397,7 @@ impl App {
             confirm: None,
             message: None,
             node_index: Vec::new(),
+            junction_index: HashMap::new(),
             unsaved: false,
             network_unsaved: false,
             export_folder: None,
@@ -420,6 +421,12 @@ impl App {
             .collect();
         index.sort();
         self.node_index = index;
+        self.junction_index = net
+            .junctions
+            .iter()
+            .enumerate()
+            .map(|(i, j)| (j.id.clone(), i))
+            .collect();
         self.groups.rows = group_rows(net);
         self.groups.row = self
             .groups
@@ -432,9 +439,12 @@ impl App {
     /// Reads and screens the whole sheet again (after any change of the sheet or the network: rules
     /// such as a repeated test id span rows).
     fn read_all_rows(&mut self) {
-        let (rows, tests) = sheet_reading::read_sheet(&self.session.sheet, &self.session.network);
-        self.readings.rows = rows;
-        self.readings.tests = tests;
+        self.readings.rows = sheet_reading::read_sheet(&self.session.sheet, &self.session.network);
+    }
+
+    /// Number of rows calibration may use.
+    pub fn usable_count(&self) -> usize {
+        self.readings.rows.iter().filter(|r| r.usable).count()
     }
 
     /// The reading of a row, with the edit preview in place for the row being typed.
@@ -492,12 +502,20 @@ impl App {
                 .collect(),
             None => self
                 .readings
-                .tests
+                .rows
                 .iter()
-                .filter_map(|t| {
+                .enumerate()
+                .filter(|(_, r)| r.usable)
+                .filter_map(|(row, r)| {
+                    let junction = *self.junction_index.get(r.residual_node.as_deref()?)?;
                     Some(TestMarker {
-                        id: t.id.clone(),
-                        position: position(t.residual_junction)?,
+                        id: self
+                            .session
+                            .sheet
+                            .cell(row, SheetColumn::Test)?
+                            .trim()
+                            .to_string(),
+                        position: position(junction)?,
                         comparison: None,
                     })
                 })
@@ -1203,7 +1221,7 @@ fn run_calibration(app: &mut App, effects: &mut Vec<Effect>) {
         app.info("a fit is already running (Esc cancels it)");
         return;
     }
-    let tests = app.readings.tests.clone();
+    let tests = sheet_reading::usable_tests(&app.session.sheet, &app.session.network);
     if tests.is_empty() {
         app.error("no usable test on the sheet: fix the flagged rows first");
         return;

@@ -19,6 +19,8 @@ pub struct RowReading {
     pub usable: bool,
     /// Every cell is empty: not a test yet.
     pub blank: bool,
+    /// The residual hydrant of the row's test, when the row reads.
+    pub residual_node: Option<String>,
 }
 
 impl RowReading {
@@ -74,6 +76,7 @@ fn row_reading(
         usable: test.is_some() && !findings.iter().any(|f| f.severity == Severity::Error),
         total_flow: test.map(|t| t.total_flow()),
         flow_from_pitot: test.is_some_and(|t| t.flowing.iter().any(|h| h.computed)),
+        residual_node: test.map(|t| t.residual_node.clone()),
         blank: sheet
             .row_cells(row)
             .is_some_and(|cells| cells.iter().all(|c| c.trim().is_empty())),
@@ -81,14 +84,18 @@ fn row_reading(
     }
 }
 
-/// Every row of `sheet` read and screened against `net`, and the tests calibration may use.
-pub fn read_sheet(sheet: &FieldSheet, net: &Network) -> (Vec<RowReading>, Vec<CalibrationTest>) {
+/// Every row of `sheet` read and screened against `net`.
+pub fn read_sheet(sheet: &FieldSheet, net: &Network) -> Vec<RowReading> {
     let reading = screen_sheet(sheet, Some(net));
-    let rows = (0..sheet.row_count())
+    (0..sheet.row_count())
         .map(|row| row_reading(sheet, &reading, row, row))
-        .collect();
-    let (tests, _) = calibration_tests(net, &reading);
-    (rows, tests)
+        .collect()
+}
+
+/// The tests of `sheet` calibration may use, resolved against `net` (when a fit starts: resolving
+/// every node id costs more than a key press may).
+pub fn usable_tests(sheet: &FieldSheet, net: &Network) -> Vec<CalibrationTest> {
+    calibration_tests(net, &screen_sheet(sheet, Some(net))).0
 }
 
 /// A sheet with `sheet`'s header and no rows, for [`preview_row`].

@@ -54,7 +54,7 @@ pub fn status_text(app: &App) -> (String, bool) {
                 error,
             );
         }
-        let usable = app.readings.tests.len();
+        let usable = app.usable_count();
         return (
             format!(
                 "row {}/{total} | {usable} usable tests | {}",
