@@ -57,7 +57,7 @@ pub fn status_text(app: &App) -> (String, bool) {
         let usable = app.usable_count();
         return (
             format!(
-                "row {}/{total} | {usable} usable tests | {}",
+                "row {}/{total} | usable tests: {usable} | {}",
                 (row + 1).min(total),
                 app.session.sheet_path.display()
             ),
