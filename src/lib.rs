@@ -17,3 +17,4 @@ pub mod hydraulics;
 pub mod network;
 pub mod report;
 pub mod storage;
+pub mod tui;

@@ -1,14 +1,74 @@
+//! `roughcal` (demo), `roughcal open NETWORK SHEET`, `roughcal new NETWORK SHEET`: the terminal
+//! workbench. Needs a terminal; without one it says which commands work in scripts.
+
+use std::io::IsTerminal;
 use std::path::Path;
 use std::process::ExitCode;
 
+use anyhow::Context;
+use roughcal::tui::{self, App, Theme};
+
+const NO_TERMINAL: &str =
+    "roughcal: the workbench needs a terminal (stdin and stdout must be a TTY).
+For scripts and pipes use the commands instead, e.g.
+  roughcal check --help
+  roughcal solve --help
+  roughcal tests --help
+  roughcal fireflow --help
+  roughcal calibrate --help";
+
+fn has_terminal() -> bool {
+    std::io::stdin().is_terminal() && std::io::stdout().is_terminal()
+}
+
+fn run(app: App) -> anyhow::Result<ExitCode> {
+    tui::run_terminal(app).context("the terminal failed")?;
+    Ok(ExitCode::SUCCESS)
+}
+
+fn theme() -> Theme {
+    Theme {
+        no_color: Theme::no_color_from_env(),
+    }
+}
+
 pub fn run_demo() -> anyhow::Result<ExitCode> {
-    anyhow::bail!("the workbench is being built")
+    if !has_terminal() {
+        eprintln!("{NO_TERMINAL}");
+        return Ok(ExitCode::from(1));
+    }
+    let folder = tui::demo_folder();
+    let session = tui::demo_in(&folder).context("cannot set up the demo")?;
+    let mut app = App::new(session, theme());
+    app.message = Some(tui::app::StatusMessage {
+        text: format!(
+            "demo: working on a copy in {} (the shipped files stay as they are); ? shows the keys",
+            folder.display()
+        ),
+        error: false,
+    });
+    run(app)
 }
 
-pub fn run_open(_network: &Path, _sheet: &Path) -> anyhow::Result<ExitCode> {
-    anyhow::bail!("the workbench is being built")
+pub fn run_open(network: &Path, sheet: &Path) -> anyhow::Result<ExitCode> {
+    if !has_terminal() {
+        eprintln!("{NO_TERMINAL}");
+        return Ok(ExitCode::from(1));
+    }
+    let session = tui::open_files(network, sheet)?;
+    run(App::new(session, theme()))
 }
 
-pub fn run_new(_network: &Path, _sheet: &Path) -> anyhow::Result<ExitCode> {
-    anyhow::bail!("the workbench is being built")
+pub fn run_new(network: &Path, sheet: &Path) -> anyhow::Result<ExitCode> {
+    if !has_terminal() {
+        eprintln!("{NO_TERMINAL}");
+        return Ok(ExitCode::from(1));
+    }
+    let session = tui::new_sheet(network, sheet)?;
+    let mut app = App::new(session, theme());
+    app.message = Some(tui::app::StatusMessage {
+        text: format!("new sheet {}: start typing the first test", sheet.display()),
+        error: false,
+    });
+    run(app)
 }

@@ -1,0 +1,24 @@
+//! The terminal workbench: key in readings, see findings as you type, fit, look, adjust, export.
+//!
+//! Layout: [`app`] holds the state, the actions and `update`; [`keymap`] turns keys into actions;
+//! [`views`] draw the state; [`run`] executes effects and runs the event loop; [`worker`] runs the
+//! calibration on its own thread. Results are a model-fitting aid reviewed by a licensed engineer;
+//! local codes and the fire authority govern (see [`crate::calibrate::CAUTION`]).
+
+pub mod app;
+pub mod demo;
+pub mod export_adapter;
+pub mod keymap;
+pub mod layout;
+pub mod map_model;
+pub mod run;
+pub mod session;
+pub mod sheet_reading;
+pub mod theme;
+pub mod views;
+pub mod worker;
+
+pub use app::{Action, App, Effect, View, update};
+pub use run::{Runner, dispatch, run_terminal};
+pub use session::{OpenError, demo_folder, demo_in, new_sheet, open_files};
+pub use theme::Theme;

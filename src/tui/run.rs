@@ -1,0 +1,224 @@
+//! The thin edge: carries out effects (files, the worker thread), runs the event loop against a real
+//! terminal, and puts the terminal back however the program ends.
+
+use std::collections::VecDeque;
+use std::io;
+use std::path::Path;
+use std::time::Duration;
+
+use crossterm::event::{self, Event};
+use crossterm::execute;
+use crossterm::terminal::{
+    EnterAlternateScreen, LeaveAlternateScreen, disable_raw_mode, enable_raw_mode,
+};
+use ratatui::Terminal;
+use ratatui::backend::CrosstermBackend;
+
+use super::app::{Action, App, Effect, SaveTarget, update};
+use super::export_adapter::{ExportFailure, write_export};
+use super::keymap::action_for_key;
+use super::views;
+use super::worker::CalibrationWorker;
+use crate::storage::{self, WriteError};
+
+/// How files are written: [`storage::write_atomic`] normally; tests pass a failing one.
+pub type WriteFn = Box<dyn FnMut(&Path, &[u8]) -> Result<(), WriteError>>;
+
+/// Carries out [`Effect`]s and reports their outcomes as [`Action`]s.
+pub struct Runner {
+    write: WriteFn,
+    worker: Option<CalibrationWorker>,
+}
+
+impl Default for Runner {
+    fn default() -> Self {
+        Self::new()
+    }
+}
+
+impl Runner {
+    /// A runner writing through [`storage::write_atomic`].
+    pub fn new() -> Self {
+        Self::with_writer(Box::new(storage::write_atomic))
+    }
+
+    /// A runner writing through `write`.
+    pub fn with_writer(write: WriteFn) -> Self {
+        Self {
+            write,
+            worker: None,
+        }
+    }
+
+    /// Carries out one effect; returns the actions that report its outcome.
+    pub fn execute(&mut self, effect: Effect) -> Vec<Action> {
+        match effect {
+            Effect::SaveSheet {
+                path,
+                text,
+                keep_original,
+            } => {
+                let kept = if keep_original {
+                    storage::keep_original(&path).map(|_| ())
+                } else {
+                    Ok(())
+                };
+                let result = kept
+                    .and_then(|()| (self.write)(&path, text.as_bytes()))
+                    .map_err(|e| short_write_error(&path, &e));
+                vec![Action::SaveFinished {
+                    target: SaveTarget::Sheet,
+                    result,
+                }]
+            }
+            Effect::SaveNetwork { path, text } => {
+                let result =
+                    (self.write)(&path, text.as_bytes()).map_err(|e| short_write_error(&path, &e));
+                vec![Action::SaveFinished {
+                    target: SaveTarget::Network,
+                    result,
+                }]
+            }
+            Effect::StartCalibration(job) => {
+                self.worker = Some(CalibrationWorker::spawn(*job));
+                Vec::new()
+            }
+            Effect::CancelCalibration => {
+                if let Some(worker) = &self.worker {
+                    worker.cancel();
+                }
+                Vec::new()
+            }
+            Effect::WriteExport(job) => match write_export(&job) {
+                Ok(folder) => vec![Action::ExportFinished(Ok(folder))],
+                Err(ExportFailure::Exists(folder)) => vec![Action::ExportRefused(folder)],
+                Err(ExportFailure::Failed(message)) => vec![Action::ExportFinished(Err(message))],
+            },
+        }
+    }
+
+    /// Whatever the worker has sent since the last call.
+    pub fn poll(&mut self) -> Vec<Action> {
+        let Some(worker) = &mut self.worker else {
+            return Vec::new();
+        };
+        let (messages, finished) = worker.drain();
+        if finished {
+            self.worker = None;
+        }
+        messages.into_iter().map(|m| m.into_action()).collect()
+    }
+
+    /// Waits up to `timeout` for the worker to finish, collecting its messages (tests, shutdown).
+    pub fn wait_for_worker(&mut self, timeout: Duration) -> Vec<Action> {
+        let deadline = std::time::Instant::now() + timeout;
+        let mut actions = Vec::new();
+        while self.worker.is_some() && std::time::Instant::now() < deadline {
+            actions.extend(self.poll());
+            std::thread::sleep(Duration::from_millis(5));
+        }
+        actions
+    }
+}
+
+/// A failed write in few words, cause first, for the status line.
+fn short_write_error(path: &Path, error: &WriteError) -> String {
+    let name = path.file_name().map_or_else(
+        || path.display().to_string(),
+        |n| n.to_string_lossy().into_owned(),
+    );
+    match error {
+        WriteError::Temporary { source, .. }
+        | WriteError::Write { source, .. }
+        | WriteError::Replace { source, .. } => format!("cannot write {name}: {source}"),
+        WriteError::Exists { .. } => error.to_string(),
+    }
+}
+
+/// Runs `action` and every action its effects lead to.
+pub fn dispatch(app: &mut App, runner: &mut Runner, action: Action) {
+    let mut queue = VecDeque::from([action]);
+    while let Some(action) = queue.pop_front() {
+        for effect in update(app, action) {
+            queue.extend(runner.execute(effect));
+        }
+    }
+}
+
+/// Leaves the alternate screen and raw mode before the panic message is printed, so a crash leaves a
+/// usable terminal and a readable message.
+fn install_panic_hook() {
+    let previous = std::panic::take_hook();
+    std::panic::set_hook(Box::new(move |info| {
+        let _ = restore_terminal();
+        previous(info);
+    }));
+}
+
+fn restore_terminal() -> io::Result<()> {
+    disable_raw_mode()?;
+    execute!(io::stdout(), LeaveAlternateScreen, crossterm::cursor::Show)
+}
+
+/// Runs the workbench on the real terminal until the user quits.
+pub fn run_terminal(app: App) -> io::Result<()> {
+    install_panic_hook();
+    enable_raw_mode()?;
+    if let Err(e) = execute!(io::stdout(), EnterAlternateScreen) {
+        let _ = disable_raw_mode();
+        return Err(e);
+    }
+    let result = Terminal::new(CrosstermBackend::new(io::stdout()))
+        .and_then(|terminal| event_loop(terminal, app, Runner::new()));
+    let restored = restore_terminal();
+    result.and(restored)
+}
+
+fn event_loop(
+    mut terminal: Terminal<CrosstermBackend<io::Stdout>>,
+    mut app: App,
+    mut runner: Runner,
+) -> io::Result<()> {
+    let size = terminal.size()?;
+    dispatch(
+        &mut app,
+        &mut runner,
+        Action::Resize(size.width, size.height),
+    );
+    let mut redraw = true;
+    loop {
+        if redraw {
+            terminal.draw(|frame| views::render(&app, frame))?;
+            redraw = false;
+        }
+        if app.quit {
+            break;
+        }
+        // Wait briefly for a key, then take every event already queued before redrawing, so fast
+        // typing or a paste does not redraw once per character.
+        let mut timeout = Duration::from_millis(50);
+        while event::poll(timeout)? {
+            timeout = Duration::ZERO;
+            match event::read()? {
+                Event::Key(key) => {
+                    if let Some(action) = action_for_key(&app, key) {
+                        dispatch(&mut app, &mut runner, action);
+                    }
+                }
+                Event::Resize(width, height) => {
+                    terminal.autoresize()?;
+                    dispatch(&mut app, &mut runner, Action::Resize(width, height));
+                }
+                _ => {}
+            }
+            redraw = true;
+        }
+        for action in runner.poll() {
+            dispatch(&mut app, &mut runner, action);
+            redraw = true;
+        }
+    }
+    // A fit still running is cancelled; give it a moment to stop cleanly.
+    runner.wait_for_worker(Duration::from_millis(500));
+    Ok(())
+}

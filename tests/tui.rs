@@ -1,0 +1,444 @@
+//! The workbench driven by key presses, without a terminal: keys go through the key map and
+//! `update`, effects through the runner, screens into ratatui's test backend.
+
+use std::io::Write as _;
+use std::path::Path;
+use std::time::Duration;
+
+use crossterm::event::{KeyCode, KeyEvent, KeyModifiers};
+use ratatui::Terminal;
+use ratatui::backend::TestBackend;
+use roughcal::fieldtest::SheetColumn;
+use roughcal::storage;
+use roughcal::tui::app::{Action, View};
+use roughcal::tui::keymap::action_for_key;
+use roughcal::tui::views;
+use roughcal::tui::{App, Runner, Theme, demo_folder, demo_in, dispatch, open_files};
+
+const HEADER: &str = "test,date,time,residual_node,flow_node,static_psi,residual_psi,flow_gpm,pitot_psi,outlet_in,coefficient,condition,note\n";
+
+/// The small invented network (Larkspur Rise) the tests work on.
+const NETWORK: &str = include_str!("../demo-network/small.toml");
+
+/// Three invented tests on it.
+const SHEET: &str = "test,date,time,residual_node,flow_node,static_psi,residual_psi,flow_gpm,pitot_psi,outlet_in,coefficient,condition,note
+D1,2024-05-07,09:05,J-102,J-103,56,41,,24,2.5,0.9,,
+D2,2024-05-07,09:40,J-104,J-106,62,44,,30,2.5,0.9,,
+D3,2024-05-07,10:20,J-105,J-107,71,52,640,,,,,
+";
+
+/// A workbench on a copy of the small network with `sheet` as the field sheet, in `dir`.
+fn workbench(dir: &Path, sheet: &str) -> App {
+    let network = dir.join("small.toml");
+    let sheet_path = dir.join("sheet.csv");
+    std::fs::write(&network, NETWORK).unwrap();
+    std::fs::write(&sheet_path, sheet).unwrap();
+    App::new(
+        open_files(&network, &sheet_path).unwrap(),
+        Theme { no_color: false },
+    )
+}
+
+fn press(app: &mut App, runner: &mut Runner, code: KeyCode, modifiers: KeyModifiers) {
+    if let Some(action) = action_for_key(app, KeyEvent::new(code, modifiers)) {
+        dispatch(app, runner, action);
+    }
+}
+
+fn key(app: &mut App, runner: &mut Runner, code: KeyCode) {
+    press(app, runner, code, KeyModifiers::NONE);
+}
+
+fn ctrl(app: &mut App, runner: &mut Runner, c: char) {
+    press(app, runner, KeyCode::Char(c), KeyModifiers::CONTROL);
+}
+
+fn type_text(app: &mut App, runner: &mut Runner, text: &str) {
+    for c in text.chars() {
+        let modifiers = if c.is_ascii_uppercase() {
+            KeyModifiers::SHIFT
+        } else {
+            KeyModifiers::NONE
+        };
+        press(app, runner, KeyCode::Char(c), modifiers);
+    }
+}
+
+fn screen(app: &App, width: u16, height: u16) -> String {
+    let mut terminal = Terminal::new(TestBackend::new(width, height)).unwrap();
+    terminal.draw(|frame| views::render(app, frame)).unwrap();
+    let buffer = terminal.backend().buffer().clone();
+    let mut text = String::new();
+    for y in 0..height {
+        for x in 0..width {
+            text.push_str(buffer[(x, y)].symbol());
+        }
+        text.push('\n');
+    }
+    text
+}
+
+fn on_disk(app: &App) -> String {
+    std::fs::read_to_string(&app.session.sheet_path).unwrap()
+}
+
+#[test]
+fn typing_a_full_test_into_a_new_row_saves_exactly_what_was_typed() {
+    let dir = tempfile::tempdir().unwrap();
+    let mut app = workbench(dir.path(), HEADER);
+    let mut runner = Runner::new();
+    ctrl(&mut app, &mut runner, 'n');
+    // test, date, time, residual node (completed by Tab from a prefix), flow node, static, residual,
+    // flow (blank), pitot, outlet.
+    for (text, tab) in [
+        ("T9", 1),
+        ("2024-06-01", 1),
+        ("08:30", 1),
+        ("J-10", 2),
+        ("J-103", 1),
+        ("60", 1),
+        ("45", 1),
+        ("", 1),
+        ("25", 1),
+        ("2.5", 1),
+    ] {
+        type_text(&mut app, &mut runner, text);
+        for _ in 0..tab {
+            key(&mut app, &mut runner, KeyCode::Tab);
+        }
+    }
+    // `J-10` + Tab completed to the first junction with that prefix, a second Tab committed it.
+    assert_eq!(
+        app.session.sheet.cell(0, SheetColumn::ResidualNode),
+        Some("J-101")
+    );
+    let expected = format!("{HEADER}T9,2024-06-01,08:30,J-101,J-103,60,45,,25,2.5,,,\n");
+    assert_eq!(on_disk(&app), expected);
+    let reading = &app.readings.rows[0];
+    assert!(reading.usable, "{:?}", reading.findings);
+    // NFPA 291: Q = 29.83 c d^2 sqrt(p) with c = 0.9 (the default outlet) -> 29.83*0.9*6.25*5 = 839 gpm.
+    let flow = reading.total_flow.unwrap();
+    assert!((flow - 29.83 * 0.9 * 6.25 * 5.0).abs() < 2.0, "{flow}");
+    assert!(screen(&app, 80, 24).contains("~839"));
+}
+
+#[test]
+fn undo_and_redo_every_kind_of_edit() {
+    let dir = tempfile::tempdir().unwrap();
+    let start = format!("{HEADER}A1,,,J-102,J-103,56,41,700,,,,,\n");
+    let mut app = workbench(dir.path(), &start);
+    let mut runner = Runner::new();
+    // Edit the static pressure: move right five columns, type, Enter.
+    for _ in 0..5 {
+        key(&mut app, &mut runner, KeyCode::Char('l'));
+    }
+    type_text(&mut app, &mut runner, "58");
+    key(&mut app, &mut runner, KeyCode::Enter);
+    let edited = format!("{HEADER}A1,,,J-102,J-103,58,41,700,,,,,\n");
+    assert_eq!(on_disk(&app), edited);
+    ctrl(&mut app, &mut runner, 'n');
+    let added = format!("{edited},,,,,,,,,,,,\n");
+    assert_eq!(on_disk(&app), added);
+    ctrl(&mut app, &mut runner, 'z');
+    assert_eq!(on_disk(&app), edited);
+    ctrl(&mut app, &mut runner, 'z');
+    assert_eq!(on_disk(&app), start);
+    ctrl(&mut app, &mut runner, 'y');
+    assert_eq!(on_disk(&app), edited);
+    ctrl(&mut app, &mut runner, 'y');
+    assert_eq!(on_disk(&app), added);
+    // Nothing left to redo: the state stays.
+    ctrl(&mut app, &mut runner, 'y');
+    assert_eq!(on_disk(&app), added);
+    assert_eq!(app.readings.rows.len(), 2);
+}
+
+#[test]
+fn a_bad_value_is_flagged_with_its_reason_while_typing() {
+    let dir = tempfile::tempdir().unwrap();
+    let start = format!("{HEADER}A1,,,J-102,J-103,56,41,700,,,,,\n");
+    let mut app = workbench(dir.path(), &start);
+    let mut runner = Runner::new();
+    for _ in 0..6 {
+        key(&mut app, &mut runner, KeyCode::Right);
+    }
+    // A residual above the static: flagged before Enter, from the edit preview.
+    type_text(&mut app, &mut runner, "61");
+    let preview = app.row_reading(0).unwrap();
+    assert!(!preview.usable);
+    key(&mut app, &mut runner, KeyCode::Enter);
+    key(&mut app, &mut runner, KeyCode::Up);
+    let text = screen(&app, 80, 24);
+    assert!(text.contains("x A1"), "{text}");
+    assert!(
+        text.contains("residual 61 psi is not below static 56 psi"),
+        "{text}"
+    );
+    // A node that is not in the network.
+    key(&mut app, &mut runner, KeyCode::Home);
+    for _ in 0..3 {
+        key(&mut app, &mut runner, KeyCode::Char('l'));
+    }
+    type_text(&mut app, &mut runner, "Z-9");
+    key(&mut app, &mut runner, KeyCode::Esc);
+    assert_eq!(
+        app.session.sheet.cell(0, SheetColumn::ResidualNode),
+        Some("J-102")
+    );
+    type_text(&mut app, &mut runner, "Z-9");
+    key(&mut app, &mut runner, KeyCode::Enter);
+    key(&mut app, &mut runner, KeyCode::Up);
+    let text = screen(&app, 80, 24);
+    assert!(text.contains("node Z-9 is not in the network"), "{text}");
+}
+
+#[test]
+fn a_row_added_and_deleted_with_confirmation() {
+    let dir = tempfile::tempdir().unwrap();
+    let start =
+        format!("{HEADER}A1,,,J-102,J-103,56,41,700,,,,,\nA2,,,J-104,J-106,62,44,800,,,,,\n");
+    let mut app = workbench(dir.path(), &start);
+    let mut runner = Runner::new();
+    key(&mut app, &mut runner, KeyCode::Insert);
+    assert_eq!(app.readings.row, 1);
+    type_text(&mut app, &mut runner, "NEW");
+    key(&mut app, &mut runner, KeyCode::Enter);
+    assert_eq!(
+        on_disk(&app),
+        format!(
+            "{HEADER}A1,,,J-102,J-103,56,41,700,,,,,\nNEW,,,,,,,,,,,,\nA2,,,J-104,J-106,62,44,800,,,,,\n"
+        )
+    );
+    // Delete A2 (the cursor went down after Enter); `n` keeps it, `y` deletes it.
+    ctrl(&mut app, &mut runner, 'd');
+    assert!(screen(&app, 80, 24).contains("delete row 3 (A2)? (y/n)"));
+    key(&mut app, &mut runner, KeyCode::Char('n'));
+    assert_eq!(app.session.sheet.row_count(), 3);
+    ctrl(&mut app, &mut runner, 'd');
+    key(&mut app, &mut runner, KeyCode::Char('y'));
+    assert_eq!(
+        on_disk(&app),
+        format!("{HEADER}A1,,,J-102,J-103,56,41,700,,,,,\nNEW,,,,,,,,,,,,\n")
+    );
+    assert_eq!(app.readings.rows.len(), 2);
+}
+
+#[test]
+fn opening_real_files_keeps_the_original_on_the_first_edit() {
+    let dir = tempfile::tempdir().unwrap();
+    let start = format!("{HEADER}A1,,,J-102,J-103,56,41,700,,,,,\n");
+    let app = workbench(dir.path(), &start);
+    let mut app = App::new(
+        open_files(&app.session.network_path, &app.session.sheet_path).unwrap(),
+        Theme { no_color: false },
+    );
+    let mut runner = Runner::new();
+    type_text(&mut app, &mut runner, "B1");
+    key(&mut app, &mut runner, KeyCode::Enter);
+    key(&mut app, &mut runner, KeyCode::Right);
+    type_text(&mut app, &mut runner, "X");
+    key(&mut app, &mut runner, KeyCode::Enter);
+    let original = storage::original_copy_path(&app.session.sheet_path);
+    assert_eq!(std::fs::read_to_string(original).unwrap(), start);
+    assert!(on_disk(&app).contains("B1,"));
+}
+
+#[test]
+fn a_failing_save_keeps_the_previous_sheet_and_says_so() {
+    let dir = tempfile::tempdir().unwrap();
+    let start = format!("{HEADER}A1,,,J-102,J-103,56,41,700,,,,,\n");
+    let mut app = workbench(dir.path(), &start);
+    let mut runner = Runner::with_writer(Box::new(|path, bytes| {
+        storage::write_atomic_with(path, |file| {
+            file.write_all(&bytes[..bytes.len() / 2])?;
+            Err(std::io::Error::other("disk full (injected)"))
+        })
+    }));
+    type_text(&mut app, &mut runner, "B1");
+    key(&mut app, &mut runner, KeyCode::Enter);
+    assert_eq!(on_disk(&app), start);
+    assert_eq!(app.session.sheet.cell(0, SheetColumn::Test), Some("B1"));
+    let text = screen(&app, 80, 24);
+    assert!(text.contains("NOT SAVED: "), "{text}");
+    assert!(text.contains("disk full (injected)"), "{text}");
+    // No temporary file is left beside the sheet.
+    let names: Vec<String> = std::fs::read_dir(dir.path())
+        .unwrap()
+        .map(|e| e.unwrap().file_name().to_string_lossy().into_owned())
+        .collect();
+    assert!(names.iter().all(|n| !n.ends_with(".tmp")), "{names:?}");
+}
+
+#[test]
+fn every_view_renders_at_80_by_24() {
+    let dir = tempfile::tempdir().unwrap();
+    let mut app = workbench(dir.path(), SHEET);
+    let mut runner = Runner::new();
+    let readings = screen(&app, 80, 24);
+    assert!(readings.contains("1 Readings"));
+    assert!(readings.contains("resid at"));
+    assert!(readings.contains("D2"));
+    assert!(readings.contains("^R fit"));
+    key(&mut app, &mut runner, KeyCode::F(3));
+    let groups = screen(&app, 80, 24);
+    assert!(
+        groups.contains("ci-1950") && groups.contains("di-1985"),
+        "{groups}"
+    );
+    assert!(groups.contains("start C"));
+    key(&mut app, &mut runner, KeyCode::F(4));
+    assert!(screen(&app, 80, 24).contains("no fit yet"));
+    key(&mut app, &mut runner, KeyCode::F(5));
+    let map = screen(&app, 80, 24);
+    assert!(map.contains("shading: group"), "{map}");
+    assert!(map.contains("test D1 (1/3)"), "{map}");
+    key(&mut app, &mut runner, KeyCode::Char('?'));
+    let help = screen(&app, 80, 24);
+    assert!(help.contains("Ctrl+R"), "{help}");
+    assert!(help.contains("licensed engineer"), "{help}");
+    key(&mut app, &mut runner, KeyCode::Esc);
+    assert!(!app.help);
+}
+
+#[test]
+fn no_color_draws_without_any_colour() {
+    let dir = tempfile::tempdir().unwrap();
+    let start = format!("{HEADER}A1,,,J-102,J-103,56,61,700,,,,,\n");
+    let mut app = workbench(dir.path(), &start);
+    app.theme = Theme { no_color: true };
+    for view in View::ALL {
+        app.view = view;
+        let mut terminal = Terminal::new(TestBackend::new(80, 24)).unwrap();
+        terminal.draw(|frame| views::render(&app, frame)).unwrap();
+        let buffer = terminal.backend().buffer();
+        for cell in buffer.content() {
+            assert_eq!(cell.fg, ratatui::style::Color::Reset, "{view:?}");
+            assert_eq!(cell.bg, ratatui::style::Color::Reset, "{view:?}");
+        }
+    }
+}
+
+#[test]
+fn groups_edits_are_written_into_the_network_file() {
+    let dir = tempfile::tempdir().unwrap();
+    let mut app = workbench(dir.path(), SHEET);
+    let mut runner = Runner::new();
+    key(&mut app, &mut runner, KeyCode::F(3));
+    // Cursor on ci-1950; to max (start C -> min -> max), type 125, Enter; then Space locks.
+    key(&mut app, &mut runner, KeyCode::Right);
+    key(&mut app, &mut runner, KeyCode::Right);
+    type_text(&mut app, &mut runner, "125");
+    key(&mut app, &mut runner, KeyCode::Enter);
+    key(&mut app, &mut runner, KeyCode::Up);
+    key(&mut app, &mut runner, KeyCode::Char(' '));
+    let text = std::fs::read_to_string(&app.session.network_path).unwrap();
+    assert!(text.contains("max = 125"), "{:?}", app.message);
+    assert!(text.contains(
+        "name = \"ci-1950\"  # unlined cast iron laid around 1950\nmin = 40.0\nmax = 125"
+    ));
+    assert!(app.session.network.groups[0].locked);
+    assert_eq!(app.session.network.groups[0].max_c, 125.0);
+    // Crossed bounds are refused with the reason, and nothing is written.
+    key(&mut app, &mut runner, KeyCode::Left);
+    type_text(&mut app, &mut runner, "130");
+    key(&mut app, &mut runner, KeyCode::Enter);
+    assert!(screen(&app, 80, 24).contains("must be below max"));
+    assert_eq!(
+        std::fs::read_to_string(&app.session.network_path).unwrap(),
+        text
+    );
+}
+
+#[test]
+fn the_fit_runs_on_a_worker_and_can_be_cancelled() {
+    let dir = tempfile::tempdir().unwrap();
+    let mut app = workbench(dir.path(), SHEET);
+    let mut runner = Runner::new();
+    ctrl(&mut app, &mut runner, 'r');
+    assert!(app.fit.running.is_some());
+    assert_eq!(app.view, View::Fit);
+    let actions = runner.wait_for_worker(Duration::from_secs(60));
+    let progress = actions
+        .iter()
+        .filter(|a| matches!(a, Action::CalibrationProgress(_)))
+        .count();
+    assert!(progress > 0);
+    assert!(matches!(
+        actions.last(),
+        Some(Action::CalibrationFinished(_))
+    ));
+    for action in actions {
+        dispatch(&mut app, &mut runner, action);
+    }
+    assert!(app.fit.running.is_none());
+    let outcome = app.fit.outcome.as_ref().expect("a result");
+    assert_eq!(outcome.result.tests.len(), 3);
+    assert_eq!(outcome.result.iterations.len(), progress);
+    let fit = screen(&app, 80, 24);
+    assert!(fit.contains("RMSE"), "{fit}");
+    assert!(fit.contains("modelled vs measured"), "{fit}");
+
+    // Cancel: the flag is set before the worker can finish, so it stops with Cancelled and the earlier
+    // result stays.
+    dispatch(&mut app, &mut runner, Action::RunCalibration);
+    dispatch(&mut app, &mut runner, Action::CancelCalibration);
+    for action in runner.wait_for_worker(Duration::from_secs(60)) {
+        dispatch(&mut app, &mut runner, action);
+    }
+    assert!(app.fit.running.is_none());
+    assert!(app.fit.outcome.is_some());
+    assert!(app.message.as_ref().unwrap().text.contains("cancelled"));
+
+    // Export twice: the second asks before overwriting.
+    ctrl(&mut app, &mut runner, 'e');
+    let folder = app.export_folder.clone().expect("exported");
+    assert!(folder.join("coefficients.csv").exists());
+    assert!(
+        std::fs::read_to_string(folder.join("report.md"))
+            .unwrap()
+            .contains("licensed engineer")
+    );
+    ctrl(&mut app, &mut runner, 'e');
+    assert!(app.confirm.is_some());
+    key(&mut app, &mut runner, KeyCode::Char('y'));
+    assert!(app.confirm.is_none());
+    assert!(app.message.as_ref().unwrap().text.contains("exported ("));
+}
+
+#[test]
+fn the_demo_opens_on_a_scratch_copy() {
+    let dir = tempfile::tempdir().unwrap();
+    let app = App::new(
+        demo_in(&dir.path().join("demo")).unwrap(),
+        Theme { no_color: false },
+    );
+    assert_eq!(app.session.sheet.row_count(), 18);
+    assert!(app.session.sheet_path.starts_with(dir.path()));
+    // The mistyped node of AF-18 is flagged; the weak AF-17 is kept with a warning.
+    assert!(!app.readings.rows[17].usable);
+    assert!(app.readings.rows[16].usable);
+    assert!(app.usable_count() >= 15);
+    assert!(demo_folder().ends_with(format!("roughcal-demo-{}", std::process::id())));
+}
+
+#[test]
+fn a_new_sheet_refuses_an_existing_file() {
+    let dir = tempfile::tempdir().unwrap();
+    let app = workbench(dir.path(), SHEET);
+    let refused = roughcal::tui::new_sheet(&app.session.network_path, &app.session.sheet_path);
+    assert!(matches!(
+        refused,
+        Err(roughcal::tui::OpenError::SheetExists { .. })
+    ));
+    let fresh = dir.path().join("fresh.csv");
+    let session = roughcal::tui::new_sheet(&app.session.network_path, &fresh).unwrap();
+    assert_eq!(session.sheet.row_count(), 0);
+    assert_eq!(
+        std::fs::read_to_string(&fresh).unwrap(),
+        std::fs::read_to_string(concat!(
+            env!("CARGO_MANIFEST_DIR"),
+            "/field-sheets/template.csv"
+        ))
+        .unwrap()
+    );
+}
