@@ -17,7 +17,9 @@ use roughcal::network::{Network, RoughnessGroup};
 
 fn solve_benches(c: &mut Criterion) {
     let mut group = c.benchmark_group("solve");
-    group.sample_size(10).measurement_time(Duration::from_secs(8));
+    group
+        .sample_size(10)
+        .measurement_time(Duration::from_secs(8));
     for junctions in [10_000usize, 90_000] {
         let net = looped_city(junctions, 7);
         let state = OperatingState::base(&net);
@@ -96,7 +98,9 @@ fn synthetic_tests(truth: &Network, count: usize) -> Vec<CalibrationTest> {
 
 fn calibration_benches(c: &mut Criterion) {
     let mut group = c.benchmark_group("calibrate");
-    group.sample_size(10).measurement_time(Duration::from_secs(10));
+    group
+        .sample_size(10)
+        .measurement_time(Duration::from_secs(10));
 
     let root = env!("CARGO_MANIFEST_DIR");
     let net_text = std::fs::read_to_string(format!("{root}/demo-network/district.toml")).unwrap();
@@ -109,7 +113,9 @@ fn calibration_benches(c: &mut Criterion) {
     let options = CalibrationOptions::for_units(net.units);
     group.bench_function("demo", |b| {
         b.iter(|| {
-            black_box(calibrate(&net, &tests, &options, &mut |_| {}, &AtomicBool::new(false)).unwrap())
+            black_box(
+                calibrate(&net, &tests, &options, &mut |_| {}, &AtomicBool::new(false)).unwrap(),
+            )
         })
     });
 
@@ -127,8 +133,14 @@ fn calibration_benches(c: &mut Criterion) {
         group.bench_function(format!("20k-pipes-8-groups/{count}-tests"), |b| {
             b.iter(|| {
                 black_box(
-                    calibrate(&model, &tests, &options, &mut |_| {}, &AtomicBool::new(false))
-                        .unwrap(),
+                    calibrate(
+                        &model,
+                        &tests,
+                        &options,
+                        &mut |_| {},
+                        &AtomicBool::new(false),
+                    )
+                    .unwrap(),
                 )
             })
         });

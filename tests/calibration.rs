@@ -393,3 +393,22 @@ fn progress_is_reported_and_cancel_stops_the_run() {
         roughcal::calibrate::CalibrationError::Cancelled
     );
 }
+
+#[test]
+fn groups_not_fitted_keep_each_pipes_own_c() {
+    // A locked group whose pipes differ in C must come back pipe for pipe, not at a group average.
+    let truth = grid_network([72.0, 118.0, 100.0]);
+    let tests = synthetic_tests(&truth, &PLAN, &[]);
+    let mut model = grid_network([100.0, 100.0, 100.0]);
+    let feeds: Vec<usize> = (0..model.pipes.len())
+        .filter(|&k| model.pipes[k].group == Some(3))
+        .collect();
+    model.pipes[feeds[1]].c_factor = 115.0;
+    let result = run(
+        &model,
+        &tests,
+        &CalibrationOptions::for_units(UnitSystem::Us),
+    );
+    assert_eq!(result.pipe_c_after[feeds[0]], 130.0);
+    assert_eq!(result.pipe_c_after[feeds[1]], 115.0);
+}

@@ -91,7 +91,17 @@ impl<'a> Evaluator<'a> {
         group_c: &[f64],
         sensitivities: bool,
     ) -> Result<Vec<TestEvaluation>, SolveError> {
-        let c = self.pipe_c_factors(group_c);
+        self.evaluate_pipes(&self.pipe_c_factors(group_c), sensitivities)
+    }
+
+    /// Solves every test with the C of every pipe given (groups that are not being fitted keep each
+    /// pipe's own C, which need not be equal within a group).
+    pub fn evaluate_pipes(
+        &self,
+        c: &[f64],
+        sensitivities: bool,
+    ) -> Result<Vec<TestEvaluation>, SolveError> {
+        let c = c.to_vec();
         let statics: Vec<Solution> = self
             .static_states
             .iter()

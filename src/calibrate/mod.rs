@@ -283,7 +283,8 @@ pub fn calibrate(
     let all_pipes: Vec<Vec<usize>> = candidates.iter().map(|c| c.pipes.clone()).collect();
     let start_c: Vec<f64> = candidates.iter().map(|c| c.start_c).collect();
     let screening = evaluate::Evaluator::new(net, tests, all_pipes)?;
-    let start_eval = screening.evaluate(&start_c, true)?;
+    // The start is the network as written, pipe by pipe.
+    let start_eval = screening.evaluate_pipes(&net.c_factors(), true)?;
     check_gauges_connected(tests, &start_eval)?;
     let (_, start_rows) =
         evaluate::residual_rows(tests, &start_eval, options.fit, options.gauge_sd_m);
@@ -324,7 +325,14 @@ pub fn calibrate(
             final_c[g] = outcome.fitted_c[slot];
         }
     }
-    let final_eval = screening.evaluate(&final_c, true)?;
+    // After the fit only the fitted groups change; every other pipe keeps its own C.
+    let mut pipe_c_after = net.c_factors();
+    for &g in &fitted {
+        for &k in &candidates[g].pipes {
+            pipe_c_after[k] = final_c[g];
+        }
+    }
+    let final_eval = screening.evaluate_pipes(&pipe_c_after, true)?;
     check_gauges_connected(tests, &final_eval)?;
     let (final_residuals, final_rows) =
         evaluate::residual_rows(tests, &final_eval, options.fit, options.gauge_sd_m);
@@ -362,7 +370,7 @@ pub fn calibrate(
         iterations,
         converged,
         termination,
-        pipe_c_after: screening.pipe_c_factors(&final_c),
+        pipe_c_after,
         fit: options.fit,
         reduced_chi_square: report.reduced_chi_square,
     })
