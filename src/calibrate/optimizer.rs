@@ -279,10 +279,9 @@ pub fn run(
                 ));
             };
             let (converged, termination) = match status {
-                TerminationStatus::Terminated(TerminationReason::SolverConverged) => (
-                    true,
-                    "converged: the residual norm stopped changing".to_string(),
-                ),
+                TerminationStatus::Terminated(TerminationReason::SolverConverged) => {
+                    (true, "the residual norm stopped changing".to_string())
+                }
                 TerminationStatus::Terminated(TerminationReason::MaxItersReached) => (
                     false,
                     format!(
