@@ -9,6 +9,7 @@ use crossterm::event::{KeyCode, KeyEvent, KeyModifiers};
 use ratatui::Terminal;
 use ratatui::backend::TestBackend;
 use roughcal::fieldtest::SheetColumn;
+use roughcal::report::{COEFFICIENTS_CSV, OUTPUT_FILES, REPORT_MD};
 use roughcal::storage;
 use roughcal::tui::app::{Action, View};
 use roughcal::tui::keymap::action_for_key;
@@ -389,20 +390,72 @@ fn the_fit_runs_on_a_worker_and_can_be_cancelled() {
     assert!(app.fit.outcome.is_some());
     assert!(app.message.as_ref().unwrap().text.contains("cancelled"));
 
-    // Export twice: the second asks before overwriting.
+    // The export writes the five outputs of `calibrate --out`, byte for byte what the command writes
+    // for the same files, into a fresh numbered folder beside the sheet.
     ctrl(&mut app, &mut runner, 'e');
     let folder = app.export_folder.clone().expect("exported");
-    assert!(folder.join("coefficients.csv").exists());
-    assert!(
-        std::fs::read_to_string(folder.join("report.md"))
-            .unwrap()
-            .contains("licensed engineer")
-    );
+    assert_eq!(folder, dir.path().join("roughcal-export-1"));
+    assert!(app.message.as_ref().unwrap().text.contains("exported ("));
+    let command_folder = dir.path().join("command-out");
+    let command = std::process::Command::new(env!("CARGO_BIN_EXE_roughcal"))
+        .arg("calibrate")
+        .arg(&app.session.network_path)
+        .arg(&app.session.sheet_path)
+        .arg("--out")
+        .arg(&command_folder)
+        .output()
+        .unwrap();
+    assert!(command.status.success(), "{command:?}");
+    for name in OUTPUT_FILES {
+        let exported = std::fs::read_to_string(folder.join(name)).unwrap();
+        assert!(!exported.is_empty(), "{name} is empty");
+        assert_eq!(
+            exported,
+            std::fs::read_to_string(command_folder.join(name)).unwrap(),
+            "{name} differs from what `calibrate --out` writes"
+        );
+    }
+    let report = std::fs::read_to_string(folder.join(REPORT_MD)).unwrap();
+    assert!(report.contains("licensed engineer"));
+
+    // A second export into the same folder asks first and writes nothing until the answer is yes.
+    let marked = folder.join(COEFFICIENTS_CSV);
+    std::fs::write(&marked, "kept").unwrap();
+    let before: Vec<(String, std::time::SystemTime)> = OUTPUT_FILES
+        .iter()
+        .map(|name| {
+            let path = folder.join(name);
+            let modified = std::fs::metadata(&path).unwrap().modified().unwrap();
+            (std::fs::read_to_string(&path).unwrap(), modified)
+        })
+        .collect();
+    let unchanged = || {
+        OUTPUT_FILES
+            .iter()
+            .zip(&before)
+            .all(|(name, (text, modified))| {
+                let path = folder.join(name);
+                std::fs::read_to_string(&path).unwrap() == *text
+                    && std::fs::metadata(&path).unwrap().modified().unwrap() == *modified
+            })
+    };
     ctrl(&mut app, &mut runner, 'e');
     assert!(app.confirm.is_some());
+    assert!(app.message.as_ref().unwrap().text.contains("overwrite"));
+    assert!(unchanged());
+    key(&mut app, &mut runner, KeyCode::Char('n'));
+    assert!(app.confirm.is_none());
+    assert!(unchanged());
+    // No other folder appeared either: the network, the sheet and the two output folders.
+    assert_eq!(std::fs::read_dir(dir.path()).unwrap().count(), 4);
+    ctrl(&mut app, &mut runner, 'e');
     key(&mut app, &mut runner, KeyCode::Char('y'));
     assert!(app.confirm.is_none());
     assert!(app.message.as_ref().unwrap().text.contains("exported ("));
+    assert_eq!(
+        std::fs::read_to_string(&marked).unwrap(),
+        std::fs::read_to_string(command_folder.join(COEFFICIENTS_CSV)).unwrap()
+    );
 }
 
 #[test]

@@ -8,15 +8,14 @@ use std::collections::{BTreeMap, HashMap};
 use std::path::PathBuf;
 
 use crate::calibrate::{
-    CAUTION, CalibrationError, CalibrationOptions, CalibrationResult, CalibrationTest,
-    IterationReport,
+    CalibrationError, CalibrationOptions, CalibrationResult, CalibrationTest, IterationReport,
 };
-use crate::fieldtest::{FieldSheet, SheetColumn};
+use crate::fieldtest::{ExcludedTest, FieldSheet, SheetColumn};
 use crate::network::edit::{GroupUpdate, apply_group_c, update_groups};
 use crate::network::file::parse_network;
 use crate::network::{DEFAULT_GROUP_MAX_C, DEFAULT_GROUP_MIN_C, Network};
+use crate::report::{CalibrationOutputs, RunContext};
 
-use super::export_adapter::ExportJob;
 use super::layout;
 use super::map_model::{MapGeometry, MapShading, Point, pipe_ends, pipe_shades};
 use super::sheet_reading::{self, RowReading};
@@ -210,11 +209,11 @@ pub struct GroupsState {
 }
 
 /// A calibration run in progress.
-#[derive(Debug, Clone, Default)]
+#[derive(Debug, Clone)]
 pub struct RunningFit {
     pub iterations: Vec<IterationReport>,
-    /// The tests the run was given.
-    pub tests: Vec<CalibrationTest>,
+    /// What the run was given.
+    pub job: CalibrationJob,
     pub cancelling: bool,
 }
 
@@ -222,7 +221,8 @@ pub struct RunningFit {
 #[derive(Debug, Clone)]
 pub struct FitOutcome {
     pub result: CalibrationResult,
-    pub tests: Vec<CalibrationTest>,
+    /// The network, tests and options of the run: the export describes these, not later edits.
+    pub job: CalibrationJob,
     /// Pipe C before the fit, in pipe order.
     pub pipe_c_before: Vec<f64>,
     /// Indices into `result.tests`, largest absolute error after the fit first.
@@ -352,12 +352,27 @@ pub enum SaveTarget {
     Network,
 }
 
-/// A calibration to start.
+/// A calibration to start, with everything the export later needs to describe the run.
 #[derive(Debug, Clone)]
 pub struct CalibrationJob {
     pub network: Network,
+    /// The network file's text the run started from (the calibrated network is written into it).
+    pub network_text: String,
     pub tests: Vec<CalibrationTest>,
+    /// The sheet's tests left out of the fit, and why.
+    pub excluded: Vec<ExcludedTest>,
     pub options: CalibrationOptions,
+}
+
+/// An export to write.
+#[derive(Debug, Clone)]
+pub struct ExportJob {
+    /// The folder, or with `numbered` the stem of `<folder>-<n>` (first free n).
+    pub folder: PathBuf,
+    pub numbered: bool,
+    /// Overwrite outputs already in the folder (only after the user said yes).
+    pub force: bool,
+    pub outputs: CalibrationOutputs,
 }
 
 /// What the runner is asked to do.
@@ -484,6 +499,7 @@ impl App {
         let position = |j: usize| net.junctions.get(j).and_then(|j| j.position);
         match &self.fit.outcome {
             Some(outcome) => outcome
+                .job
                 .tests
                 .iter()
                 .enumerate()
@@ -793,7 +809,11 @@ fn confirm(app: &mut App, yes: bool, effects: &mut Vec<Effect>) {
             ));
             effects.push(app.sheet_save());
         }
-        Confirm::OverwriteExport(_) => export(app, true, effects),
+        Confirm::OverwriteExport(folder) => {
+            // The question was about this folder: the forced export goes there and nowhere else.
+            app.export_folder = Some(folder);
+            export(app, true, effects);
+        }
     }
 }
 
@@ -1221,23 +1241,30 @@ fn run_calibration(app: &mut App, effects: &mut Vec<Effect>) {
         app.info("a fit is already running (Esc cancels it)");
         return;
     }
-    let tests = sheet_reading::usable_tests(&app.session.sheet, &app.session.network);
+    let (tests, excluded) = sheet_reading::fit_tests(&app.session.sheet, &app.session.network);
     if tests.is_empty() {
         app.error("no usable test on the sheet: fix the flagged rows first");
         return;
     }
-    app.fit.running = Some(RunningFit {
-        tests: tests.clone(),
-        ..RunningFit::default()
-    });
+    let job = CalibrationJob {
+        network: app.session.network.clone(),
+        network_text: app.session.network_text.clone(),
+        tests,
+        excluded,
+        options: CalibrationOptions::for_units(app.session.network.units),
+    };
     app.fit.failure = None;
     app.view = View::Fit;
-    app.info(format!("fitting {} tests... (Esc cancels)", tests.len()));
-    effects.push(Effect::StartCalibration(Box::new(CalibrationJob {
-        network: app.session.network.clone(),
-        tests,
-        options: CalibrationOptions::for_units(app.session.network.units),
-    })));
+    app.info(format!(
+        "fitting {} tests... (Esc cancels)",
+        job.tests.len()
+    ));
+    app.fit.running = Some(RunningFit {
+        iterations: Vec::new(),
+        job: job.clone(),
+        cancelling: false,
+    });
+    effects.push(Effect::StartCalibration(Box::new(job)));
 }
 
 fn finish_calibration(app: &mut App, result: Result<CalibrationResult, CalibrationError>) {
@@ -1258,7 +1285,7 @@ fn finish_calibration(app: &mut App, result: Result<CalibrationResult, Calibrati
             let termination = result.termination.clone();
             app.fit.outcome = Some(FitOutcome {
                 pipe_c_before: app.session.network.c_factors(),
-                tests: running.tests,
+                job: running.job,
                 result,
                 by_error,
             });
@@ -1285,6 +1312,25 @@ fn export(app: &mut App, force: bool, effects: &mut Vec<Effect>) {
         app.error("nothing to export yet: run the fit first (Ctrl+R)");
         return;
     };
+    let job = &outcome.job;
+    let network_file = app.session.network_path.display().to_string();
+    let sheet_file = app.session.sheet_path.display().to_string();
+    let run = RunContext {
+        network: &job.network,
+        network_file: &network_file,
+        sheet_file: &sheet_file,
+        options: &job.options,
+        tests: &job.tests,
+        excluded: &job.excluded,
+        result: &outcome.result,
+    };
+    let outputs = match CalibrationOutputs::build(&run, &job.network_text) {
+        Ok(outputs) => outputs,
+        Err(e) => {
+            app.error(format!("export failed: {e}"));
+            return;
+        }
+    };
     let folder = app.export_folder.clone().unwrap_or_else(|| {
         let base = app
             .session
@@ -1298,11 +1344,7 @@ fn export(app: &mut App, force: bool, effects: &mut Vec<Effect>) {
         folder,
         numbered: app.export_folder.is_none(),
         force,
-        result: outcome.result.clone(),
-        network: app.session.network.clone(),
-        network_text: app.session.network_text.clone(),
-        stale: app.fit.stale,
-        caution: CAUTION,
+        outputs,
     })));
     app.info("exporting...");
 }

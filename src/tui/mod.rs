@@ -7,7 +7,6 @@
 
 pub mod app;
 pub mod demo;
-pub mod export_adapter;
 pub mod keymap;
 pub mod layout;
 pub mod map_model;

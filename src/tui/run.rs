@@ -3,7 +3,7 @@
 
 use std::collections::VecDeque;
 use std::io;
-use std::path::Path;
+use std::path::{Path, PathBuf};
 use std::time::Duration;
 
 use crossterm::event::{self, Event};
@@ -14,11 +14,11 @@ use crossterm::terminal::{
 use ratatui::Terminal;
 use ratatui::backend::CrosstermBackend;
 
-use super::app::{Action, App, Effect, SaveTarget, update};
-use super::export_adapter::{ExportFailure, write_export};
+use super::app::{Action, App, Effect, ExportJob, SaveTarget, update};
 use super::keymap::action_for_key;
 use super::views;
 use super::worker::CalibrationWorker;
+use crate::report::{OutputWriteError, write_outputs};
 use crate::storage::{self, WriteError};
 
 /// How files are written: [`storage::write_atomic`] normally; tests pass a failing one.
@@ -89,11 +89,7 @@ impl Runner {
                 }
                 Vec::new()
             }
-            Effect::WriteExport(job) => match write_export(&job) {
-                Ok(folder) => vec![Action::ExportFinished(Ok(folder))],
-                Err(ExportFailure::Exists(folder)) => vec![Action::ExportRefused(folder)],
-                Err(ExportFailure::Failed(message)) => vec![Action::ExportFinished(Err(message))],
-            },
+            Effect::WriteExport(job) => vec![write_export(&job)],
         }
     }
 
@@ -119,6 +115,34 @@ impl Runner {
         }
         actions
     }
+}
+
+/// Writes an export through [`write_outputs`] (the same files as `calibrate --out`) and reports it:
+/// outputs already in the folder without `force` come back as a question, not an error.
+fn write_export(job: &ExportJob) -> Action {
+    let folder = if job.numbered {
+        numbered_folder(&job.folder)
+    } else {
+        job.folder.clone()
+    };
+    match write_outputs(&folder, &job.outputs, job.force) {
+        Ok(_) => Action::ExportFinished(Ok(folder)),
+        Err(OutputWriteError::Exists { folder, .. }) => Action::ExportRefused(folder),
+        Err(e) => Action::ExportFinished(Err(e.to_string())),
+    }
+}
+
+/// `<stem>-<n>` for the first n from 1 that names nothing yet, so a session's first export never
+/// lands on an earlier session's.
+fn numbered_folder(stem: &Path) -> PathBuf {
+    (1u32..)
+        .map(|n| {
+            let mut name = stem.as_os_str().to_owned();
+            name.push(format!("-{n}"));
+            PathBuf::from(name)
+        })
+        .find(|candidate| !candidate.exists())
+        .unwrap_or_else(|| stem.to_path_buf())
 }
 
 /// A failed write in few words, cause first, for the status line.

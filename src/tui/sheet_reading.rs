@@ -3,7 +3,7 @@
 
 use crate::calibrate::CalibrationTest;
 use crate::fieldtest::{
-    FieldSheet, Finding, Severity, SheetReading, calibration_tests, screen_sheet,
+    ExcludedTest, FieldSheet, Finding, Severity, SheetReading, calibration_tests, screen_sheet,
 };
 use crate::network::Network;
 
@@ -92,10 +92,10 @@ pub fn read_sheet(sheet: &FieldSheet, net: &Network) -> Vec<RowReading> {
         .collect()
 }
 
-/// The tests of `sheet` calibration may use, resolved against `net` (when a fit starts: resolving
-/// every node id costs more than a key press may).
-pub fn usable_tests(sheet: &FieldSheet, net: &Network) -> Vec<CalibrationTest> {
-    calibration_tests(net, &screen_sheet(sheet, Some(net))).0
+/// The tests of `sheet` calibration may use, resolved against `net`, and the ones left out with their
+/// reasons (when a fit starts: resolving every node id costs more than a key press may).
+pub fn fit_tests(sheet: &FieldSheet, net: &Network) -> (Vec<CalibrationTest>, Vec<ExcludedTest>) {
+    calibration_tests(net, &screen_sheet(sheet, Some(net)))
 }
 
 /// A sheet with `sheet`'s header and no rows, for [`preview_row`].

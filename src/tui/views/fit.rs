@@ -81,7 +81,10 @@ fn run_state(app: &App, frame: &mut Frame, area: Rect) {
             "running"
         };
         lines.push(Line::from(Span::styled(
-            format!("fit {word}: {} tests (Esc cancels)", running.tests.len()),
+            format!(
+                "fit {word}: {} tests (Esc cancels)",
+                running.job.tests.len()
+            ),
             theme.warning(),
         )));
         for report in running
