@@ -280,6 +280,7 @@ fn cli_outcomes(s: &Scratch) -> Vec<Outcome> {
         "loops iterations",
         &["loops", plain.to_str().unwrap(), "--iterations", "1"],
     ));
+    out.extend(apply_outcomes(s, net));
     out.push(s.run("demand form", &["solve", net, "--demand", "J-1"]));
     out.push(s.run("demand node", &["solve", net, "--demand", "J-9=100"]));
     out.push(s.run("demand number", &["solve", net, "--demand", "J-1=lots"]));
@@ -290,6 +291,93 @@ fn cli_outcomes(s: &Scratch) -> Vec<Outcome> {
     ));
     out.push(s.run("subcommand", &["slove", net]));
     out.push(s.run("missing argument", &["solve"]));
+    out
+}
+
+/// `apply` with coefficient sets that each carry one defect, then the refusals of the write.
+fn apply_outcomes(s: &Scratch, net: &str) -> Vec<Outcome> {
+    let valid = "[[group]]\nname = \"ci-1950\"\nc = 90\n";
+    let r = |from: &str, to: &str| {
+        assert!(valid.contains(from), "{from}");
+        valid.replacen(from, to, 1)
+    };
+    let sets: Vec<(&str, &str, String)> = vec![
+        ("set extension", "set.txt", valid.to_string()),
+        ("set toml syntax", "syntax.toml", r("ci-1950\"", "ci-1950")),
+        (
+            "set csv syntax",
+            "syntax.csv",
+            "group,fitted\nci-1950,90,extra\n".into(),
+        ),
+        (
+            "set unknown key",
+            "key.toml",
+            format!("title = \"x\"\n{valid}"),
+        ),
+        ("set number", "number.toml", r("c = 90", "c = \"90\"")),
+        (
+            "set boolean",
+            "boolean.toml",
+            format!("{valid}locked = \"yes\"\n"),
+        ),
+        ("set whole", "whole.toml", format!("{valid}tests = -1\n")),
+        ("set string", "string.toml", r("\"ci-1950\"", "12")),
+        ("set table", "table.toml", "group = [1]\n".into()),
+        ("set list", "list.toml", "group = \"ci-1950\"\n".into()),
+        ("set missing", "missing.toml", r("c = 90\n", "")),
+        ("set not positive", "negative.toml", r("c = 90", "c = -5")),
+        (
+            "set std_error",
+            "std-error.toml",
+            format!("{valid}std_error = -1\n"),
+        ),
+        (
+            "set bounds",
+            "bounds.toml",
+            format!("{valid}min = 90\nmax = 60\n"),
+        ),
+        ("set duplicate", "duplicate.toml", format!("{valid}{valid}")),
+        (
+            "set status",
+            "status.toml",
+            format!("{valid}status = \"great\"\n"),
+        ),
+        ("set empty", "empty.csv", String::new()),
+        (
+            "set unknown group",
+            "group.csv",
+            "group,fitted\npvc,140\n".into(),
+        ),
+    ];
+    let mut out = Vec::new();
+    for (label, name, text) in sets {
+        let path = s.file(name, text.as_bytes());
+        let outcome = s.run(
+            label,
+            &[
+                "apply",
+                net,
+                path.to_str().unwrap(),
+                "--out",
+                "applied.toml",
+            ],
+        );
+        assert!(outcome.refused, "{label} was accepted: {}", outcome.text);
+        out.push(outcome);
+    }
+    out.push(s.run(
+        "set missing file",
+        &["apply", net, "nowhere.toml", "--out", "applied.toml"],
+    ));
+    let set = s.file("set.toml", valid.as_bytes());
+    let set = set.to_str().unwrap();
+    let first = s.run("apply", &["apply", net, set, "--out", "applied.toml"]);
+    assert!(!first.refused, "{}", first.text);
+    out.push(s.run("apply again", &["apply", net, set, "--out", "applied.toml"]));
+    out.push(s.run(
+        "apply into a missing folder",
+        &["apply", net, set, "--out", "missing/applied.toml"],
+    ));
     out
 }
 

@@ -1,6 +1,6 @@
-//! Files somebody edited by hand or exported from a spreadsheet: the network loader, the sheet loader
-//! and what runs on what they accept must never panic or hang, and every rejection names the file and
-//! a line.
+//! Files somebody edited by hand or exported from a spreadsheet: the network loader, the sheet loader,
+//! the coefficient-set loader and what runs on what they accept must never panic or hang, and every
+//! rejection names the file and a line.
 //!
 //! The inputs: every prefix of a valid file, values replaced by wrong types, NaN, infinities, huge
 //! numbers, empty and duplicate ids, ids with odd Unicode (bidi marks, combining characters, NUL,
@@ -10,6 +10,9 @@ use proptest::prelude::*;
 use roughcal::fieldtest::{FieldSheet, screen_sheet};
 use roughcal::hydraulics::{GradientSolver, OperatingState};
 use roughcal::network::file::{NetworkFileError, parse_network};
+use roughcal::report::coefficients::{
+    CoefficientError, CoefficientSet, parse_coefficients_csv, parse_coefficients_toml,
+};
 
 /// A small valid network of our own: a tank, a booster, a loop, a check valve, a group, a condition.
 const NETWORK: &str = include_str!("data/base.toml");
@@ -154,6 +157,44 @@ fn value_spans(text: &str) -> Vec<(usize, usize)> {
     spans
 }
 
+/// `base` with `cut` bytes from `at` replaced by `junk`, read as lossy UTF-8.
+fn damaged(base: &str, at: usize, cut: usize, junk: &[u8]) -> String {
+    let mut bytes = base.as_bytes().to_vec();
+    let end = (at + cut).min(bytes.len());
+    bytes.splice(at..end, junk.iter().copied());
+    String::from_utf8_lossy(&bytes).into_owned()
+}
+
+/// `lines` as a CSV text, with cell `column` of line `row` (0 is the header) replaced by `value`.
+fn with_cell(lines: &[&str], row: usize, column: usize, value: &str) -> String {
+    let mut text = String::new();
+    for (r, line) in lines.iter().enumerate() {
+        if r == row {
+            let mut cells: Vec<&str> = line.split(',').collect();
+            cells[column] = value;
+            text.push_str(&cells.join(","));
+        } else {
+            text.push_str(line);
+        }
+        text.push('\n');
+    }
+    text
+}
+
+/// `header`, then every row with each cell quoted.
+fn quoted_rows(header: &str, rows: &[Vec<String>]) -> String {
+    let mut text = format!("{header}\n");
+    for cells in rows {
+        let quoted: Vec<String> = cells
+            .iter()
+            .map(|c| format!("\"{}\"", c.replace('"', "\"\"")))
+            .collect();
+        text.push_str(&quoted.join(","));
+        text.push('\n');
+    }
+    text
+}
+
 #[test]
 fn the_bases_are_valid() {
     let loaded = parse_network(NETWORK, "net.toml").unwrap();
@@ -240,7 +281,6 @@ fn duplicate_keys_and_entries() {
 #[test]
 fn every_hostile_value_in_every_sheet_cell() {
     let lines: Vec<&str> = SHEET.lines().collect();
-    let header = lines[0];
     for (row, line) in lines.iter().enumerate().skip(1) {
         let cells: Vec<&str> = line.split(',').collect();
         for column in 0..cells.len() {
@@ -268,19 +308,7 @@ fn every_hostile_value_in_every_sheet_cell() {
                 ";;;",
                 "1;",
             ] {
-                let mut changed = cells.clone();
-                changed[column] = value;
-                let mut text = String::from(header);
-                text.push('\n');
-                for (r, other) in lines.iter().enumerate().skip(1) {
-                    if r == row {
-                        text.push_str(&changed.join(","));
-                    } else {
-                        text.push_str(other);
-                    }
-                    text.push('\n');
-                }
-                assert_sheet_outcome(&text);
+                assert_sheet_outcome(&with_cell(&lines, row, column, value));
             }
         }
     }
@@ -341,10 +369,7 @@ proptest! {
         cut in 0usize..80,
         junk in prop::collection::vec(any::<u8>(), 0..24),
     ) {
-        let mut bytes = NETWORK.as_bytes().to_vec();
-        let end = (at + cut).min(bytes.len());
-        bytes.splice(at..end, junk);
-        assert_network_outcome(&String::from_utf8_lossy(&bytes));
+        assert_network_outcome(&damaged(NETWORK, at, cut, &junk));
     }
 
     #[test]
@@ -358,10 +383,7 @@ proptest! {
         cut in 0usize..40,
         junk in "[\\PC\u{0}\u{202e}\u{301};,\"\r\n]{0,12}",
     ) {
-        let mut text = SHEET.as_bytes().to_vec();
-        let end = (at + cut).min(text.len());
-        text.splice(at..end, junk.bytes());
-        assert_sheet_outcome(&String::from_utf8_lossy(&text));
+        assert_sheet_outcome(&damaged(SHEET, at, cut, junk.as_bytes()));
     }
 
     #[test]
@@ -376,15 +398,7 @@ proptest! {
             0..12,
         ),
     ) {
-        let mut text = SHEET.lines().next().unwrap().to_string();
-        text.push('\n');
-        for cells in rows {
-            let quoted: Vec<String> =
-                cells.iter().map(|c| format!("\"{}\"", c.replace('"', "\"\""))).collect();
-            text.push_str(&quoted.join(","));
-            text.push('\n');
-        }
-        assert_sheet_outcome(&text);
+        assert_sheet_outcome(&quoted_rows(SHEET.lines().next().unwrap(), &rows));
     }
 }
 
@@ -434,5 +448,371 @@ fn ids_with_hidden_characters_are_refused() {
     for id in ["J\u{301}-4", "\u{5d0}\u{5d1}-4", "\u{1f6b0}-4"] {
         let text = NETWORK.replace("\"J-4\"", &format!("\"{id}\""));
         assert!(parse_network(&text, "net.toml").is_ok(), "{id}");
+    }
+}
+
+/// A coefficient set as `calibrate` writes it: three groups, every key used once.
+const COEFFICIENTS_TOML: &str = "# roughcal coefficient set for net.toml
+[[group]]
+name = \"ci-1950\"
+c = 72.41370511
+min = 40.0
+max = 130.0
+locked = false
+start = 105.2
+std_error = 2.31
+ci_low = 67.9
+ci_high = 76.9
+tests = 5
+status = \"fitted\"
+
+[[group]]
+name = \"di-1990\"
+c = 130
+min = 60
+max = 150
+locked = true
+tests = 0
+status = \"locked\"
+
+[[group]]
+name = \"pvc\"
+c = 150.0
+status = \"at bound\"
+";
+
+const COEFFICIENTS_CSV: &str = "group,start,fitted,std_error,ci_low,ci_high,tests,status
+ci-1950,105.2,72.41370511,2.31,67.9,76.9,5,fitted
+di-1990,130,130,,,,0,locked
+pvc,140,150,,,,3,at bound
+";
+
+/// Cells a spreadsheet or a hand edit puts in a coefficient CSV.
+const HOSTILE_CELLS: &[&str] = &[
+    "nan",
+    "NaN",
+    "inf",
+    "-inf",
+    "1e308",
+    "1e400",
+    "-1",
+    "-0.0",
+    "0",
+    "1,5",
+    "\"1,5\"",
+    "abc",
+    "",
+    " ",
+    "true",
+    "\"\"",
+    "\u{202e}ci-1950",
+    "ci\u{301}-1950",
+    "\u{1f6b0}",
+    "ci\0",
+    "1e-400",
+    "0x10",
+    "+5",
+    "\"a\"\"b\"",
+];
+
+/// A rejected coefficient set names the file and a line inside the file (`set.toml:LINE: ...`); an
+/// accepted one holds at least one group, each with a positive finite C, a non-empty set of distinct
+/// names and a line inside the file.
+fn assert_coefficients_outcome(result: Result<CoefficientSet, CoefficientError>, text: &str) {
+    let lines = text.matches('\n').count() + 1;
+    match result {
+        Ok(set) => {
+            assert!(!set.entries.is_empty());
+            for (i, entry) in set.entries.iter().enumerate() {
+                assert!(entry.c.is_finite() && entry.c > 0.0, "{entry:?}");
+                assert!(entry.line >= 1 && entry.line <= lines, "{entry:?}");
+                assert!(
+                    set.entries[..i].iter().all(|e| e.name != entry.name),
+                    "{entry:?} twice"
+                );
+            }
+        }
+        Err(error) => {
+            let shown = error.to_string();
+            let line = error
+                .line
+                .unwrap_or_else(|| panic!("a rejected set names a line: {shown}"));
+            assert!(line >= 1 && line <= lines, "line out of the file: {shown}");
+            assert!(
+                shown.starts_with(&format!("{}:{line}: ", error.file)),
+                "{shown}"
+            );
+        }
+    }
+}
+
+fn assert_coefficients_toml(text: &str) {
+    let result = parse_coefficients_toml(text, "set.toml");
+    if let Err(e) = &result {
+        assert_eq!(e.file, "set.toml");
+    }
+    assert_coefficients_outcome(result, text);
+}
+
+fn assert_coefficients_csv(text: &str) {
+    let result = parse_coefficients_csv(text, "set.csv");
+    if let Err(e) = &result {
+        assert_eq!(e.file, "set.csv");
+    }
+    assert_coefficients_outcome(result, text);
+}
+
+#[test]
+fn the_coefficient_bases_are_valid() {
+    let set = parse_coefficients_toml(COEFFICIENTS_TOML, "set.toml").unwrap();
+    assert_eq!(set.entries.len(), 3);
+    let set = parse_coefficients_csv(COEFFICIENTS_CSV, "set.csv").unwrap();
+    assert_eq!(set.entries.len(), 3);
+}
+
+#[test]
+fn every_prefix_of_a_coefficient_set() {
+    for end in (0..=COEFFICIENTS_TOML.len()).filter(|&i| COEFFICIENTS_TOML.is_char_boundary(i)) {
+        assert_coefficients_toml(&COEFFICIENTS_TOML[..end]);
+    }
+    for end in (0..=COEFFICIENTS_CSV.len()).filter(|&i| COEFFICIENTS_CSV.is_char_boundary(i)) {
+        assert_coefficients_csv(&COEFFICIENTS_CSV[..end]);
+    }
+}
+
+#[test]
+fn every_hostile_value_in_every_coefficient_key() {
+    let spans = value_spans(COEFFICIENTS_TOML);
+    assert_eq!(spans.len(), 21);
+    for (start, end) in spans {
+        for value in HOSTILE_VALUES.iter().chain(ODD_IDS) {
+            for written in [value.to_string(), format!("\"{value}\"")] {
+                let text = format!(
+                    "{}{written}{}",
+                    &COEFFICIENTS_TOML[..start],
+                    &COEFFICIENTS_TOML[end..]
+                );
+                assert_coefficients_toml(&text);
+            }
+        }
+    }
+}
+
+#[test]
+fn every_hostile_cell_in_every_coefficient_column() {
+    let lines: Vec<&str> = COEFFICIENTS_CSV.lines().collect();
+    for (row, line) in lines.iter().enumerate() {
+        let cells: Vec<&str> = line.split(',').collect();
+        for column in 0..cells.len() {
+            for value in HOSTILE_CELLS {
+                assert_coefficients_csv(&with_cell(&lines, row, column, value));
+            }
+        }
+    }
+}
+
+/// Line of the first occurrence of `wanted` in `text`, 1-based.
+fn line_number(text: &str, wanted: &str) -> usize {
+    let offset = text.find(wanted).unwrap();
+    text[..offset].matches('\n').count() + 1
+}
+
+/// The base TOML set with the first `replaced` changed to `replacement` is refused with
+/// `set.toml:LINE: expected...`, LINE being the line of `at` in the base.
+fn assert_toml_refused_at(replaced: &str, replacement: &str, at: &str, expected: &str) {
+    let text = COEFFICIENTS_TOML.replacen(replaced, replacement, 1);
+    let shown = parse_coefficients_toml(&text, "set.toml")
+        .unwrap_err()
+        .to_string();
+    let line = line_number(COEFFICIENTS_TOML, at);
+    assert!(
+        shown.starts_with(&format!("set.toml:{line}: {expected}")),
+        "{replacement}: {shown}"
+    );
+}
+
+#[test]
+fn non_positive_and_non_finite_coefficients_are_refused_at_their_line() {
+    for value in ["nan", "inf", "-inf", "-5", "0", "-0.0"] {
+        assert_toml_refused_at(
+            "c = 130\n",
+            &format!("c = {value}\n"),
+            "c = 130\n",
+            "c: must be a positive finite number",
+        );
+    }
+    let row = line_number(COEFFICIENTS_CSV, "pvc,140,150,,,,3,at bound");
+    for value in ["nan", "NaN", "inf", "-inf", "1e400", "-1", "0"] {
+        let text = COEFFICIENTS_CSV.replace("pvc,140,150,", &format!("pvc,140,{value},"));
+        let shown = parse_coefficients_csv(&text, "set.csv")
+            .unwrap_err()
+            .to_string();
+        assert!(
+            shown.starts_with(&format!(
+                "set.csv:{row}: fitted: must be a positive finite number"
+            )),
+            "{value}: {shown}"
+        );
+    }
+    // A negative standard error is refused too.
+    assert_toml_refused_at(
+        "std_error = 2.31",
+        "std_error = -2.31",
+        "std_error = 2.31",
+        "std_error: must be a finite number of zero or more",
+    );
+}
+
+#[test]
+fn a_coefficient_too_large_for_a_float_is_a_syntax_error_at_its_line() {
+    assert_toml_refused_at("c = 150.0", "c = 1e400", "c = 150.0", "not valid TOML");
+}
+
+#[test]
+fn wrong_types_unknown_keys_and_duplicates_in_a_coefficient_set() {
+    // (replaced, replacement, the line the error is at, what it says there)
+    let cases = [
+        (
+            "c = 130\n",
+            "c = \"130\"\n",
+            "c = 130",
+            "c: expected a number",
+        ),
+        (
+            "locked = true",
+            "locked = 1",
+            "locked = true",
+            "locked: expected true or false",
+        ),
+        (
+            "tests = 0",
+            "tests = -1",
+            "tests = 0",
+            "tests: expected a whole number >= 0",
+        ),
+        (
+            "name = \"pvc\"",
+            "name = [\"pvc\"]",
+            "name = \"pvc\"",
+            "name: expected a string",
+        ),
+        (
+            "status = \"locked\"",
+            "status = \"Locked\"",
+            "status = \"locked\"",
+            "status: unknown status `Locked`",
+        ),
+        (
+            "tests = 5\n",
+            "colour = \"red\"\n",
+            "tests = 5",
+            "colour: unknown key",
+        ),
+        // A group listed twice is reported at the header of the second entry.
+        (
+            "[[group]]\nname = \"pvc\"",
+            "[[group]]\nname = \"ci-1950\"",
+            "[[group]]\nname = \"pvc\"",
+            "name: group `ci-1950` appears twice (first on line 2)",
+        ),
+    ];
+    for (from, to, at, expected) in cases {
+        assert_toml_refused_at(from, to, at, expected);
+    }
+    let text = COEFFICIENTS_CSV.replace("pvc,", "ci-1950,");
+    let shown = parse_coefficients_csv(&text, "set.csv")
+        .unwrap_err()
+        .to_string();
+    assert_eq!(
+        shown,
+        "set.csv:4: group: group `ci-1950` appears twice (first on line 2)"
+    );
+    let text = COEFFICIENTS_CSV.replace("status\n", "status,colour\n");
+    let shown = parse_coefficients_csv(&text, "set.csv")
+        .unwrap_err()
+        .to_string();
+    assert!(
+        shown.starts_with("set.csv:1: colour: unknown key"),
+        "{shown}"
+    );
+    // An empty file and a header with no rows name the first line.
+    assert_eq!(
+        parse_coefficients_csv("", "set.csv")
+            .unwrap_err()
+            .to_string(),
+        "set.csv:1: the file lists no group"
+    );
+    assert_eq!(
+        parse_coefficients_toml("", "set.toml")
+            .unwrap_err()
+            .to_string(),
+        "set.toml:1: the file lists no group"
+    );
+}
+
+#[test]
+fn odd_group_names_in_a_coefficient_set() {
+    for id in ODD_IDS {
+        assert_coefficients_toml(&COEFFICIENTS_TOML.replace("\"pvc\"", &format!("\"{id}\"")));
+        // The same odd name twice: a duplicate at the second.
+        let twice = COEFFICIENTS_TOML
+            .replace("\"pvc\"", &format!("\"{id}\""))
+            .replace("\"di-1990\"", &format!("\"{id}\""));
+        let shown = parse_coefficients_toml(&twice, "set.toml")
+            .unwrap_err()
+            .to_string();
+        let third_header = COEFFICIENTS_TOML
+            .lines()
+            .enumerate()
+            .filter(|(_, l)| *l == "[[group]]")
+            .nth(2)
+            .unwrap();
+        let line = third_header.0 + 1;
+        assert!(
+            shown.starts_with(&format!("set.toml:{line}: name: group ")) && shown.contains("twice"),
+            "{id}: {shown}"
+        );
+    }
+    for cell in HOSTILE_CELLS {
+        assert_coefficients_csv(&COEFFICIENTS_CSV.replace("pvc,", &format!("{cell},")));
+    }
+}
+
+proptest! {
+    #![proptest_config(ProptestConfig::with_cases(256))]
+
+    #[test]
+    fn coefficient_toml_with_a_damaged_stretch(
+        at in 0usize..COEFFICIENTS_TOML.len(),
+        cut in 0usize..60,
+        junk in prop::collection::vec(any::<u8>(), 0..24),
+    ) {
+        assert_coefficients_toml(&damaged(COEFFICIENTS_TOML, at, cut, &junk));
+    }
+
+    #[test]
+    fn coefficient_csv_with_a_damaged_stretch(
+        at in 0usize..COEFFICIENTS_CSV.len(),
+        cut in 0usize..40,
+        junk in "[\\PC\u{0}\u{202e}\u{301};,\"\r\n]{0,12}",
+    ) {
+        assert_coefficients_csv(&damaged(COEFFICIENTS_CSV, at, cut, junk.as_bytes()));
+    }
+
+    #[test]
+    fn binary_junk_as_a_coefficient_set(bytes in prop::collection::vec(any::<u8>(), 0..2000)) {
+        let text = String::from_utf8_lossy(&bytes);
+        assert_coefficients_toml(&text);
+        assert_coefficients_csv(&text);
+    }
+
+    #[test]
+    fn coefficient_rows_of_any_cells(
+        rows in prop::collection::vec(
+            prop::collection::vec("[-+0-9.eE naif]{0,8}|\\PC{0,6}", 0..10),
+            0..12,
+        ),
+    ) {
+        assert_coefficients_csv(&quoted_rows(COEFFICIENTS_CSV.lines().next().unwrap(), &rows));
     }
 }

@@ -163,7 +163,7 @@ pub enum CoefficientErrorKind {
     Missing,
     #[error("must be a positive finite number, got {0}")]
     NotPositive(f64),
-    #[error("must be a finite number, got {0}")]
+    #[error("must be a finite number of zero or more, got {0}")]
     NotFinite(f64),
     #[error("min ({min}) must be below max ({max})")]
     BoundsCrossed { min: f64, max: f64 },
@@ -453,12 +453,8 @@ fn finish(
     entries: Vec<CoefficientEntry>,
 ) -> Result<CoefficientSet, CoefficientError> {
     if entries.is_empty() {
-        return Err(CoefficientError {
-            file: place.file.to_string(),
-            line: None,
-            field: None,
-            kind: CoefficientErrorKind::NoGroups,
-        });
+        // A defect of the whole file is shown at its first line, as the other loaders do.
+        return Err(place.error(1, "", CoefficientErrorKind::NoGroups));
     }
     let mut first_line: BTreeMap<&str, usize> = BTreeMap::new();
     for entry in &entries {
@@ -500,14 +496,7 @@ pub fn parse_coefficients_csv(text: &str, file: &str) -> Result<CoefficientSet, 
         .from_reader(text.as_bytes());
     let mut records = reader.records();
     let header = match records.next() {
-        None => {
-            return Err(CoefficientError {
-                file: file.to_string(),
-                line: None,
-                field: None,
-                kind: CoefficientErrorKind::NoGroups,
-            });
-        }
+        None => return Err(place.error(1, "", CoefficientErrorKind::NoGroups)),
         Some(header) => header.map_err(|e| syntax(1, e))?,
     };
     let header_line = header.position().map_or(1, |p| p.line() as usize);
@@ -542,13 +531,10 @@ pub fn parse_coefficients_csv(text: &str, file: &str) -> Result<CoefficientSet, 
     let mut entries = Vec::new();
     for record in records {
         let record = record.map_err(|e| {
-            let line = match &e.kind() {
-                csv::ErrorKind::UnequalLengths { pos: Some(p), .. } => p.line() as usize,
-                _ => 0,
-            };
+            let line = e.position().map_or(header_line, |p| p.line() as usize);
             syntax(line, e)
         })?;
-        let line = record.position().map_or(0, |p| p.line() as usize);
+        let line = record.position().map_or(header_line, |p| p.line() as usize);
         let cell = |key: &str| {
             columns
                 .get(key)
@@ -866,7 +852,7 @@ mod tests {
         );
         assert_eq!(
             toml_error("# nothing\n"),
-            "set.toml: the file lists no group"
+            "set.toml:1: the file lists no group"
         );
     }
 
