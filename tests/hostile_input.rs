@@ -816,3 +816,11 @@ proptest! {
         assert_coefficients_csv(&quoted_rows(COEFFICIENTS_CSV.lines().next().unwrap(), &rows));
     }
 }
+
+/// Regression (found by the property test): a carriage return inside the header left a blank header
+/// cell, and a short row's finding named that blank column.
+#[test]
+fn short_row_under_a_blank_header_cell_names_the_field() {
+    let text = "test,date,time,residual_node,flow_node,static_psi,residual_psi,flow_gpm,condition,a,\r\nT1,,,J1,J2,60,40,500,,a\n";
+    assert_sheet_outcome(text);
+}

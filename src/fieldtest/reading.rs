@@ -293,7 +293,9 @@ impl RowReader<'_> {
                 .sheet
                 .headers()
                 .get(cells)
+                .filter(|name| !name.trim().is_empty())
                 .cloned()
+                // A blank header cell still needs a name a person can find.
                 .unwrap_or_else(|| format!("field {}", cells + 1));
             self.push(
                 Rule::TooFewCells,
