@@ -12,12 +12,13 @@ use std::path::{Path, PathBuf};
 /// Why a write did not happen; the target is untouched in every case.
 #[derive(Debug, thiserror::Error)]
 pub enum WriteError {
-    #[error("{path}: cannot write a temporary file beside it: {source}")]
-    Temporary { path: PathBuf, source: io::Error },
-    #[error("{path}: writing failed, the previous file is kept: {source}")]
-    Write { path: PathBuf, source: io::Error },
-    #[error("{path}: cannot replace the file, the previous file is kept: {source}")]
-    Replace { path: PathBuf, source: io::Error },
+    // The io error is part of the message, not a separate `source`, so that error chains print it once.
+    #[error("{path}: cannot write a temporary file beside it: {cause}")]
+    Temporary { path: PathBuf, cause: io::Error },
+    #[error("{path}: writing failed, the previous file is kept: {cause}")]
+    Write { path: PathBuf, cause: io::Error },
+    #[error("{path}: cannot replace the file, the previous file is kept: {cause}")]
+    Replace { path: PathBuf, cause: io::Error },
     #[error("{path}: already exists; refusing to overwrite it without --force")]
     Exists { path: PathBuf },
 }
@@ -42,9 +43,9 @@ pub fn write_atomic_with(
         .map(|n| n.to_string_lossy().into_owned())
         .unwrap_or_else(|| "roughcal".to_string());
     let (temp_path, mut file) =
-        create_temporary(&folder, &file_name).map_err(|source| WriteError::Temporary {
+        create_temporary(&folder, &file_name).map_err(|cause| WriteError::Temporary {
             path: path.to_path_buf(),
-            source,
+            cause,
         })?;
     let written = fill(&mut file)
         .and_then(|()| file.flush())
@@ -54,14 +55,14 @@ pub fn write_atomic_with(
         let _ = fs::remove_file(&temp_path);
         return Err(WriteError::Write {
             path: path.to_path_buf(),
-            source,
+            cause: source,
         });
     }
     if let Err(source) = fs::rename(&temp_path, path) {
         let _ = fs::remove_file(&temp_path);
         return Err(WriteError::Replace {
             path: path.to_path_buf(),
-            source,
+            cause: source,
         });
     }
     // Make the rename itself durable; a folder that cannot be opened for syncing (some platforms) is not
@@ -96,9 +97,9 @@ pub fn keep_original(path: &Path) -> Result<PathBuf, WriteError> {
     if copy.exists() || !path.exists() {
         return Ok(copy);
     }
-    let bytes = fs::read(path).map_err(|source| WriteError::Write {
+    let bytes = fs::read(path).map_err(|cause| WriteError::Write {
         path: copy.clone(),
-        source,
+        cause,
     })?;
     write_atomic(&copy, &bytes)?;
     Ok(copy)

@@ -711,13 +711,13 @@ pub fn load_sheet(path: &Path) -> Result<FieldSheet, SheetError> {
 pub fn save_sheet(sheet: &FieldSheet, path: &Path) -> Result<(), SheetError> {
     write_atomic(path, sheet.to_csv_string().as_bytes()).map_err(|e| {
         let reason = match &e {
-            WriteError::Temporary { source, .. } => {
+            WriteError::Temporary { cause: source, .. } => {
                 format!("cannot write a temporary file beside it: {source}")
             }
-            WriteError::Write { source, .. } => {
+            WriteError::Write { cause: source, .. } => {
                 format!("writing failed, the previous file is kept: {source}")
             }
-            WriteError::Replace { source, .. } => {
+            WriteError::Replace { cause: source, .. } => {
                 format!("cannot replace the file, the previous file is kept: {source}")
             }
             WriteError::Exists { .. } => "the file already exists".to_string(),

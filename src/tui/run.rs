@@ -152,9 +152,9 @@ fn short_write_error(path: &Path, error: &WriteError) -> String {
         |n| n.to_string_lossy().into_owned(),
     );
     match error {
-        WriteError::Temporary { source, .. }
-        | WriteError::Write { source, .. }
-        | WriteError::Replace { source, .. } => format!("cannot write {name}: {source}"),
+        WriteError::Temporary { cause: source, .. }
+        | WriteError::Write { cause: source, .. }
+        | WriteError::Replace { cause: source, .. } => format!("cannot write {name}: {source}"),
         WriteError::Exists { .. } => error.to_string(),
     }
 }
