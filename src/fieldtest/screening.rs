@@ -416,21 +416,10 @@ pub fn check_modelled_static(test: &FlowTest, modelled_static_head_m: f64) -> Op
     ))
 }
 
-/// Edit distance (Levenshtein, by characters, ignoring letter case) between two ids.
+/// Edit distance (Levenshtein, by characters, ignoring letter case) between two ids: the network's
+/// [`crate::network::suggest::edit_distance`] on lowercased text.
 pub fn edit_distance(a: &str, b: &str) -> usize {
-    let a: Vec<char> = a.chars().flat_map(char::to_lowercase).collect();
-    let b: Vec<char> = b.chars().flat_map(char::to_lowercase).collect();
-    let mut previous: Vec<usize> = (0..=b.len()).collect();
-    let mut current = vec![0; b.len() + 1];
-    for (i, ca) in a.iter().enumerate() {
-        current[0] = i + 1;
-        for (j, cb) in b.iter().enumerate() {
-            let substitution = previous[j] + usize::from(ca != cb);
-            current[j + 1] = substitution.min(previous[j + 1] + 1).min(current[j] + 1);
-        }
-        std::mem::swap(&mut previous, &mut current);
-    }
-    previous[b.len()]
+    crate::network::suggest::edit_distance(&a.to_lowercase(), &b.to_lowercase())
 }
 
 /// Up to `count` ids closest to `id` by [`edit_distance`], nearest first (ties by id).
