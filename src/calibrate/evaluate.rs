@@ -43,10 +43,7 @@ impl<'a> Evaluator<'a> {
         let mut static_state_of_test = Vec::with_capacity(tests.len());
         let mut residual_states = Vec::with_capacity(tests.len());
         for test in tests {
-            let state = match test.condition {
-                Some(c) => OperatingState::for_condition(net, &net.conditions[c]),
-                None => OperatingState::base(net),
-            };
+            let state = OperatingState::for_condition_index(net, test.condition);
             let slot = match static_keys.iter().position(|k| *k == test.condition) {
                 Some(slot) => slot,
                 None => {

@@ -88,13 +88,6 @@ fn resolve(net: &Network, test: &FlowTest) -> Option<ResolvedTest> {
     })
 }
 
-fn state_for(net: &Network, condition: Option<usize>) -> OperatingState {
-    match condition {
-        Some(c) => OperatingState::for_condition(net, &net.conditions[c]),
-        None => OperatingState::base(net),
-    }
-}
-
 /// Compares every test of `reading` with the model. `target` is the target residual in the sheet's
 /// pressure unit. Tests with a screening error are listed with their findings and no model values.
 pub fn compare_with_model(
@@ -130,7 +123,7 @@ pub fn compare_with_model(
             resolve(net, test)
         };
         if let Some(resolved) = resolved {
-            let base = state_for(net, resolved.condition);
+            let base = OperatingState::for_condition_index(net, resolved.condition);
             let statics = solver.solve(net, &base, &c, None)?;
             let residual_state = with_hydrants(&base, &resolved.hydrants, 1.0);
             let flowing = solver.solve(net, &residual_state, &c, Some(&statics))?;

@@ -118,6 +118,15 @@ impl OperatingState {
         state
     }
 
+    /// The network under the condition at index `condition` of [`Network::conditions`], or as written
+    /// when `None` (an index out of range also gives the network as written).
+    pub fn for_condition_index(net: &Network, condition: Option<usize>) -> Self {
+        match condition.and_then(|c| net.conditions.get(c)) {
+            Some(c) => Self::for_condition(net, c),
+            None => Self::base(net),
+        }
+    }
+
     /// The network under a named condition, or as written when `name` is `None`.
     pub fn for_condition_name(net: &Network, name: Option<&str>) -> Result<Self, SolveError> {
         match name {
