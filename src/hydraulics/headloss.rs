@@ -54,6 +54,12 @@ impl HazenWilliams {
         HW_FLOW_EXPONENT * r * q_m3s.abs().powf(HW_FLOW_EXPONENT - 1.0)
     }
 
+    /// Head loss and its slope together, with one power evaluation: (r q|q|^0.852, 1.852 r |q|^0.852).
+    pub fn head_loss_and_slope(r: f64, q_m3s: f64) -> (f64, f64) {
+        let scaled = r * q_m3s.abs().powf(HW_FLOW_EXPONENT - 1.0);
+        (scaled * q_m3s, HW_FLOW_EXPONENT * scaled)
+    }
+
     /// Flow in m^3/s that loses `head_loss_m` over resistance `r` (the inverse law, signed).
     pub fn flow_for_head_loss(r: f64, head_loss_m: f64) -> f64 {
         head_loss_m.signum() * (head_loss_m.abs() / r).powf(1.0 / HW_FLOW_EXPONENT)
