@@ -1,5 +1,12 @@
 //! Evaluation of one trial set of group C-factors: solve every usable test (static and residual state),
 //! collect modelled pressures and their sensitivities to each group's C.
+//!
+//! Two things keep an evaluation cheap on a large network. Every solve is warm-started from the same
+//! state's solution at the previous evaluation (the optimizer moves C a little at a time, so the flows
+//! barely change), falling back to a colder start if that fails. And the tests are shared out over the
+//! machine's cores: each test's solves are independent of every other test's.
+
+use std::sync::{Mutex, PoisonError};
 
 use crate::hydraulics::{GradientSolver, OperatingState, Solution, SolveError};
 use crate::network::Network;
@@ -29,6 +36,15 @@ pub struct Evaluator<'a> {
     static_states: Vec<OperatingState>,
     residual_states: Vec<OperatingState>,
     base_c: Vec<f64>,
+    /// The previous evaluation's solutions (without their factorizations), to warm-start the next.
+    previous: Mutex<PreviousSolutions>,
+}
+
+/// Empty until the first evaluation; a missing entry means "start from the static solution or cold".
+#[derive(Default)]
+struct PreviousSolutions {
+    statics: Vec<Option<Solution>>,
+    residuals: Vec<Option<Solution>>,
 }
 
 impl<'a> Evaluator<'a> {
@@ -66,6 +82,7 @@ impl<'a> Evaluator<'a> {
             parameter_pipes,
             static_state_of_test,
             static_states,
+            previous: Mutex::new(PreviousSolutions::default()),
             residual_states,
             base_c: net.c_factors(),
         })
@@ -98,39 +115,131 @@ impl<'a> Evaluator<'a> {
         c: &[f64],
         sensitivities: bool,
     ) -> Result<Vec<TestEvaluation>, SolveError> {
-        let c = c.to_vec();
+        let mut previous = self.previous.lock().unwrap_or_else(PoisonError::into_inner);
         let statics: Vec<Solution> = self
             .static_states
             .iter()
-            .map(|state| self.solver.solve(self.net, state, &c, None))
+            .enumerate()
+            .map(|(i, state)| {
+                let warm = previous.statics.get(i).and_then(Option::as_ref);
+                self.solve_warm(state, c, warm, None)
+            })
             .collect::<Result<_, _>>()?;
-        let mut out = Vec::with_capacity(self.tests.len());
-        for (t, test) in self.tests.iter().enumerate() {
-            let static_solution = &statics[self.static_state_of_test[t]];
-            let residual_solution = self.solver.solve(
-                self.net,
-                &self.residual_states[t],
-                &c,
-                Some(static_solution),
-            )?;
-            let j = test.residual_junction;
-            let elevation = self.net.junctions[j].elevation_m;
-            let (d_static_d_c, d_residual_d_c) = if sensitivities {
-                (
-                    self.group_sensitivity(static_solution, &c, j),
-                    self.group_sensitivity(&residual_solution, &c, j),
-                )
-            } else {
-                (Vec::new(), Vec::new())
+
+        let threads = std::thread::available_parallelism()
+            .map_or(1, |n| n.get())
+            .clamp(1, self.tests.len().max(1));
+        let warm_residuals = &previous.residuals;
+        let evaluate_share =
+            |share: usize| -> Vec<(usize, Result<(TestEvaluation, Solution), SolveError>)> {
+                (share..self.tests.len())
+                    .step_by(threads)
+                    .map(|t| {
+                        let static_solution = &statics[self.static_state_of_test[t]];
+                        let warm = warm_residuals.get(t).and_then(Option::as_ref);
+                        (
+                            t,
+                            self.evaluate_test(t, c, static_solution, warm, sensitivities),
+                        )
+                    })
+                    .collect()
             };
-            out.push(TestEvaluation {
-                static_head_m: static_solution.head_m[j] - elevation,
-                residual_head_m: residual_solution.head_m[j] - elevation,
-                d_static_d_c,
-                d_residual_d_c,
-            });
+        // Tests are dealt round-robin so that each thread gets a fair mix; results go back in test order.
+        let mut results: Vec<Option<Result<(TestEvaluation, Solution), SolveError>>> =
+            (0..self.tests.len()).map(|_| None).collect();
+        let shares: Vec<_> = if threads == 1 {
+            vec![evaluate_share(0)]
+        } else {
+            std::thread::scope(|scope| {
+                let handles: Vec<_> = (0..threads)
+                    .map(|share| scope.spawn(move || evaluate_share(share)))
+                    .collect();
+                handles
+                    .into_iter()
+                    .map(|h| h.join().unwrap_or_else(|e| std::panic::resume_unwind(e)))
+                    .collect()
+            })
+        };
+        for (t, result) in shares.into_iter().flatten() {
+            results[t] = Some(result);
         }
+
+        let mut out = Vec::with_capacity(self.tests.len());
+        let mut residual_solutions = Vec::with_capacity(self.tests.len());
+        for result in results {
+            let (evaluation, solution) = result.ok_or(SolveError::SizeMismatch {
+                what: "the evaluated test list",
+                found: out.len(),
+                expected: self.tests.len(),
+            })??;
+            out.push(evaluation);
+            residual_solutions.push(Some(solution));
+        }
+        previous.statics = statics.iter().map(|s| Some(s.warm_start_copy())).collect();
+        previous.residuals = residual_solutions;
         Ok(out)
+    }
+
+    /// Pressures (and their sensitivities) of test `t`: its residual state solved, warm-started from
+    /// its own previous solution or else from the static one.
+    fn evaluate_test(
+        &self,
+        t: usize,
+        c: &[f64],
+        static_solution: &Solution,
+        previous: Option<&Solution>,
+        sensitivities: bool,
+    ) -> Result<(TestEvaluation, Solution), SolveError> {
+        let residual_solution = self.solve_warm(
+            &self.residual_states[t],
+            c,
+            previous.or(Some(static_solution)),
+            Some(static_solution),
+        )?;
+        let j = self.tests[t].residual_junction;
+        let elevation = self.net.junctions[j].elevation_m;
+        let (d_static_d_c, d_residual_d_c) = if sensitivities {
+            (
+                self.group_sensitivity(static_solution, c, j),
+                self.group_sensitivity(&residual_solution, c, j),
+            )
+        } else {
+            (Vec::new(), Vec::new())
+        };
+        let evaluation = TestEvaluation {
+            static_head_m: static_solution.head_m[j] - elevation,
+            residual_head_m: residual_solution.head_m[j] - elevation,
+            d_static_d_c,
+            d_residual_d_c,
+        };
+        Ok((evaluation, residual_solution.warm_start_copy()))
+    }
+
+    /// Solves `state` from `warm`; if that start fails, from `fallback`, and last from cold. A start far
+    /// from the answer can stall a status change (a check valve or pump on the edge), which a colder
+    /// start does not inherit.
+    fn solve_warm(
+        &self,
+        state: &OperatingState,
+        c: &[f64],
+        warm: Option<&Solution>,
+        fallback: Option<&Solution>,
+    ) -> Result<Solution, SolveError> {
+        let same = |a: Option<&Solution>, b: Option<&Solution>| match (a, b) {
+            (Some(a), Some(b)) => std::ptr::eq(a, b),
+            (None, None) => true,
+            _ => false,
+        };
+        let mut result = self.solver.solve(self.net, state, c, warm);
+        let mut tried = vec![warm];
+        for start in [fallback, None] {
+            if result.is_ok() || tried.iter().any(|&t| same(t, start)) {
+                continue;
+            }
+            result = self.solver.solve(self.net, state, c, start);
+            tried.push(start);
+        }
+        result
     }
 
     fn group_sensitivity(&self, solution: &Solution, c: &[f64], junction: usize) -> Vec<f64> {

@@ -69,7 +69,6 @@ impl Bounds {
 struct Cached {
     u: DVector<f64>,
     evaluations: Vec<TestEvaluation>,
-    with_sensitivities: bool,
 }
 
 struct FitProblem<'a, 'p> {
@@ -88,23 +87,24 @@ struct FitProblem<'a, 'p> {
 }
 
 impl FitProblem<'_, '_> {
-    fn evaluations(&self, u: &DVector<f64>, sensitivities: bool) -> Result<(), ArgminError> {
+    /// Evaluates the model at `u` unless the cache already holds it. Sensitivities are always computed:
+    /// the line search's accepted point is where argmin next asks for the Jacobian, and the two extra
+    /// triangular solves per test cost far less than solving every test again.
+    fn evaluations(&self, u: &DVector<f64>) -> Result<(), ArgminError> {
         if self.cancel.load(Ordering::Relaxed) {
             return Err(ArgminError::msg("cancelled"));
         }
         if let Some(cached) = self.cache.borrow().as_ref()
             && cached.u == *u
-            && (cached.with_sensitivities || !sensitivities)
         {
             return Ok(());
         }
         let c = self.bounds.to_c(u);
-        match self.evaluator.evaluate(&c, sensitivities) {
+        match self.evaluator.evaluate(&c, true) {
             Ok(evaluations) => {
                 *self.cache.borrow_mut() = Some(Cached {
                     u: u.clone(),
                     evaluations,
-                    with_sensitivities: sensitivities,
                 });
                 Ok(())
             }
@@ -117,12 +117,8 @@ impl FitProblem<'_, '_> {
     }
 
     /// Whitened residuals and their Jacobian with respect to C (not u), prior rows included.
-    fn rows(
-        &self,
-        u: &DVector<f64>,
-        sensitivities: bool,
-    ) -> Result<(Vec<f64>, Vec<Vec<f64>>), ArgminError> {
-        self.evaluations(u, sensitivities)?;
+    fn rows(&self, u: &DVector<f64>) -> Result<(Vec<f64>, Vec<Vec<f64>>), ArgminError> {
+        self.evaluations(u)?;
         let cache = self.cache.borrow();
         let Some(cached) = cache.as_ref() else {
             return Err(ArgminError::msg("no model evaluation"));
@@ -152,7 +148,7 @@ impl Operator for FitProblem<'_, '_> {
     type Output = DVector<f64>;
 
     fn apply(&self, u: &Self::Param) -> Result<Self::Output, ArgminError> {
-        let (mut residuals, _) = self.rows(u, false)?;
+        let (mut residuals, _) = self.rows(u)?;
         for i in 0..u.len() {
             residuals.push(RIDGE_WEIGHT * (u[i] - self.start_u[i]));
         }
@@ -165,7 +161,7 @@ impl Jacobian for FitProblem<'_, '_> {
     type Jacobian = DMatrix<f64>;
 
     fn jacobian(&self, u: &Self::Param) -> Result<Self::Jacobian, ArgminError> {
-        let (residuals, rows) = self.rows(u, true)?;
+        let (residuals, rows) = self.rows(u)?;
         let c = self.bounds.to_c(u);
         let chain = self.bounds.dc_du(&c);
         let p = u.len();
