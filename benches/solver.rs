@@ -90,8 +90,8 @@ fn synthetic_tests(truth: &Network, count: usize) -> Vec<CalibrationTest> {
             // Head loss grows as flow^1.852: one trial flow tells the flow that gives the target drop.
             let trial_flow = 0.03;
             let trial_drop = statics.head_m[gauge] - flowing(hydrant, trial_flow).head_m[gauge];
-            let flow = (trial_flow * (TARGET_DROP_M / trial_drop.max(1e-3)).powf(1.0 / 1.852))
-                .min(0.25);
+            let flow =
+                (trial_flow * (TARGET_DROP_M / trial_drop.max(1e-3)).powf(1.0 / 1.852)).min(0.25);
             let residual = flowing(hydrant, flow);
             let elevation = truth.junctions[gauge].elevation_m;
             CalibrationTest {

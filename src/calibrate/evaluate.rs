@@ -40,6 +40,9 @@ pub struct Evaluator<'a> {
     previous: Mutex<PreviousSolutions>,
 }
 
+/// One test's pressures and the residual solution they came from.
+type TestOutcome = Result<(TestEvaluation, Solution), SolveError>;
+
 /// Empty until the first evaluation; a missing entry means "start from the static solution or cold".
 #[derive(Default)]
 struct PreviousSolutions {
@@ -88,6 +91,26 @@ impl<'a> Evaluator<'a> {
         })
     }
 
+    /// The same tests and solver with other parameter groups, starting from this evaluator's latest
+    /// solutions (the optimizer's first evaluation is then nearly free after the screening pass).
+    pub fn reparametrised(&self, parameter_pipes: Vec<Vec<usize>>) -> Self {
+        let previous = self.previous.lock().unwrap_or_else(PoisonError::into_inner);
+        Self {
+            net: self.net,
+            tests: self.tests,
+            solver: self.solver.clone(),
+            parameter_pipes,
+            static_state_of_test: self.static_state_of_test.clone(),
+            static_states: self.static_states.clone(),
+            residual_states: self.residual_states.clone(),
+            base_c: self.base_c.clone(),
+            previous: Mutex::new(PreviousSolutions {
+                statics: previous.statics.clone(),
+                residuals: previous.residuals.clone(),
+            }),
+        }
+    }
+
     /// Pipe C-factors with each parameter group set to `group_c`.
     pub fn pipe_c_factors(&self, group_c: &[f64]) -> Vec<f64> {
         let mut c = self.base_c.clone();
@@ -116,13 +139,16 @@ impl<'a> Evaluator<'a> {
         sensitivities: bool,
     ) -> Result<Vec<TestEvaluation>, SolveError> {
         let mut previous = self.previous.lock().unwrap_or_else(PoisonError::into_inner);
+        // One set of resistances serves every solve of this evaluation.
+        let resistance = self.solver.pipe_resistances(self.net, c);
+        let resistance = resistance.as_slice();
         let statics: Vec<Solution> = self
             .static_states
             .iter()
             .enumerate()
             .map(|(i, state)| {
                 let warm = previous.statics.get(i).and_then(Option::as_ref);
-                self.solve_warm(state, c, warm, None)
+                self.solve_warm(state, resistance, warm, None)
             })
             .collect::<Result<_, _>>()?;
 
@@ -130,23 +156,21 @@ impl<'a> Evaluator<'a> {
             .map_or(1, |n| n.get())
             .clamp(1, self.tests.len().max(1));
         let warm_residuals = &previous.residuals;
-        let evaluate_share =
-            |share: usize| -> Vec<(usize, Result<(TestEvaluation, Solution), SolveError>)> {
-                (share..self.tests.len())
-                    .step_by(threads)
-                    .map(|t| {
-                        let static_solution = &statics[self.static_state_of_test[t]];
-                        let warm = warm_residuals.get(t).and_then(Option::as_ref);
-                        (
-                            t,
-                            self.evaluate_test(t, c, static_solution, warm, sensitivities),
-                        )
-                    })
-                    .collect()
-            };
+        let evaluate_share = |share: usize| -> Vec<(usize, TestOutcome)> {
+            (share..self.tests.len())
+                .step_by(threads)
+                .map(|t| {
+                    let static_solution = &statics[self.static_state_of_test[t]];
+                    let warm = warm_residuals.get(t).and_then(Option::as_ref);
+                    (
+                        t,
+                        self.evaluate_test(t, c, resistance, static_solution, warm, sensitivities),
+                    )
+                })
+                .collect()
+        };
         // Tests are dealt round-robin so that each thread gets a fair mix; results go back in test order.
-        let mut results: Vec<Option<Result<(TestEvaluation, Solution), SolveError>>> =
-            (0..self.tests.len()).map(|_| None).collect();
+        let mut results: Vec<Option<TestOutcome>> = (0..self.tests.len()).map(|_| None).collect();
         let shares: Vec<_> = if threads == 1 {
             vec![evaluate_share(0)]
         } else {
@@ -186,13 +210,14 @@ impl<'a> Evaluator<'a> {
         &self,
         t: usize,
         c: &[f64],
+        resistance: &[f64],
         static_solution: &Solution,
         previous: Option<&Solution>,
         sensitivities: bool,
-    ) -> Result<(TestEvaluation, Solution), SolveError> {
+    ) -> TestOutcome {
         let residual_solution = self.solve_warm(
             &self.residual_states[t],
-            c,
+            resistance,
             previous.or(Some(static_solution)),
             Some(static_solution),
         )?;
@@ -221,7 +246,7 @@ impl<'a> Evaluator<'a> {
     fn solve_warm(
         &self,
         state: &OperatingState,
-        c: &[f64],
+        resistance: &[f64],
         warm: Option<&Solution>,
         fallback: Option<&Solution>,
     ) -> Result<Solution, SolveError> {
@@ -230,13 +255,17 @@ impl<'a> Evaluator<'a> {
             (None, None) => true,
             _ => false,
         };
-        let mut result = self.solver.solve(self.net, state, c, warm);
+        let mut result = self
+            .solver
+            .solve_with_resistances(self.net, state, resistance, warm);
         let mut tried = vec![warm];
         for start in [fallback, None] {
             if result.is_ok() || tried.iter().any(|&t| same(t, start)) {
                 continue;
             }
-            result = self.solver.solve(self.net, state, c, start);
+            result = self
+                .solver
+                .solve_with_resistances(self.net, state, resistance, start);
             tried.push(start);
         }
         result

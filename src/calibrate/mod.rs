@@ -309,8 +309,7 @@ pub fn calibrate(
         None
     } else {
         Some(optimizer::run(
-            net,
-            tests,
+            &screening,
             options,
             &candidates,
             &fitted,

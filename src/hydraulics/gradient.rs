@@ -519,18 +519,36 @@ impl GradientSolver {
         c_factors: &[f64],
         warm_start: Option<&Solution>,
     ) -> Result<Solution, SolveError> {
-        self.check_sizes(net, state, c_factors)?;
+        self.check_sizes(net, state, ("the C-factor list", c_factors.len()))?;
+        let resistance = self.pipe_resistances(net, c_factors);
+        self.solve_with_resistances(net, state, &resistance, warm_start)
+    }
+
+    /// Hazen-Williams resistance r of every pipe (h = r Q|Q|^0.852 in m and m^3/s) at the C-factors
+    /// `c_factors`, for [`GradientSolver::solve_with_resistances`].
+    pub fn pipe_resistances(&self, net: &Network, c_factors: &[f64]) -> Vec<f64> {
+        net.pipes
+            .iter()
+            .zip(c_factors)
+            .map(|(p, &c)| self.law.resistance(p.length_m, p.diameter_m, c))
+            .collect()
+    }
+
+    /// As [`GradientSolver::solve`] with the pipe resistances computed beforehand: many solves at one
+    /// set of C-factors (the tests of one calibration step) then share the power evaluations.
+    pub fn solve_with_resistances(
+        &self,
+        net: &Network,
+        state: &OperatingState,
+        resistance: &[f64],
+        warm_start: Option<&Solution>,
+    ) -> Result<Solution, SolveError> {
+        self.check_sizes(net, state, ("the resistance list", resistance.len()))?;
         let n = self.junction_count;
         let pipe_count = net.pipes.len();
         let link_count = self.links.len();
         let settings = self.settings;
 
-        let resistance: Vec<f64> = net
-            .pipes
-            .iter()
-            .zip(c_factors)
-            .map(|(p, &c)| self.law.resistance(p.length_m, p.diameter_m, c))
-            .collect();
         let demand: Vec<f64> = (0..n).map(|j| state.demand_m3s(net, j)).collect();
 
         // Statuses fixed by the file or the condition never change during the solve.
@@ -640,7 +658,7 @@ impl GradientSolver {
                     continue;
                 }
                 let (loss, slope) =
-                    self.cached_loss_and_slope(net, &resistance, &mut law_cache, k, flow[k]);
+                    self.cached_loss_and_slope(net, resistance, &mut law_cache, k, flow[k]);
                 let p = 1.0 / slope;
                 let y = p * loss;
                 conductance[k] = p;
@@ -729,7 +747,7 @@ impl GradientSolver {
                 }
                 let slots = self.links[k];
                 let (loss, _) =
-                    self.cached_loss_and_slope(net, &resistance, &mut law_cache, k, flow[k]);
+                    self.cached_loss_and_slope(net, resistance, &mut law_cache, k, flow[k]);
                 let new_q = flow[k] - p * loss + p * (node_head(slots.from) - node_head(slots.to));
                 change_sum += (new_q - flow[k]).abs();
                 flow_sum += new_q.abs();
@@ -808,7 +826,7 @@ impl GradientSolver {
                 }
                 let slots = self.links[k];
                 let (loss, _) =
-                    self.cached_loss_and_slope(net, &resistance, &mut law_cache, k, flow[k]);
+                    self.cached_loss_and_slope(net, resistance, &mut law_cache, k, flow[k]);
                 let residual = (loss - (node_head(slots.from) - node_head(slots.to))).abs();
                 head_residual = head_residual.max(residual);
             }
@@ -820,7 +838,7 @@ impl GradientSolver {
                 return self.finish(
                     net,
                     state,
-                    &resistance,
+                    resistance,
                     SolveOutcome {
                         head,
                         flow,
@@ -830,6 +848,7 @@ impl GradientSolver {
                         warnings,
                         iterations: iteration,
                         factor: self.symbolic.as_ref().map(|s| (Arc::clone(s), factor)),
+                        law_cache,
                     },
                 );
             }
@@ -845,10 +864,10 @@ impl GradientSolver {
         &self,
         net: &Network,
         state: &OperatingState,
-        c_factors: &[f64],
+        (per_pipe_list, per_pipe_len): (&'static str, usize),
     ) -> Result<(), SolveError> {
         let checks = [
-            ("the C-factor list", c_factors.len(), net.pipes.len()),
+            (per_pipe_list, per_pipe_len, net.pipes.len()),
             (
                 "the junction list",
                 net.junctions.len(),
@@ -1005,6 +1024,7 @@ impl GradientSolver {
             mut warnings,
             iterations,
             factor,
+            law_cache,
         } = outcome;
         let pipe_count = net.pipes.len();
         let n = self.junction_count;
@@ -1055,10 +1075,20 @@ impl GradientSolver {
         }
 
         let pipe_flow_m3s: Vec<f64> = flow[..pipe_count].to_vec();
+        // The true law everywhere, also below the linearisation flow; the cache already holds it above.
         let pipe_headloss_m = pipe_flow_m3s
             .iter()
             .zip(resistance)
-            .map(|(&q, &r)| HazenWilliams::head_loss_m(r, q))
+            .zip(&law_cache)
+            .map(|((&q, &r), cached)| {
+                if cached.flow_m3s.to_bits() == q.to_bits()
+                    && q.abs() >= self.settings.linear_below_m3s
+                {
+                    cached.loss_m
+                } else {
+                    HazenWilliams::head_loss_m(r, q)
+                }
+            })
             .collect();
         let pump_flow_m3s: Vec<f64> = flow[pipe_count..].to_vec();
         let pump_head_gain_m = pump_flow_m3s
@@ -1124,4 +1154,6 @@ struct SolveOutcome {
     warnings: Vec<SolveWarning>,
     iterations: usize,
     factor: Option<(Arc<SymbolicCholesky<usize>>, Vec<f64>)>,
+    /// The law at the final flows, as the last head-residual check evaluated it.
+    law_cache: Vec<LawAtFlow>,
 }
