@@ -8,6 +8,7 @@
 use std::fs::{self, File, OpenOptions};
 use std::io::{self, Write};
 use std::path::{Path, PathBuf};
+use std::time::{Duration, SystemTime};
 
 /// Why a write did not happen; the target is untouched in every case.
 #[derive(Debug, thiserror::Error)]
@@ -34,14 +35,7 @@ pub fn write_atomic_with(
     path: &Path,
     fill: impl FnOnce(&mut File) -> io::Result<()>,
 ) -> Result<(), WriteError> {
-    let folder = match path.parent() {
-        Some(p) if !p.as_os_str().is_empty() => p.to_path_buf(),
-        _ => PathBuf::from("."),
-    };
-    let file_name = path
-        .file_name()
-        .map(|n| n.to_string_lossy().into_owned())
-        .unwrap_or_else(|| "roughcal".to_string());
+    let (folder, file_name) = folder_and_name(path);
     let (temp_path, mut file) =
         create_temporary(&folder, &file_name).map_err(|cause| WriteError::Temporary {
             path: path.to_path_buf(),
@@ -105,6 +99,71 @@ pub fn keep_original(path: &Path) -> Result<PathBuf, WriteError> {
     Ok(copy)
 }
 
+/// Age after which a temporary file of ours is taken to be left over from a save that was killed between
+/// creating it and renaming it. A save takes well under a second, so an hour leaves a wide margin for a
+/// second roughcal saving the same file.
+pub const STALE_TEMPORARY_AGE: Duration = Duration::from_secs(3600);
+
+/// Removes the temporary files that interrupted saves of `path` left beside it
+/// (`.NAME.PID.N.tmp`, older than [`STALE_TEMPORARY_AGE`]) and returns the ones removed. The target itself
+/// is never touched: an interrupted save left it as it was before that save. Unreadable folders and
+/// files that cannot be removed are skipped; this is tidying, not a condition of working.
+pub fn remove_stale_temporaries(path: &Path) -> Vec<PathBuf> {
+    let (folder, file_name) = folder_and_name(path);
+    let Ok(entries) = fs::read_dir(&folder) else {
+        return Vec::new();
+    };
+    let now = SystemTime::now();
+    let mut removed = Vec::new();
+    for entry in entries.flatten() {
+        let name = entry.file_name().to_string_lossy().into_owned();
+        if !is_temporary_of(&name, &file_name) {
+            continue;
+        }
+        let old_enough = entry
+            .metadata()
+            .and_then(|m| m.modified())
+            .ok()
+            .and_then(|modified| now.duration_since(modified).ok())
+            .is_some_and(|age| age >= STALE_TEMPORARY_AGE);
+        if old_enough && fs::remove_file(entry.path()).is_ok() {
+            removed.push(entry.path());
+        }
+    }
+    removed.sort();
+    removed
+}
+
+/// Whether `name` is one of [`create_temporary`]'s names for `file_name`: `.FILE.PID.ATTEMPT.tmp`.
+fn is_temporary_of(name: &str, file_name: &str) -> bool {
+    let Some(middle) = name
+        .strip_prefix('.')
+        .and_then(|rest| rest.strip_prefix(file_name))
+        .and_then(|rest| rest.strip_prefix('.'))
+        .and_then(|rest| rest.strip_suffix(".tmp"))
+    else {
+        return false;
+    };
+    let parts: Vec<&str> = middle.split('.').collect();
+    parts.len() == 2
+        && parts
+            .iter()
+            .all(|p| !p.is_empty() && p.bytes().all(|b| b.is_ascii_digit()))
+}
+
+/// The folder a file lives in (`.` for a bare name) and its file name.
+fn folder_and_name(path: &Path) -> (PathBuf, String) {
+    let folder = match path.parent() {
+        Some(p) if !p.as_os_str().is_empty() => p.to_path_buf(),
+        _ => PathBuf::from("."),
+    };
+    let file_name = path
+        .file_name()
+        .map(|n| n.to_string_lossy().into_owned())
+        .unwrap_or_else(|| "roughcal".to_string());
+    (folder, file_name)
+}
+
 fn create_temporary(folder: &Path, file_name: &str) -> io::Result<(PathBuf, File)> {
     let pid = std::process::id();
     for attempt in 0..1000u32 {
@@ -128,6 +187,34 @@ fn create_temporary(folder: &Path, file_name: &str) -> io::Result<(PathBuf, File
 #[cfg(test)]
 mod tests {
     use super::*;
+
+    #[test]
+    fn only_old_temporaries_of_the_file_are_removed() {
+        let dir = tempfile::tempdir().unwrap();
+        let target = dir.path().join("tue.csv");
+        fs::write(&target, "kept").unwrap();
+        let old = SystemTime::now() - STALE_TEMPORARY_AGE - Duration::from_secs(60);
+        let make = |name: &str, modified: SystemTime| {
+            let path = dir.path().join(name);
+            let file = File::create(&path).unwrap();
+            file.set_modified(modified).unwrap();
+            path
+        };
+        let stale = make(".tue.csv.4242.0.tmp", old);
+        let stale_too = make(".tue.csv.17.3.tmp", old);
+        let fresh = make(".tue.csv.4243.0.tmp", SystemTime::now());
+        let other_file = make(".wed.csv.4242.0.tmp", old);
+        let not_ours = make(".tue.csv.backup.tmp", old);
+        let removed = remove_stale_temporaries(&target);
+        let mut expected = vec![stale.clone(), stale_too.clone()];
+        expected.sort();
+        assert_eq!(removed, expected);
+        assert!(!stale.exists() && !stale_too.exists());
+        assert!(fresh.exists() && other_file.exists() && not_ours.exists());
+        assert_eq!(fs::read_to_string(&target).unwrap(), "kept");
+        // A folder that does not exist is nothing to tidy.
+        assert!(remove_stale_temporaries(&dir.path().join("gone/x.csv")).is_empty());
+    }
 
     #[test]
     fn replaces_and_leaves_no_temporary_behind() {

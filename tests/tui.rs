@@ -319,19 +319,24 @@ fn no_color_draws_without_any_colour() {
     }
 }
 
+/// In the Groups view, on ci-1950: to max (start C -> min -> max), type 125, Enter (which moves down),
+/// back up, and Space locks it.
+fn set_max_125_then_lock_ci_1950(app: &mut App, runner: &mut Runner) {
+    key(app, runner, KeyCode::F(3));
+    key(app, runner, KeyCode::Right);
+    key(app, runner, KeyCode::Right);
+    type_text(app, runner, "125");
+    key(app, runner, KeyCode::Enter);
+    key(app, runner, KeyCode::Up);
+    key(app, runner, KeyCode::Char(' '));
+}
+
 #[test]
 fn groups_edits_are_written_into_the_network_file() {
     let dir = tempfile::tempdir().unwrap();
     let mut app = workbench(dir.path(), SHEET);
     let mut runner = Runner::new();
-    key(&mut app, &mut runner, KeyCode::F(3));
-    // Cursor on ci-1950; to max (start C -> min -> max), type 125, Enter; then Space locks.
-    key(&mut app, &mut runner, KeyCode::Right);
-    key(&mut app, &mut runner, KeyCode::Right);
-    type_text(&mut app, &mut runner, "125");
-    key(&mut app, &mut runner, KeyCode::Enter);
-    key(&mut app, &mut runner, KeyCode::Up);
-    key(&mut app, &mut runner, KeyCode::Char(' '));
+    set_max_125_then_lock_ci_1950(&mut app, &mut runner);
     let text = std::fs::read_to_string(&app.session.network_path).unwrap();
     assert!(text.contains("max = 125"), "{:?}", app.message);
     assert!(text.contains(
@@ -348,6 +353,63 @@ fn groups_edits_are_written_into_the_network_file() {
         std::fs::read_to_string(&app.session.network_path).unwrap(),
         text
     );
+}
+
+#[test]
+fn groups_edits_undo_and_redo_in_the_network_file() {
+    let dir = tempfile::tempdir().unwrap();
+    let mut app = workbench(dir.path(), SHEET);
+    let mut runner = Runner::new();
+    let original = std::fs::read_to_string(&app.session.network_path).unwrap();
+    set_max_125_then_lock_ci_1950(&mut app, &mut runner);
+    let edited = std::fs::read_to_string(&app.session.network_path).unwrap();
+    assert!(edited.contains("max = 125") && app.session.network.groups[0].locked);
+
+    // Undo takes the lock off, then the bound back; both the file and the model follow.
+    ctrl(&mut app, &mut runner, 'z');
+    assert!(!app.session.network.groups[0].locked);
+    assert_eq!(app.session.network.groups[0].max_c, 125.0);
+    ctrl(&mut app, &mut runner, 'z');
+    assert_eq!(
+        std::fs::read_to_string(&app.session.network_path).unwrap(),
+        original
+    );
+    assert_ne!(app.session.network.groups[0].max_c, 125.0);
+    ctrl(&mut app, &mut runner, 'z');
+    assert!(
+        app.message
+            .as_ref()
+            .unwrap()
+            .text
+            .contains("no group edit to undo")
+    );
+
+    // Redo replays both; a new edit after an undo clears what could be redone.
+    ctrl(&mut app, &mut runner, 'y');
+    ctrl(&mut app, &mut runner, 'y');
+    assert_eq!(
+        std::fs::read_to_string(&app.session.network_path).unwrap(),
+        edited
+    );
+    assert!(
+        app.message
+            .as_ref()
+            .unwrap()
+            .text
+            .contains("redid the group edit")
+    );
+    ctrl(&mut app, &mut runner, 'z');
+    key(&mut app, &mut runner, KeyCode::Char(' '));
+    ctrl(&mut app, &mut runner, 'y');
+    assert!(
+        app.message
+            .as_ref()
+            .unwrap()
+            .text
+            .contains("no group edit to redo")
+    );
+    // The sheet's own undo history is separate: nothing of the sheet was touched.
+    assert!(app.readings.undo.is_empty());
 }
 
 #[test]

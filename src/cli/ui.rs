@@ -56,7 +56,21 @@ pub fn run_open(network: &Path, sheet: &Path) -> anyhow::Result<ExitCode> {
         return Ok(ExitCode::from(1));
     }
     let session = tui::open_files(network, sheet)?;
-    run(App::new(session, theme()))
+    let mut app = App::new(session, theme());
+    let leftovers: Vec<_> = [sheet, network]
+        .iter()
+        .flat_map(|path| roughcal::storage::remove_stale_temporaries(path))
+        .collect();
+    if !leftovers.is_empty() {
+        app.message = Some(tui::app::StatusMessage {
+            text: format!(
+                "cleared {} leftover file(s) of an interrupted save; re-check your last edit",
+                leftovers.len()
+            ),
+            error: false,
+        });
+    }
+    run(app)
 }
 
 pub fn run_new(network: &Path, sheet: &Path) -> anyhow::Result<ExitCode> {

@@ -206,7 +206,15 @@ pub struct GroupsState {
     pub column: usize,
     pub edit: Option<CellEdit>,
     pub rows: Vec<GroupRow>,
+    /// Network file texts before each group edit, newest last (at most [`GROUP_UNDO_DEPTH`]).
+    pub undo: Vec<String>,
+    /// Texts undone, for redo; cleared by a new edit.
+    pub redo: Vec<String>,
 }
+
+/// How many group edits can be undone. Whole file texts are kept because an edit goes through the
+/// format-preserving TOML writer; a hundred copies of a 20,000-pipe file are a few hundred MB at worst.
+pub const GROUP_UNDO_DEPTH: usize = 100;
 
 /// A calibration run in progress.
 #[derive(Debug, Clone)]
@@ -1172,7 +1180,7 @@ fn groups_action(app: &mut App, action: Action, effects: &mut Vec<Effect>) {
                 }
             };
             match edited {
-                Ok(new_text) => set_network_text(app, new_text, effects),
+                Ok(new_text) => edit_network_text(app, new_text, effects),
                 Err(e) => app.error(format!("{name}: {e}; nothing changed")),
             }
             let g = &mut app.groups;
@@ -1196,10 +1204,12 @@ fn groups_action(app: &mut App, action: Action, effects: &mut Vec<Effect>) {
                 &app.session.network_text,
                 &BTreeMap::from([(name.clone(), update)]),
             ) {
-                Ok(new_text) => set_network_text(app, new_text, effects),
+                Ok(new_text) => edit_network_text(app, new_text, effects),
                 Err(e) => app.error(format!("{name}: {e}")),
             }
         }
+        Action::Undo => undo_redo_groups(app, true, effects),
+        Action::Redo => undo_redo_groups(app, false, effects),
         _ => {}
     }
 }
@@ -1214,8 +1224,51 @@ pub fn format_c(c: f64) -> String {
     }
 }
 
+/// A group edit by the user: applied and saved like any network text, and undoable.
+fn edit_network_text(app: &mut App, text: String, effects: &mut Vec<Effect>) {
+    let before = app.session.network_text.clone();
+    if set_network_text(app, text, effects) {
+        if app.groups.undo.len() == GROUP_UNDO_DEPTH {
+            app.groups.undo.remove(0);
+        }
+        app.groups.undo.push(before);
+        app.groups.redo.clear();
+    }
+}
+
+/// Ctrl+Z / Ctrl+Y in the Groups view: puts back the network text before (or after) a group edit.
+fn undo_redo_groups(app: &mut App, undo: bool, effects: &mut Vec<Effect>) {
+    let popped = if undo {
+        app.groups.undo.pop()
+    } else {
+        app.groups.redo.pop()
+    };
+    let Some(text) = popped else {
+        app.info(if undo {
+            "no group edit to undo"
+        } else {
+            "no group edit to redo"
+        });
+        return;
+    };
+    let current = app.session.network_text.clone();
+    if set_network_text(app, text, effects) {
+        if undo {
+            app.groups.redo.push(current);
+        } else {
+            app.groups.undo.push(current);
+        }
+        let name = app.session.network_path.display().to_string();
+        app.info(format!(
+            "{} the group edit; saved to {name}",
+            if undo { "undid" } else { "redid" }
+        ));
+    }
+}
+
 /// Takes an edited network text: reads it back (so the model always matches the file) and saves it.
-fn set_network_text(app: &mut App, text: String, effects: &mut Vec<Effect>) {
+/// Returns whether it was taken.
+fn set_network_text(app: &mut App, text: String, effects: &mut Vec<Effect>) -> bool {
     let name = app.session.network_path.display().to_string();
     match parse_network(&text, &name) {
         Ok(loaded) => {
@@ -1230,8 +1283,12 @@ fn set_network_text(app: &mut App, text: String, effects: &mut Vec<Effect>) {
                 path: app.session.network_path.clone(),
                 text,
             });
+            true
         }
-        Err(e) => app.error(format!("the edited network does not read back: {e}")),
+        Err(e) => {
+            app.error(format!("the edited network does not read back: {e}"));
+            false
+        }
     }
 }
 

@@ -49,6 +49,7 @@ pub const KEY_HELP: [(&str, &[(&str, &str)]); 6] = [
             ("arrows hjkl", "start C, min, max, lock"),
             ("Enter digits", "edit (saved to network)"),
             ("Space", "lock / unlock the group"),
+            ("Ctrl+Z Ctrl+Y", "undo / redo a group edit"),
         ],
     ),
     ("Fit", &[("Up Down j k", "scroll the tests")]),
@@ -93,6 +94,7 @@ pub fn key_hints(app: &App) -> &'static [(&'static str, &'static str)] {
         View::Groups => &[
             ("Enter", "edit"),
             ("Space", "lock"),
+            ("^Z/^Y", "undo/redo"),
             ("^R", "fit"),
             ("F2-F5", "views"),
             ("?", "help"),
@@ -241,7 +243,14 @@ fn readings_key(key: KeyEvent, ctrl: bool, alt: bool) -> Option<Action> {
 }
 
 fn groups_key(key: KeyEvent, ctrl: bool, alt: bool) -> Option<Action> {
-    if ctrl || alt {
+    if ctrl {
+        return match key.code {
+            KeyCode::Char('z') => Some(Action::Undo),
+            KeyCode::Char('y') => Some(Action::Redo),
+            _ => None,
+        };
+    }
+    if alt {
         return None;
     }
     if let Some(m) = vertical_or_horizontal(key.code) {
