@@ -708,12 +708,12 @@ fn wrong_types_unknown_keys_and_duplicates_in_a_coefficient_set() {
             "tests = 5",
             "colour: unknown key",
         ),
-        // A group listed twice is reported at the header of the second entry.
+        // A group listed twice is reported at the second entry's `name` line, pointing at the first's.
         (
-            "[[group]]\nname = \"pvc\"",
-            "[[group]]\nname = \"ci-1950\"",
-            "[[group]]\nname = \"pvc\"",
-            "name: group `ci-1950` appears twice (first on line 2)",
+            "name = \"pvc\"",
+            "name = \"ci-1950\"",
+            "name = \"pvc\"",
+            "name: group `ci-1950` appears twice (first on line 3)",
         ),
     ];
     for (from, to, at, expected) in cases {
@@ -761,13 +761,21 @@ fn odd_group_names_in_a_coefficient_set() {
         let shown = parse_coefficients_toml(&twice, "set.toml")
             .unwrap_err()
             .to_string();
+        // Shown at the second entry's `name` line, the line that repeats the first.
         let third_header = COEFFICIENTS_TOML
             .lines()
             .enumerate()
             .filter(|(_, l)| *l == "[[group]]")
             .nth(2)
+            .unwrap()
+            .0;
+        let name_line = COEFFICIENTS_TOML
+            .lines()
+            .enumerate()
+            .skip(third_header)
+            .find(|(_, l)| l.starts_with("name"))
             .unwrap();
-        let line = third_header.0 + 1;
+        let line = name_line.0 + 1;
         assert!(
             shown.starts_with(&format!("set.toml:{line}: name: group ")) && shown.contains("twice"),
             "{id}: {shown}"

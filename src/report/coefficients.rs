@@ -66,6 +66,8 @@ pub struct CoefficientEntry {
     pub status: Option<String>,
     /// Line of the entry in its file (the `[[group]]` header or the CSV record), 1-based.
     pub line: usize,
+    /// Line of the entry's name (its `name` key in TOML, the record in CSV), where a duplicate is shown.
+    pub name_line: usize,
 }
 
 /// A coefficient set read from a file.
@@ -367,7 +369,11 @@ fn toml_entry(
         tests,
         status,
     };
-    fields.check(|key, kind| error(key, kind), header_line)
+    fields.check(
+        |key, kind| error(key, kind),
+        header_line,
+        line_of_key("name"),
+    )
 }
 
 /// An entry as read, before its values are checked.
@@ -391,6 +397,7 @@ impl RawEntry {
         self,
         error: impl Fn(&str, CoefficientErrorKind) -> CoefficientError,
         line: usize,
+        name_line: usize,
     ) -> Result<CoefficientEntry, CoefficientError> {
         let positive = |key: &str, v: Option<f64>| match v {
             Some(v) if !(v.is_finite() && v > 0.0) => {
@@ -443,6 +450,7 @@ impl RawEntry {
             tests: self.tests,
             status: self.status,
             line,
+            name_line,
         })
     }
 }
@@ -460,7 +468,7 @@ fn finish(
     for entry in &entries {
         if let Some(&first) = first_line.get(entry.name.as_str()) {
             return Err(place.error(
-                entry.line,
+                entry.name_line,
                 name_field(place.file),
                 CoefficientErrorKind::DuplicateGroup {
                     name: entry.name.clone(),
@@ -468,7 +476,7 @@ fn finish(
                 },
             ));
         }
-        first_line.insert(&entry.name, entry.line);
+        first_line.insert(&entry.name, entry.name_line);
     }
     Ok(CoefficientSet {
         file: place.file.to_string(),
@@ -588,7 +596,7 @@ pub fn parse_coefficients_csv(text: &str, file: &str) -> Result<CoefficientSet, 
         };
         // The CSV calls the C column `fitted`.
         let renamed = |key: &str, kind| error(if key == "c" { "fitted" } else { key }, kind);
-        entries.push(raw.check(renamed, line)?);
+        entries.push(raw.check(renamed, line, line)?);
     }
     finish(&place, entries)
 }
@@ -827,7 +835,7 @@ mod tests {
         );
         assert_eq!(
             toml_error("[[group]]\nname = \"ci\"\nc = 80\n[[group]]\nname = \"ci\"\nc = 90\n"),
-            "set.toml:4: name: group `ci` appears twice (first on line 1)"
+            "set.toml:5: name: group `ci` appears twice (first on line 2)"
         );
         assert_eq!(
             toml_error("[[group]]\nname = \"ci\"\nc = 80\nlocked = \"yes\"\n"),
