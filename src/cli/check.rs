@@ -6,6 +6,7 @@ use std::process::ExitCode;
 
 use roughcal::network::file::{NetworkFileError, load_network_file};
 use roughcal::network::summary::NetworkSummary;
+use roughcal::report::table::{Align, TextTable};
 
 pub fn run(network: &Path) -> anyhow::Result<ExitCode> {
     match load_network_file(network) {
@@ -69,13 +70,11 @@ fn render(summary: &NetworkSummary, file: &str) -> String {
         units.flow_label()
     );
     let _ = writeln!(out);
-    let _ = writeln!(
-        out,
-        "{:<24} {:>6} {:>14}",
-        "pipe length by group",
-        "pipes",
-        format!("length ({length_unit})")
-    );
+    let mut groups = TextTable::new(&[
+        ("group", Align::Left),
+        ("pipes", Align::Right),
+        (&format!("length ({length_unit})"), Align::Right),
+    ]);
     let rows = summary
         .length_by_group
         .iter()
@@ -84,27 +83,28 @@ fn render(summary: &NetworkSummary, file: &str) -> String {
             "(no group)",
             summary.ungrouped.pipes,
             summary.ungrouped.length,
+        )))
+        .chain(std::iter::once((
+            "total",
+            summary.pipes,
+            summary.total_length(),
         )));
     for (name, pipes, length) in rows {
-        let _ = writeln!(out, "  {name:<22} {pipes:>6} {length:>14.1}");
+        groups.row(vec![
+            name.to_string(),
+            pipes.to_string(),
+            format!("{length:.1}"),
+        ]);
     }
-    let _ = writeln!(
-        out,
-        "  {:<22} {:>6} {:>14.1}",
-        "total",
-        summary.pipes,
-        summary.total_length()
-    );
-    let _ = writeln!(out);
-    let _ = writeln!(
-        out,
-        "{:<24} {:>21}",
-        "sources (fixed heads)",
-        format!("head ({length_unit})")
-    );
+    let _ = write!(out, "pipe length by group\n{}", groups.text("  "));
+    let mut sources = TextTable::new(&[
+        ("id", Align::Left),
+        (&format!("head ({length_unit})"), Align::Right),
+    ]);
     for source in &summary.sources {
-        let _ = writeln!(out, "  {:<22} {:>21.2}", source.id, source.head);
+        sources.row(vec![source.id.clone(), format!("{:.2}", source.head)]);
     }
+    let _ = write!(out, "\nsources (fixed heads)\n{}", sources.text("  "));
     out
 }
 

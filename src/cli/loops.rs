@@ -10,6 +10,7 @@ use roughcal::hydraulics::gradient::MASS_BALANCE_TOLERANCE;
 use roughcal::hydraulics::loops::{LoopError, LoopKind, LoopOptions, LoopSolution, solve_loops};
 use roughcal::network::file::load_network_file;
 use roughcal::network::{Network, NodeRef};
+use roughcal::report::table::{Align, TextTable};
 use serde_json::{Value, json};
 
 use super::load_network_or_report;
@@ -142,12 +143,12 @@ pub fn render_text(
         let _ = writeln!(out);
     }
     if !solution.iterations.is_empty() {
-        let _ = writeln!(
-            out,
-            "{:>5}  {:>18}  corrections ({flow_unit})",
-            "iter",
-            format!("max imbalance ({head_unit})")
-        );
+        let mut history = TextTable::new(&[
+            ("iter", Align::Right),
+            (&format!("max imbalance ({head_unit})"), Align::Right),
+            (&format!("corrections ({flow_unit})"), Align::Left),
+        ])
+        .free_text_last();
         for record in &solution.iterations {
             let cells: Vec<String> = record
                 .corrections_m3s
@@ -156,20 +157,19 @@ pub fn render_text(
                 .map(|(i, &dq)| format!("{} {:+.4}", loop_label(i), units.flow_from_m3s(dq)))
                 .collect();
             for (line, chunk) in cells.chunks(CORRECTIONS_PER_LINE).enumerate() {
-                if line == 0 {
-                    let _ = write!(
-                        out,
-                        "{:>5}  {:>18.6}  ",
-                        record.iteration,
-                        units.length_from_m(record.max_imbalance_m)
-                    );
+                // A long list of corrections goes on under the first line of its iteration.
+                let (iteration, imbalance) = if line == 0 {
+                    (
+                        record.iteration.to_string(),
+                        format!("{:.6}", units.length_from_m(record.max_imbalance_m)),
+                    )
                 } else {
-                    let _ = write!(out, "{:27}", "");
-                }
-                let _ = writeln!(out, "{}", chunk.join("  "));
+                    (String::new(), String::new())
+                };
+                history.row(vec![iteration, imbalance, chunk.join("  ")]);
             }
         }
-        let _ = writeln!(out);
+        let _ = writeln!(out, "{}", history.text(""));
     }
     let imbalance = units.length_from_m(solution.max_imbalance_m());
     let tolerance = units.length_from_m(options.tolerance_m);
@@ -187,30 +187,26 @@ pub fn render_text(
         "Balanced after {count} iteration(s): largest loop imbalance {imbalance:.6} {head_unit} \
          (tolerance {tolerance:.6} {head_unit})\n"
     );
-    let _ = writeln!(
-        out,
-        "{:<12} {:>14} {:>16}",
-        "pipe",
-        format!("flow ({flow_unit})"),
-        format!("head loss ({head_unit})")
-    );
+    let mut pipes = TextTable::new(&[
+        ("pipe", Align::Left),
+        (&format!("flow ({flow_unit})"), Align::Right),
+        (&format!("head loss ({head_unit})"), Align::Right),
+    ]);
     for (i, pipe) in net.pipes.iter().enumerate() {
-        let _ = writeln!(
-            out,
-            "{:<12} {:>14.3} {:>16.4}",
-            pipe.id,
-            units.flow_from_m3s(solution.pipe_flow_m3s[i]),
-            units.length_from_m(solution.pipe_head_loss_m[i])
-        );
+        pipes.row(vec![
+            pipe.id.clone(),
+            format!("{:.3}", units.flow_from_m3s(solution.pipe_flow_m3s[i])),
+            format!("{:.4}", units.length_from_m(solution.pipe_head_loss_m[i])),
+        ]);
     }
+    let _ = write!(out, "{}", pipes.text(""));
     let pressure_unit = units.pressure_label();
-    let _ = writeln!(
-        out,
-        "\n{:<12} {:>14} {:>16}",
-        "junction",
-        format!("head ({head_unit})"),
-        format!("pressure ({pressure_unit})")
-    );
+    let mut junctions = TextTable::new(&[
+        ("junction", Align::Left),
+        (&format!("head ({head_unit})"), Align::Right),
+        (&format!("pressure ({pressure_unit})"), Align::Right),
+        ("", Align::Left),
+    ]);
     let mut negative = Vec::new();
     for (j, junction) in net.junctions.iter().enumerate() {
         let head_m = solution.junction_head_m[j];
@@ -218,19 +214,19 @@ pub fn render_text(
         if pressure_head_m < 0.0 {
             negative.push(junction.id.as_str());
         }
-        let _ = writeln!(
-            out,
-            "{:<12} {:>14.3} {:>16.2}{}",
-            junction.id,
-            units.length_from_m(head_m),
-            units.pressure_from_head_m(pressure_head_m),
+        junctions.row(vec![
+            junction.id.clone(),
+            format!("{:.3}", units.length_from_m(head_m)),
+            format!("{:.2}", units.pressure_from_head_m(pressure_head_m)),
             if pressure_head_m < 0.0 {
-                "  NEGATIVE"
+                "NEGATIVE"
             } else {
                 ""
             }
-        );
+            .to_string(),
+        ]);
     }
+    let _ = write!(out, "\n{}", junctions.text(""));
     if !negative.is_empty() {
         let _ = writeln!(
             out,

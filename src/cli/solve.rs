@@ -8,6 +8,7 @@ use anyhow::{Context, bail};
 use roughcal::hydraulics::{GradientSolver, LinkRef, OperatingState, Solution, SolveWarning};
 use roughcal::network::Network;
 use roughcal::network::file::load_network_file;
+use roughcal::report::table::{Align, TextTable};
 use serde_json::json;
 
 use super::load_network_or_report;
@@ -195,68 +196,60 @@ fn render(
             .unwrap_or_default(),
         units.flow_from_m3s(solution.max_imbalance_m3s),
     );
-    let _ = writeln!(
-        out,
-        "\n{:<14} {:>10} {:>10} {:>10}",
-        "junction",
-        format!("head {len}"),
-        format!("p {pressure}"),
-        format!("q {flow}")
-    );
+    let mut junctions = TextTable::new(&[
+        ("junction", Align::Left),
+        (&format!("head {len}"), Align::Right),
+        (&format!("p {pressure}"), Align::Right),
+        (&format!("q {flow}"), Align::Right),
+        ("", Align::Left),
+    ]);
     for (j, junction) in net.junctions.iter().enumerate() {
         match solution.pressure_head_m(net, j) {
             Some(p) => {
                 let p = units.pressure_from_head_m(p);
-                let _ = writeln!(
-                    out,
-                    "{:<14} {:>10.2} {:>10.2} {:>10.2}{}",
-                    junction.id,
-                    units.length_from_m(solution.head_m[j]),
-                    p,
-                    units.flow_from_m3s(state.demand_m3s(net, j)),
-                    if p < 0.0 { "  NEGATIVE" } else { "" }
-                );
+                junctions.row(vec![
+                    junction.id.clone(),
+                    format!("{:.2}", units.length_from_m(solution.head_m[j])),
+                    format!("{p:.2}"),
+                    format!("{:.2}", units.flow_from_m3s(state.demand_m3s(net, j))),
+                    if p < 0.0 { "NEGATIVE" } else { "" }.to_string(),
+                ]);
             }
-            None => {
-                let _ = writeln!(out, "{:<14} {:>10} {:>10}", junction.id, "isolated", "-");
-            }
+            None => junctions.row(vec![junction.id.clone(), "isolated".into(), "-".into()]),
         }
     }
-    let _ = writeln!(
-        out,
-        "\n{:<14} {:>10} {:>10}  status",
-        "pipe",
-        format!("q {flow}"),
-        format!("hf {len}")
-    );
+    let _ = write!(out, "\n{}", junctions.text(""));
+    let mut pipes = TextTable::new(&[
+        ("pipe", Align::Left),
+        (&format!("q {flow}"), Align::Right),
+        (&format!("hf {len}"), Align::Right),
+        ("status", Align::Left),
+    ]);
     for (k, pipe) in net.pipes.iter().enumerate() {
-        let _ = writeln!(
-            out,
-            "{:<14} {:>10.2} {:>10.3}  {}",
-            pipe.id,
-            units.flow_from_m3s(solution.pipe_flow_m3s[k]),
-            units.length_from_m(solution.pipe_headloss_m[k]),
-            solution.pipe_status[k].label()
-        );
+        pipes.row(vec![
+            pipe.id.clone(),
+            format!("{:.2}", units.flow_from_m3s(solution.pipe_flow_m3s[k])),
+            format!("{:.3}", units.length_from_m(solution.pipe_headloss_m[k])),
+            solution.pipe_status[k].label().to_string(),
+        ]);
     }
+    let _ = write!(out, "\n{}", pipes.text(""));
     if !net.pumps.is_empty() {
-        let _ = writeln!(
-            out,
-            "\n{:<14} {:>10} {:>10}  status",
-            "pump",
-            format!("q {flow}"),
-            format!("gain {len}")
-        );
+        let mut pumps = TextTable::new(&[
+            ("pump", Align::Left),
+            (&format!("q {flow}"), Align::Right),
+            (&format!("gain {len}"), Align::Right),
+            ("status", Align::Left),
+        ]);
         for (k, pump) in net.pumps.iter().enumerate() {
-            let _ = writeln!(
-                out,
-                "{:<14} {:>10.2} {:>10.2}  {}",
-                pump.id,
-                units.flow_from_m3s(solution.pump_flow_m3s[k]),
-                units.length_from_m(solution.pump_head_gain_m[k]),
-                solution.pump_status[k].label()
-            );
+            pumps.row(vec![
+                pump.id.clone(),
+                format!("{:.2}", units.flow_from_m3s(solution.pump_flow_m3s[k])),
+                format!("{:.2}", units.length_from_m(solution.pump_head_gain_m[k])),
+                solution.pump_status[k].label().to_string(),
+            ]);
         }
+        let _ = write!(out, "\n{}", pumps.text(""));
     }
     for line in warning_lines(net, solution) {
         let _ = writeln!(out, "warning: {line}");

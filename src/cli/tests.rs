@@ -10,6 +10,7 @@ use roughcal::fieldtest::{
     screen_sheet,
 };
 use roughcal::network::file::load_network_file;
+use roughcal::report::table::{Align, TextTable};
 use serde_json::json;
 
 use super::fireflow::{CAUTION, finding_json};
@@ -97,22 +98,23 @@ fn table(rows: &[ModelComparison], target: f64, pressure: &str, flow: &str) -> S
         out,
         "Field tests against the model (pressures {pressure}, flows {flow}; available flow at {target} {pressure})\n"
     );
-    let _ = writeln!(
-        out,
-        "{:<10} {:<9} {:>7} {:>7} {:>7} {:>7} {:>6} {:>6} {:>6} {:>6} {:>7} {:>7}  findings",
-        "test",
-        "gauge",
-        "S meas",
-        "S mod",
-        "R meas",
-        "R mod",
-        "dS",
-        "dR",
-        "drop",
-        "drop m",
-        "Q fld",
-        "Q mod"
-    );
+    let right = |name| (name, Align::Right);
+    let mut table = TextTable::new(&[
+        ("test", Align::Left),
+        ("gauge", Align::Left),
+        right("S meas"),
+        right("S mod"),
+        right("R meas"),
+        right("R mod"),
+        right("dS"),
+        right("dR"),
+        right("drop"),
+        right("drop m"),
+        right("Q fld"),
+        right("Q mod"),
+        ("findings", Align::Left),
+    ])
+    .free_text_last();
     for c in rows {
         let mut flags: Vec<String> = c
             .findings
@@ -138,27 +140,29 @@ fn table(rows: &[ModelComparison], target: f64, pressure: &str, flow: &str) -> S
             AvailableFlow::Undefined => None,
             other => other.value(),
         };
-        let _ = writeln!(
-            out,
-            "{:<10} {:<9} {:>7.1} {:>7} {:>7.1} {:>7} {:>6} {:>6} {:>6.1} {:>6} {:>7} {:>7}  {}",
-            c.test_id,
-            c.residual_node,
-            c.measured_static,
+        table.row(vec![
+            c.test_id.clone(),
+            c.residual_node.clone(),
+            format!("{:.1}", c.measured_static),
             number(c.modelled_static, 1),
-            c.measured_residual,
+            format!("{:.1}", c.measured_residual),
             number(c.modelled_residual, 1),
             number(c.static_error(), 1),
             number(c.residual_error(), 1),
-            c.measured_drop(),
+            format!("{:.1}", c.measured_drop()),
             number(c.modelled_drop(), 1),
             number(field_available, 0),
             number(c.model_available, 0),
-            flags.first().cloned().unwrap_or_default()
-        );
+            flags.first().cloned().unwrap_or_default(),
+        ]);
+        // Further findings of the same test go on under its first.
         for flag in flags.iter().skip(1) {
-            let _ = writeln!(out, "{:>110}{flag}", "");
+            let mut cells = vec![String::new(); 12];
+            cells.push(flag.clone());
+            table.row(cells);
         }
     }
+    let _ = write!(out, "{}", table.text(""));
     let _ = writeln!(
         out,
         "\nS static, R residual, d = measured - modelled, Q fld = NFPA 291 extrapolation of the field\nreadings, Q mod = the model's flow at the target.\n{CAUTION}"

@@ -16,7 +16,7 @@ mod json;
 mod markdown;
 mod plot;
 mod sections;
-mod table;
+pub mod table;
 mod text;
 
 use std::collections::BTreeMap;

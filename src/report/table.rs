@@ -3,25 +3,37 @@
 
 /// How a column's cells line up.
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]
-pub(crate) enum Align {
+pub enum Align {
     Left,
     Right,
 }
 
+/// Rows of text cells under named columns, each column as wide as its widest cell.
 #[derive(Debug, Clone)]
-pub(crate) struct TextTable {
+pub struct TextTable {
     headers: Vec<String>,
     align: Vec<Align>,
     rows: Vec<Vec<String>>,
+    /// The last column holds running text (findings, lists) whose rule stops at its header.
+    free_text_last: bool,
 }
 
 impl TextTable {
+    /// An empty table with these column headers and alignments.
     pub fn new(columns: &[(&str, Align)]) -> Self {
         Self {
             headers: columns.iter().map(|c| c.0.to_string()).collect(),
             align: columns.iter().map(|c| c.1).collect(),
             rows: Vec::new(),
+            free_text_last: false,
         }
+    }
+
+    /// Marks the last column as running text: in plain text its rule is only as wide as its header, so
+    /// one long finding does not draw a line across the screen.
+    pub fn free_text_last(mut self) -> Self {
+        self.free_text_last = true;
+        self
     }
 
     /// Adds a row; missing cells are blank, extra cells are dropped.
@@ -64,7 +76,21 @@ impl TextTable {
     pub fn text(&self, indent: &str) -> String {
         let widths = self.widths();
         let mut out = String::new();
-        let rule: Vec<String> = widths.iter().map(|&w| "-".repeat(w)).collect();
+        // A column without a header (flags such as NEGATIVE) gets no rule either.
+        let last = widths.len().saturating_sub(1);
+        let rule: Vec<String> = widths
+            .iter()
+            .zip(&self.headers)
+            .enumerate()
+            .map(|(i, (&w, h))| {
+                let w = if self.free_text_last && i == last {
+                    h.chars().count()
+                } else {
+                    w
+                };
+                "-".repeat(if h.is_empty() { 0 } else { w })
+            })
+            .collect();
         for cells in std::iter::once(&self.headers)
             .chain(std::iter::once(&rule))
             .chain(&self.rows)
@@ -122,5 +148,19 @@ mod tests {
         let markdown = table.markdown();
         assert!(markdown.starts_with("| group   |     C |\n| :------ | ----: |\n"));
         assert!(markdown.contains("| di      | 118.0 |"));
+    }
+
+    #[test]
+    fn free_text_and_headerless_columns_draw_short_rules() {
+        let mut table = TextTable::new(&[("id", Align::Left), ("", Align::Left)]);
+        table.row(vec!["J-1".into(), "NEGATIVE".into()]);
+        assert_eq!(table.text(""), "id\n---\nJ-1  NEGATIVE\n");
+        let mut table =
+            TextTable::new(&[("id", Align::Left), ("notes", Align::Left)]).free_text_last();
+        table.row(vec!["J-1".into(), "a long note on this junction".into()]);
+        assert_eq!(
+            table.text(""),
+            "id   notes\n---  -----\nJ-1  a long note on this junction\n"
+        );
     }
 }
