@@ -211,6 +211,27 @@ fn noise_free_readings_recover_the_true_c_to_half_a_unit() {
 }
 
 #[test]
+fn the_fit_is_the_same_on_one_thread_or_several() {
+    // Design property (common practice, no source): sharing the tests over threads must not change the
+    // answer, since each test's warm starts come only from its own earlier solves.
+    let truth = grid_network([72.0, 118.0, 100.0]);
+    let tests = synthetic_tests(&truth, &PLAN, &[0.4, -0.3, 0.2, 0.5, -0.6, 0.1, 0.3, -0.2]);
+    let model = grid_network([100.0, 100.0, 100.0]);
+    let with_threads = |threads: usize| {
+        let options = CalibrationOptions {
+            worker_threads: Some(threads),
+            ..CalibrationOptions::for_units(UnitSystem::Us)
+        };
+        run(&model, &tests, &options)
+    };
+    let one = with_threads(1);
+    assert!(one.converged, "{}", one.termination);
+    for threads in [2, 4, 16] {
+        assert_eq!(with_threads(threads), one, "{threads} threads");
+    }
+}
+
+#[test]
 fn noisy_readings_recover_the_truth_within_the_reported_interval() {
     let truth = grid_network([72.0, 118.0, 100.0]);
     // Deterministic gauge noise of about 1 psi spread (a fixed pseudo-random sequence).

@@ -38,6 +38,8 @@ pub struct Evaluator<'a> {
     base_c: Vec<f64>,
     /// The previous evaluation's solutions (without their factorizations), to warm-start the next.
     previous: Mutex<PreviousSolutions>,
+    /// Threads an evaluation shares the tests over (at least 1).
+    threads: usize,
 }
 
 /// One test's pressures and the residual solution they came from.
@@ -55,6 +57,7 @@ impl<'a> Evaluator<'a> {
         net: &'a Network,
         tests: &'a [CalibrationTest],
         parameter_pipes: Vec<Vec<usize>>,
+        threads: Option<usize>,
     ) -> Result<Self, SolveError> {
         let solver = GradientSolver::new(net)?;
         let mut static_states: Vec<OperatingState> = Vec::new();
@@ -86,6 +89,10 @@ impl<'a> Evaluator<'a> {
             static_state_of_test,
             static_states,
             previous: Mutex::new(PreviousSolutions::default()),
+            threads: threads
+                .or_else(|| std::thread::available_parallelism().ok().map(|n| n.get()))
+                .unwrap_or(1)
+                .max(1),
             residual_states,
             base_c: net.c_factors(),
         })
@@ -108,6 +115,7 @@ impl<'a> Evaluator<'a> {
                 statics: previous.statics.clone(),
                 residuals: previous.residuals.clone(),
             }),
+            threads: self.threads,
         }
     }
 
@@ -152,9 +160,7 @@ impl<'a> Evaluator<'a> {
             })
             .collect::<Result<_, _>>()?;
 
-        let threads = std::thread::available_parallelism()
-            .map_or(1, |n| n.get())
-            .clamp(1, self.tests.len().max(1));
+        let threads = self.threads.clamp(1, self.tests.len().max(1));
         let warm_residuals = &previous.residuals;
         let evaluate_share = |share: usize| -> Vec<(usize, TestOutcome)> {
             (share..self.tests.len())

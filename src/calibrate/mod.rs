@@ -79,6 +79,9 @@ pub struct CalibrationOptions {
     /// A group is informed by a test when a change of [`INFORMED_C_CHANGE`] in its C moves one of the
     /// test's fitted readings by at least this many gauge standard deviations.
     pub informed_response_sd: f64,
+    /// Threads the tests are shared over at each model evaluation; `None` for one per core. The result
+    /// does not depend on it: each test's solves depend only on that test's own earlier solves.
+    pub worker_threads: Option<usize>,
 }
 
 /// The change of C used to judge whether a test informs a group (see
@@ -103,6 +106,7 @@ impl CalibrationOptions {
                 units.pressure_to_head_m(loose),
             ),
             informed_response_sd: 0.25,
+            worker_threads: None,
         }
     }
 }
@@ -282,7 +286,7 @@ pub fn calibrate(
     // First pass: sensitivities of every candidate group at the start values.
     let all_pipes: Vec<Vec<usize>> = candidates.iter().map(|c| c.pipes.clone()).collect();
     let start_c: Vec<f64> = candidates.iter().map(|c| c.start_c).collect();
-    let screening = evaluate::Evaluator::new(net, tests, all_pipes)?;
+    let screening = evaluate::Evaluator::new(net, tests, all_pipes, options.worker_threads)?;
     // The start is the network as written, pipe by pipe.
     let start_eval = screening.evaluate_pipes(&net.c_factors(), true)?;
     check_gauges_connected(tests, &start_eval)?;
