@@ -453,8 +453,10 @@ fn the_fit_runs_on_a_worker_and_can_be_cancelled() {
     assert!(app.message.as_ref().unwrap().text.contains("cancelled"));
 
     // The export writes the five outputs of `calibrate --out`, byte for byte what the command writes
-    // for the same files, into a fresh numbered folder beside the sheet.
+    // for the same files, into a fresh numbered folder beside the sheet (the prompt left empty).
     ctrl(&mut app, &mut runner, 'e');
+    assert!(screen(&app, 80, 24).contains("export to folder"));
+    key(&mut app, &mut runner, KeyCode::Enter);
     let folder = app.export_folder.clone().expect("exported");
     assert_eq!(folder, dir.path().join("roughcal-export-1"));
     assert!(app.message.as_ref().unwrap().text.contains("exported ("));
@@ -501,7 +503,13 @@ fn the_fit_runs_on_a_worker_and_can_be_cancelled() {
                     && std::fs::metadata(&path).unwrap().modified().unwrap() == *modified
             })
     };
+    // The prompt offers this session's folder.
     ctrl(&mut app, &mut runner, 'e');
+    assert_eq!(
+        app.export_prompt.as_ref().unwrap().buffer,
+        folder.display().to_string()
+    );
+    key(&mut app, &mut runner, KeyCode::Enter);
     assert!(app.confirm.is_some());
     assert!(app.message.as_ref().unwrap().text.contains("overwrite"));
     assert!(unchanged());
@@ -511,6 +519,7 @@ fn the_fit_runs_on_a_worker_and_can_be_cancelled() {
     // No other folder appeared either: the network, the sheet and the two output folders.
     assert_eq!(std::fs::read_dir(dir.path()).unwrap().count(), 4);
     ctrl(&mut app, &mut runner, 'e');
+    key(&mut app, &mut runner, KeyCode::Enter);
     key(&mut app, &mut runner, KeyCode::Char('y'));
     assert!(app.confirm.is_none());
     assert!(app.message.as_ref().unwrap().text.contains("exported ("));
@@ -518,6 +527,30 @@ fn the_fit_runs_on_a_worker_and_can_be_cancelled() {
         std::fs::read_to_string(&marked).unwrap(),
         std::fs::read_to_string(command_folder.join(COEFFICIENTS_CSV)).unwrap()
     );
+
+    // A folder typed into the prompt gets the outputs; Esc gives up without writing anything.
+    let chosen = dir.path().join("for-planning");
+    ctrl(&mut app, &mut runner, 'e');
+    for _ in 0..folder.display().to_string().chars().count() {
+        key(&mut app, &mut runner, KeyCode::Backspace);
+    }
+    type_text(&mut app, &mut runner, &chosen.display().to_string());
+    key(&mut app, &mut runner, KeyCode::Enter);
+    assert_eq!(app.export_folder.as_ref(), Some(&chosen));
+    for name in OUTPUT_FILES {
+        assert!(chosen.join(name).exists(), "{name}");
+    }
+    ctrl(&mut app, &mut runner, 'e');
+    key(&mut app, &mut runner, KeyCode::Esc);
+    assert!(app.export_prompt.is_none());
+    assert!(
+        app.message
+            .as_ref()
+            .unwrap()
+            .text
+            .contains("export cancelled")
+    );
+    assert_eq!(std::fs::read_dir(dir.path()).unwrap().count(), 5);
 }
 
 #[test]

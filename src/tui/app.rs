@@ -301,6 +301,8 @@ pub struct App {
     pub network_unsaved: bool,
     /// The export folder of this session, once chosen.
     pub export_folder: Option<PathBuf>,
+    /// The folder being typed after Ctrl+E; empty means a new `roughcal-export-N` beside the sheet.
+    pub export_prompt: Option<CellEdit>,
     pub quit: bool,
 }
 
@@ -424,6 +426,7 @@ impl App {
             unsaved: false,
             network_unsaved: false,
             export_folder: None,
+            export_prompt: None,
             quit: false,
         };
         app.network_changed();
@@ -646,6 +649,22 @@ pub fn group_rows(net: &Network) -> Vec<GroupRow> {
 /// Turns the state and an action into the next state and the effects to carry out.
 pub fn update(app: &mut App, action: Action) -> Vec<Effect> {
     let mut effects = Vec::new();
+    if app.export_prompt.is_some()
+        && matches!(
+            action,
+            Action::InsertChar(_)
+                | Action::DeleteBack
+                | Action::DeleteForward
+                | Action::EditCursor(_)
+                | Action::CommitEdit(_)
+                | Action::CompleteOrCommit
+                | Action::CancelEdit
+                | Action::Escape
+        )
+    {
+        export_prompt_action(app, action, &mut effects);
+        return effects;
+    }
     match action {
         Action::Resize(width, height) => {
             app.width = width;
@@ -701,7 +720,7 @@ pub fn update(app: &mut App, action: Action) -> Vec<Effect> {
             }
         }
         Action::CalibrationFinished(result) => finish_calibration(app, *result),
-        Action::Export => export(app, false, &mut effects),
+        Action::Export => open_export_prompt(app),
         Action::ExportRefused(folder) => {
             app.confirm = Some(Confirm::OverwriteExport(folder.clone()));
             app.info(format!(
@@ -819,8 +838,7 @@ fn confirm(app: &mut App, yes: bool, effects: &mut Vec<Effect>) {
         }
         Confirm::OverwriteExport(folder) => {
             // The question was about this folder: the forced export goes there and nowhere else.
-            app.export_folder = Some(folder);
-            export(app, true, effects);
+            export(app, true, Some(folder), effects);
         }
     }
 }
@@ -1364,7 +1382,42 @@ fn finish_calibration(app: &mut App, result: Result<CalibrationResult, Calibrati
     }
 }
 
-fn export(app: &mut App, force: bool, effects: &mut Vec<Effect>) {
+/// Ctrl+E: asks where to export, offering this session's export folder if there is one.
+fn open_export_prompt(app: &mut App) {
+    if app.fit.outcome.is_none() {
+        app.error("nothing to export yet: run the fit first (Ctrl+R)");
+        return;
+    }
+    let offered = app
+        .export_folder
+        .as_ref()
+        .map(|f| f.display().to_string())
+        .unwrap_or_default();
+    app.export_prompt = Some(CellEdit::new(0, 0, &offered));
+}
+
+/// Typing in the export prompt; Enter exports, Esc gives up.
+fn export_prompt_action(app: &mut App, action: Action, effects: &mut Vec<Effect>) {
+    if let Some(prompt) = &mut app.export_prompt
+        && edit_text(prompt, &action)
+    {
+        return;
+    }
+    let Some(prompt) = app.export_prompt.take() else {
+        return;
+    };
+    match action {
+        Action::CommitEdit(_) | Action::CompleteOrCommit => {
+            let typed = prompt.buffer.trim();
+            let folder = (!typed.is_empty()).then(|| PathBuf::from(typed));
+            export(app, false, folder, effects);
+        }
+        _ => app.info("export cancelled"),
+    }
+}
+
+/// Writes the outputs into `folder`, or into a new numbered folder beside the sheet when `None`.
+fn export(app: &mut App, force: bool, folder: Option<PathBuf>, effects: &mut Vec<Effect>) {
     let Some(outcome) = &app.fit.outcome else {
         app.error("nothing to export yet: run the fit first (Ctrl+R)");
         return;
@@ -1388,7 +1441,8 @@ fn export(app: &mut App, force: bool, effects: &mut Vec<Effect>) {
             return;
         }
     };
-    let folder = app.export_folder.clone().unwrap_or_else(|| {
+    let numbered = folder.is_none();
+    let folder = folder.unwrap_or_else(|| {
         let base = app
             .session
             .sheet_path
@@ -1399,7 +1453,7 @@ fn export(app: &mut App, force: bool, effects: &mut Vec<Effect>) {
     });
     effects.push(Effect::WriteExport(Box::new(ExportJob {
         folder,
-        numbered: app.export_folder.is_none(),
+        numbered,
         force,
         outputs,
     })));

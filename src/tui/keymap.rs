@@ -16,7 +16,7 @@ pub const KEY_HELP: [(&str, &[(&str, &str)]); 6] = [
             ("Alt+1 .. 4", "same; 1 .. 4 in Fit, Map"),
             ("Ctrl+R", "run the fit"),
             ("Esc", "cancel fit/question/edit"),
-            ("Ctrl+E", "export beside the sheet"),
+            ("Ctrl+E", "export (asks for the folder)"),
             ("Ctrl+Q Ctrl+C", "quit (all is saved)"),
         ],
     ),
@@ -69,6 +69,9 @@ pub fn key_hints(app: &App) -> &'static [(&'static str, &'static str)] {
     }
     if app.help {
         return &[("Esc", "close help")];
+    }
+    if app.export_prompt.is_some() {
+        return &[("Enter", "export"), ("Esc", "cancel")];
     }
     if app.readings.edit.is_some() || app.groups.edit.is_some() {
         return &[
@@ -173,7 +176,7 @@ pub fn action_for_key(app: &App, key: KeyEvent) -> Option<Action> {
     if let Some(view) = view_key {
         return Some(Action::SwitchView(view));
     }
-    if app.readings.edit.is_some() || app.groups.edit.is_some() {
+    if app.readings.edit.is_some() || app.groups.edit.is_some() || app.export_prompt.is_some() {
         return editing_key(app, key, ctrl);
     }
     if key.code == KeyCode::Esc {

@@ -12,6 +12,9 @@ use crate::tui::keymap::key_hints;
 
 /// The first status line's text and whether it is an error.
 pub fn status_text(app: &App) -> (String, bool) {
+    if let Some(prompt) = &app.export_prompt {
+        return (prompt_line(app, &prompt.buffer, prompt.cursor), false);
+    }
     if let Some(edit) = &app.readings.edit
         && app.view == View::Readings
         && app.is_node_column(edit.column)
@@ -65,6 +68,28 @@ pub fn status_text(app: &App) -> (String, bool) {
         );
     }
     (app.session.network_path.display().to_string(), false)
+}
+
+/// The export prompt with a `|` at the cursor, scrolled so the cursor stays on the screen.
+fn prompt_line(app: &App, buffer: &str, cursor: usize) -> String {
+    let label = if buffer.is_empty() {
+        "export to folder (empty: a new roughcal-export-N by the sheet): "
+    } else {
+        "export to folder: "
+    };
+    let mut chars: Vec<char> = buffer.chars().collect();
+    let cursor = cursor.min(chars.len());
+    chars.insert(cursor, '|');
+    let room = usize::from(app.width)
+        .saturating_sub(label.chars().count() + 1)
+        .max(8);
+    // Keep the cursor in view: scroll left by as much as it would run past the right edge.
+    let start = (cursor + 1).saturating_sub(room);
+    let mut shown: String = chars.iter().skip(start).take(room).collect();
+    if start > 0 {
+        shown.replace_range(..shown.char_indices().nth(1).map_or(0, |(i, _)| i), "~");
+    }
+    format!("{label}{shown}")
 }
 
 pub fn render(app: &App, frame: &mut Frame, area: Rect) {
