@@ -46,7 +46,7 @@ pub struct Evaluator<'a> {
 type TestOutcome = Result<(TestEvaluation, Solution), SolveError>;
 
 /// Empty until the first evaluation; a missing entry means "start from the static solution or cold".
-#[derive(Default)]
+#[derive(Default, Clone)]
 struct PreviousSolutions {
     statics: Vec<Option<Solution>>,
     residuals: Vec<Option<Solution>>,
@@ -111,10 +111,7 @@ impl<'a> Evaluator<'a> {
             static_states: self.static_states.clone(),
             residual_states: self.residual_states.clone(),
             base_c: self.base_c.clone(),
-            previous: Mutex::new(PreviousSolutions {
-                statics: previous.statics.clone(),
-                residuals: previous.residuals.clone(),
-            }),
+            previous: Mutex::new(previous.clone()),
             threads: self.threads,
         }
     }
@@ -130,22 +127,14 @@ impl<'a> Evaluator<'a> {
         c
     }
 
-    /// Solves every test at `group_c`; with `sensitivities`, also the derivatives.
-    pub fn evaluate(
-        &self,
-        group_c: &[f64],
-        sensitivities: bool,
-    ) -> Result<Vec<TestEvaluation>, SolveError> {
-        self.evaluate_pipes(&self.pipe_c_factors(group_c), sensitivities)
+    /// Solves every test at `group_c`, with the derivatives.
+    pub fn evaluate(&self, group_c: &[f64]) -> Result<Vec<TestEvaluation>, SolveError> {
+        self.evaluate_pipes(&self.pipe_c_factors(group_c))
     }
 
     /// Solves every test with the C of every pipe given (groups that are not being fitted keep each
-    /// pipe's own C, which need not be equal within a group).
-    pub fn evaluate_pipes(
-        &self,
-        c: &[f64],
-        sensitivities: bool,
-    ) -> Result<Vec<TestEvaluation>, SolveError> {
+    /// pipe's own C, which need not be equal within a group), with the derivatives.
+    pub fn evaluate_pipes(&self, c: &[f64]) -> Result<Vec<TestEvaluation>, SolveError> {
         let mut previous = self.previous.lock().unwrap_or_else(PoisonError::into_inner);
         // One set of resistances serves every solve of this evaluation.
         let resistance = self.solver.pipe_resistances(self.net, c);
@@ -170,15 +159,14 @@ impl<'a> Evaluator<'a> {
                     let warm = warm_residuals.get(t).and_then(Option::as_ref);
                     (
                         t,
-                        self.evaluate_test(t, c, resistance, static_solution, warm, sensitivities),
+                        self.evaluate_test(t, c, resistance, static_solution, warm),
                     )
                 })
                 .collect()
         };
         // Tests are dealt round-robin so that each thread gets a fair mix; results go back in test order.
-        let mut results: Vec<Option<TestOutcome>> = (0..self.tests.len()).map(|_| None).collect();
-        let shares: Vec<_> = if threads == 1 {
-            vec![evaluate_share(0)]
+        let mut results: Vec<(usize, TestOutcome)> = if threads == 1 {
+            evaluate_share(0)
         } else {
             std::thread::scope(|scope| {
                 let handles: Vec<_> = (0..threads)
@@ -186,32 +174,29 @@ impl<'a> Evaluator<'a> {
                     .collect();
                 handles
                     .into_iter()
-                    .map(|h| h.join().unwrap_or_else(|e| std::panic::resume_unwind(e)))
+                    .flat_map(|h| h.join().unwrap_or_else(|e| std::panic::resume_unwind(e)))
                     .collect()
             })
         };
-        for (t, result) in shares.into_iter().flatten() {
-            results[t] = Some(result);
-        }
+        results.sort_by_key(|(t, _)| *t);
 
         let mut out = Vec::with_capacity(self.tests.len());
         let mut residual_solutions = Vec::with_capacity(self.tests.len());
-        for result in results {
-            let (evaluation, solution) = result.ok_or(SolveError::SizeMismatch {
-                what: "the evaluated test list",
-                found: out.len(),
-                expected: self.tests.len(),
-            })??;
+        for (_, result) in results {
+            let (evaluation, solution) = result?;
             out.push(evaluation);
             residual_solutions.push(Some(solution));
         }
-        previous.statics = statics.iter().map(|s| Some(s.warm_start_copy())).collect();
+        previous.statics = statics
+            .into_iter()
+            .map(|s| Some(s.into_warm_start()))
+            .collect();
         previous.residuals = residual_solutions;
         Ok(out)
     }
 
-    /// Pressures (and their sensitivities) of test `t`: its residual state solved, warm-started from
-    /// its own previous solution or else from the static one.
+    /// Pressures and their sensitivities of test `t`: its residual state solved, warm-started from its
+    /// own previous solution or else from the static one.
     fn evaluate_test(
         &self,
         t: usize,
@@ -219,7 +204,6 @@ impl<'a> Evaluator<'a> {
         resistance: &[f64],
         static_solution: &Solution,
         previous: Option<&Solution>,
-        sensitivities: bool,
     ) -> TestOutcome {
         let residual_solution = self.solve_warm(
             &self.residual_states[t],
@@ -229,21 +213,13 @@ impl<'a> Evaluator<'a> {
         )?;
         let j = self.tests[t].residual_junction;
         let elevation = self.net.junctions[j].elevation_m;
-        let (d_static_d_c, d_residual_d_c) = if sensitivities {
-            (
-                self.group_sensitivity(static_solution, c, j),
-                self.group_sensitivity(&residual_solution, c, j),
-            )
-        } else {
-            (Vec::new(), Vec::new())
-        };
         let evaluation = TestEvaluation {
             static_head_m: static_solution.head_m[j] - elevation,
             residual_head_m: residual_solution.head_m[j] - elevation,
-            d_static_d_c,
-            d_residual_d_c,
+            d_static_d_c: self.group_sensitivity(static_solution, c, j),
+            d_residual_d_c: self.group_sensitivity(&residual_solution, c, j),
         };
-        Ok((evaluation, residual_solution.warm_start_copy()))
+        Ok((evaluation, residual_solution.into_warm_start()))
     }
 
     /// Solves `state` from `warm`; if that start fails, from `fallback`, and last from cold. A start far
@@ -256,23 +232,19 @@ impl<'a> Evaluator<'a> {
         warm: Option<&Solution>,
         fallback: Option<&Solution>,
     ) -> Result<Solution, SolveError> {
-        let same = |a: Option<&Solution>, b: Option<&Solution>| match (a, b) {
-            (Some(a), Some(b)) => std::ptr::eq(a, b),
-            (None, None) => true,
-            _ => false,
+        let solve = |start| {
+            self.solver
+                .solve_with_resistances(self.net, state, resistance, start)
         };
-        let mut result = self
-            .solver
-            .solve_with_resistances(self.net, state, resistance, warm);
-        let mut tried = vec![warm];
-        for start in [fallback, None] {
-            if result.is_ok() || tried.iter().any(|&t| same(t, start)) {
-                continue;
-            }
-            result = self
-                .solver
-                .solve_with_resistances(self.net, state, resistance, start);
-            tried.push(start);
+        let mut result = solve(warm);
+        if result.is_err()
+            && let Some(fallback) = fallback
+            && !warm.is_some_and(|w| std::ptr::eq(w, fallback))
+        {
+            result = solve(Some(fallback));
+        }
+        if result.is_err() && (warm.is_some() || fallback.is_some()) {
+            result = solve(None);
         }
         result
     }

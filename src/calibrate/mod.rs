@@ -288,7 +288,7 @@ pub fn calibrate(
     let start_c: Vec<f64> = candidates.iter().map(|c| c.start_c).collect();
     let screening = evaluate::Evaluator::new(net, tests, all_pipes, options.worker_threads)?;
     // The start is the network as written, pipe by pipe.
-    let start_eval = screening.evaluate_pipes(&net.c_factors(), true)?;
+    let start_eval = screening.evaluate_pipes(&net.c_factors())?;
     check_gauges_connected(tests, &start_eval)?;
     let (_, start_rows) =
         evaluate::residual_rows(tests, &start_eval, options.fit, options.gauge_sd_m);
@@ -335,7 +335,7 @@ pub fn calibrate(
             pipe_c_after[k] = final_c[g];
         }
     }
-    let final_eval = screening.evaluate_pipes(&pipe_c_after, true)?;
+    let final_eval = screening.evaluate_pipes(&pipe_c_after)?;
     check_gauges_connected(tests, &final_eval)?;
     let (final_residuals, final_rows) =
         evaluate::residual_rows(tests, &final_eval, options.fit, options.gauge_sd_m);

@@ -102,7 +102,7 @@ impl FitProblem<'_, '_> {
             return Ok(());
         }
         let c = self.bounds.to_c(u);
-        match self.evaluator.evaluate(&c, true) {
+        match self.evaluator.evaluate(&c) {
             Ok(evaluations) => {
                 *self.cache.borrow_mut() = Some(Cached {
                     u: u.clone(),

@@ -287,23 +287,11 @@ struct FactorizedSystem {
 }
 
 impl Solution {
-    /// A copy for warm-starting later solves: flows, heads and statuses without the factorization, which
-    /// can be large.
-    pub fn warm_start_copy(&self) -> Solution {
-        Solution {
-            head_m: self.head_m.clone(),
-            pipe_flow_m3s: self.pipe_flow_m3s.clone(),
-            pipe_headloss_m: self.pipe_headloss_m.clone(),
-            pipe_status: self.pipe_status.clone(),
-            pump_flow_m3s: self.pump_flow_m3s.clone(),
-            pump_head_gain_m: self.pump_head_gain_m.clone(),
-            pump_status: self.pump_status.clone(),
-            iterations: self.iterations,
-            max_imbalance_m3s: self.max_imbalance_m3s,
-            isolated: self.isolated.clone(),
-            warnings: self.warnings.clone(),
-            system: None,
-        }
+    /// This solution kept only for warm-starting later solves: flows, heads and statuses, with the
+    /// factorization (which can be large) dropped.
+    pub fn into_warm_start(mut self) -> Solution {
+        self.system = None;
+        self
     }
 
     /// Pressure head (m of water above the junction elevation), or `None` for an isolated junction.

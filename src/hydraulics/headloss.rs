@@ -49,12 +49,8 @@ impl HazenWilliams {
         r * q_m3s * q_m3s.abs().powf(HW_FLOW_EXPONENT - 1.0)
     }
 
-    /// d(head loss)/dq = 1.852 r |q|^0.852.
-    pub fn head_loss_slope(r: f64, q_m3s: f64) -> f64 {
-        HW_FLOW_EXPONENT * r * q_m3s.abs().powf(HW_FLOW_EXPONENT - 1.0)
-    }
-
-    /// Head loss and its slope together, with one power evaluation: (r q|q|^0.852, 1.852 r |q|^0.852).
+    /// Head loss and its slope d(head loss)/dq together, with one power evaluation:
+    /// (r q|q|^0.852, 1.852 r |q|^0.852).
     pub fn head_loss_and_slope(r: f64, q_m3s: f64) -> (f64, f64) {
         let scaled = r * q_m3s.abs().powf(HW_FLOW_EXPONENT - 1.0);
         (scaled * q_m3s, HW_FLOW_EXPONENT * scaled)
