@@ -1,10 +1,13 @@
 //! Calibration against cases whose answer is known: the head-loss ratio closed form, and synthetic
 //! readings made from known "true" C-factors.
 
+mod common;
+
 use std::sync::atomic::AtomicBool;
 
 use roughcal::calibrate::{CalibrationOptions, CalibrationTest, FitTarget, GroupStatus, calibrate};
-use roughcal::hydraulics::{GradientSolver, OperatingState};
+
+use common::{PLAN, synthetic_readings};
 use roughcal::network::{FixedHead, Junction, Network, NodeRef, Pipe, RoughnessGroup, UnitSystem};
 
 fn group(name: &str, min_c: f64, max_c: f64) -> RoughnessGroup {
@@ -136,48 +139,6 @@ fn grid_network(c_by_group: [f64; 3]) -> Network {
     }
 }
 
-/// Readings a perfect gauge would show on `truth`, plus `noise_psi[i]` on each reading.
-fn synthetic_tests(
-    truth: &Network,
-    plan: &[(usize, usize, f64)],
-    noise_psi: &[f64],
-) -> Vec<CalibrationTest> {
-    let units = truth.units;
-    let solver = GradientSolver::new(truth).unwrap();
-    let base = OperatingState::base(truth);
-    let c = truth.c_factors();
-    let statics = solver.solve(truth, &base, &c, None).unwrap();
-    plan.iter()
-        .enumerate()
-        .map(|(i, &(gauge, hydrant, gpm))| {
-            let mut state = base.clone();
-            state.add_demand(hydrant, units.flow_to_m3s(gpm));
-            let flowing = solver.solve(truth, &state, &c, Some(&statics)).unwrap();
-            let elevation = truth.junctions[gauge].elevation_m;
-            let noise =
-                |k: usize| units.pressure_to_head_m(noise_psi.get(k).copied().unwrap_or(0.0));
-            CalibrationTest {
-                id: format!("T{i}"),
-                residual_junction: gauge,
-                condition: None,
-                hydrant_flows_m3s: vec![(hydrant, units.flow_to_m3s(gpm))],
-                static_head_m: statics.head_m[gauge] - elevation + noise(2 * i),
-                residual_head_m: flowing.head_m[gauge] - elevation + noise(2 * i + 1),
-            }
-        })
-        .collect()
-}
-
-/// Tests that stress both halves of the grid and never the spur.
-const PLAN: [(usize, usize, f64); 6] = [
-    (5, 9, 900.0),
-    (4, 8, 1000.0),
-    (9, 13, 800.0),
-    (10, 14, 1100.0),
-    (11, 15, 900.0),
-    (6, 7, 1000.0),
-];
-
 fn run(
     net: &Network,
     tests: &[CalibrationTest],
@@ -191,7 +152,7 @@ fn noise_free_readings_recover_the_true_c_to_half_a_unit() {
     // Synthetic recovery (common practice, no source): readings made on the true network, model started
     // elsewhere, the fit must come back to the truth.
     let truth = grid_network([72.0, 118.0, 100.0]);
-    let tests = synthetic_tests(&truth, &PLAN, &[]);
+    let tests = synthetic_readings(&truth, &PLAN, &[], "T");
     let model = grid_network([100.0, 100.0, 100.0]);
     let result = run(
         &model,
@@ -215,7 +176,12 @@ fn the_fit_is_the_same_on_one_thread_or_several() {
     // Design property (common practice, no source): sharing the tests over threads must not change the
     // answer, since each test's warm starts come only from its own earlier solves.
     let truth = grid_network([72.0, 118.0, 100.0]);
-    let tests = synthetic_tests(&truth, &PLAN, &[0.4, -0.3, 0.2, 0.5, -0.6, 0.1, 0.3, -0.2]);
+    let tests = synthetic_readings(
+        &truth,
+        &PLAN,
+        &[0.4, -0.3, 0.2, 0.5, -0.6, 0.1, 0.3, -0.2],
+        "T",
+    );
     let model = grid_network([100.0, 100.0, 100.0]);
     let with_threads = |threads: usize| {
         let options = CalibrationOptions {
@@ -238,7 +204,7 @@ fn noisy_readings_recover_the_truth_within_the_reported_interval() {
     let noise = [
         0.8, -1.1, 0.3, 0.9, -0.6, -1.4, 1.2, 0.2, -0.3, 0.7, -0.9, 1.0,
     ];
-    let tests = synthetic_tests(&truth, &PLAN, &noise);
+    let tests = synthetic_readings(&truth, &PLAN, &noise, "T");
     let model = grid_network([100.0, 100.0, 100.0]);
     let result = run(
         &model,
@@ -264,7 +230,7 @@ fn noisy_readings_recover_the_truth_within_the_reported_interval() {
 #[test]
 fn untouched_group_is_not_informed_and_locked_group_never_moves() {
     let truth = grid_network([72.0, 118.0, 60.0]);
-    let tests = synthetic_tests(&truth, &PLAN, &[]);
+    let tests = synthetic_readings(&truth, &PLAN, &[], "T");
     let model = grid_network([100.0, 100.0, 100.0]);
     let result = run(
         &model,
@@ -288,7 +254,7 @@ fn untouched_group_is_not_informed_and_locked_group_never_moves() {
 #[test]
 fn bounds_hold_when_the_truth_lies_outside_them() {
     let truth = grid_network([30.0, 118.0, 100.0]);
-    let tests = synthetic_tests(&truth, &PLAN, &[]);
+    let tests = synthetic_readings(&truth, &PLAN, &[], "T");
     let model = grid_network([100.0, 100.0, 100.0]);
     let result = run(
         &model,
@@ -387,7 +353,7 @@ fn single_path_matches_the_head_loss_ratio_method() {
 #[test]
 fn progress_is_reported_and_cancel_stops_the_run() {
     let truth = grid_network([72.0, 118.0, 100.0]);
-    let tests = synthetic_tests(&truth, &PLAN, &[]);
+    let tests = synthetic_readings(&truth, &PLAN, &[], "T");
     let model = grid_network([100.0, 100.0, 100.0]);
     let options = CalibrationOptions::for_units(UnitSystem::Us);
     let mut seen = Vec::new();
@@ -419,7 +385,7 @@ fn progress_is_reported_and_cancel_stops_the_run() {
 fn groups_not_fitted_keep_each_pipes_own_c() {
     // A locked group whose pipes differ in C must come back pipe for pipe, not at a group average.
     let truth = grid_network([72.0, 118.0, 100.0]);
-    let tests = synthetic_tests(&truth, &PLAN, &[]);
+    let tests = synthetic_readings(&truth, &PLAN, &[], "T");
     let mut model = grid_network([100.0, 100.0, 100.0]);
     let feeds: Vec<usize> = (0..model.pipes.len())
         .filter(|&k| model.pipes[k].group == Some(3))

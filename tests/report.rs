@@ -2,6 +2,8 @@
 //! code: the files parse back and agree with the result, the coefficient set round-trips through
 //! `apply`, and the CLI refuses to overwrite.
 
+mod common;
+
 use std::collections::BTreeMap;
 use std::fmt::Write as _;
 use std::process::Command;
@@ -10,7 +12,8 @@ use std::sync::atomic::AtomicBool;
 use roughcal::calibrate::{
     CAUTION, CalibrationOptions, CalibrationResult, CalibrationTest, GroupStatus, calibrate,
 };
-use roughcal::hydraulics::{GradientSolver, OperatingState};
+
+use common::{PLAN, synthetic_readings};
 use roughcal::network::Network;
 use roughcal::network::edit::apply_group_c;
 use roughcal::network::file::parse_network;
@@ -125,44 +128,6 @@ fn network(text: &str) -> Network {
     }
 }
 
-/// (residual junction, flowing junction, gpm): tests that stress both halves and never the spur.
-const PLAN: [(usize, usize, f64); 6] = [
-    (5, 9, 900.0),
-    (4, 8, 1000.0),
-    (9, 13, 800.0),
-    (10, 14, 1100.0),
-    (11, 15, 900.0),
-    (6, 7, 1000.0),
-];
-
-/// Readings a gauge would show on `truth`, plus a fixed small error (psi) on each.
-fn readings(truth: &Network, noise_psi: &[f64]) -> Vec<CalibrationTest> {
-    let units = truth.units;
-    let solver = GradientSolver::new(truth).unwrap();
-    let base = OperatingState::base(truth);
-    let c = truth.c_factors();
-    let statics = solver.solve(truth, &base, &c, None).unwrap();
-    PLAN.iter()
-        .enumerate()
-        .map(|(i, &(gauge, hydrant, gpm))| {
-            let mut state = base.clone();
-            state.add_demand(hydrant, units.flow_to_m3s(gpm));
-            let flowing = solver.solve(truth, &state, &c, Some(&statics)).unwrap();
-            let elevation = truth.junctions[gauge].elevation_m;
-            let noise =
-                |k: usize| units.pressure_to_head_m(noise_psi.get(k).copied().unwrap_or(0.0));
-            CalibrationTest {
-                id: format!("FT-{i}"),
-                residual_junction: gauge,
-                condition: None,
-                hydrant_flows_m3s: vec![(hydrant, units.flow_to_m3s(gpm))],
-                static_head_m: statics.head_m[gauge] - elevation + noise(2 * i),
-                residual_head_m: flowing.head_m[gauge] - elevation + noise(2 * i + 1),
-            }
-        })
-        .collect()
-}
-
 const NOISE: [f64; 12] = [
     0.8, -1.1, 0.3, 0.9, -0.6, -1.4, 1.2, 0.2, -0.3, 0.7, -0.9, 1.0,
 ];
@@ -179,7 +144,7 @@ struct Fixture {
 impl Fixture {
     fn new(max_iterations: u64) -> Self {
         let truth = network(&network_text(72.0, 118.0, 60.0));
-        let tests = readings(&truth, &NOISE);
+        let tests = synthetic_readings(&truth, &PLAN, &NOISE, "FT-");
         let text = network_text(100.0, 100.0, 100.0);
         let net = network(&text);
         let mut options = CalibrationOptions::for_units(net.units);
