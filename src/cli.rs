@@ -131,6 +131,40 @@ pub enum Command {
         #[arg(long, default_value = ".")]
         root: PathBuf,
     },
+    /// Write a synthetic city (network and field sheet) for trying and measuring at scale.
+    #[command(hide = true)]
+    MakeCity {
+        /// The folder to write `city.toml` and `city.csv` into (created if needed).
+        #[arg(long)]
+        out: PathBuf,
+        #[arg(long, default_value_t = 90_000)]
+        junctions: usize,
+        #[arg(long, default_value_t = 8)]
+        groups: usize,
+        #[arg(long, default_value_t = 20)]
+        tests: usize,
+    },
+}
+
+fn make_city(out: &std::path::Path, plan: roughcal::city::CityPlan) -> anyhow::Result<ExitCode> {
+    use roughcal::city;
+    let built = city::city(&plan)?;
+    std::fs::create_dir_all(out)?;
+    let files = [
+        (
+            out.join("city.toml"),
+            roughcal::network::write::network_toml(&built.model),
+        ),
+        (
+            out.join("city.csv"),
+            city::sheet_csv(&built.model, &built.tests),
+        ),
+    ];
+    for (path, text) in files {
+        roughcal::storage::write_atomic(&path, text.as_bytes())?;
+        println!("wrote {}", path.display());
+    }
+    Ok(ExitCode::SUCCESS)
 }
 
 fn make_demo(root: &std::path::Path) -> anyhow::Result<ExitCode> {
@@ -239,5 +273,19 @@ pub fn run(cli: Cli) -> anyhow::Result<ExitCode> {
         Some(Command::Open { network, sheet }) => ui::run_open(&network, &sheet),
         Some(Command::New { network, sheet }) => ui::run_new(&network, &sheet),
         Some(Command::MakeDemo { root }) => make_demo(&root),
+        Some(Command::MakeCity {
+            out,
+            junctions,
+            groups,
+            tests,
+        }) => make_city(
+            &out,
+            roughcal::city::CityPlan {
+                junctions,
+                groups,
+                tests,
+                ..Default::default()
+            },
+        ),
     }
 }

@@ -11,6 +11,7 @@
 )]
 
 pub mod calibrate;
+pub mod city;
 pub mod demo;
 pub mod fieldtest;
 pub mod hydraulics;

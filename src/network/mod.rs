@@ -9,6 +9,7 @@ pub mod suggest;
 pub mod summary;
 pub mod synthetic;
 pub mod units;
+pub mod write;
 
 pub use model::*;
 pub use units::UnitSystem;
