@@ -146,7 +146,10 @@ impl OperatingState {
             Some(name) => net
                 .find_condition(name)
                 .map(|c| Self::for_condition(net, c))
-                .ok_or_else(|| SolveError::UnknownCondition(name.to_string())),
+                .ok_or_else(|| SolveError::UnknownCondition {
+                    name: name.to_string(),
+                    known: net.conditions.iter().map(|c| c.name.clone()).collect(),
+                }),
         }
     }
 
@@ -217,6 +220,15 @@ pub enum LinkRef {
     Pump(usize),
 }
 
+/// The conditions a network has, for a message about a name it lacks.
+fn known_conditions(known: &[String]) -> String {
+    if known.is_empty() {
+        "the network has no [[condition]]: leave out --condition to solve it as written".to_string()
+    } else {
+        format!("the network's conditions: {}", known.join(", "))
+    }
+}
+
 /// Why a solve produced no answer.
 #[derive(Debug, Clone, PartialEq, thiserror::Error)]
 pub enum SolveError {
@@ -234,8 +246,8 @@ pub enum SolveError {
         "the head system could not be factorized ({0}): check for pipes of extreme length or diameter, or an extreme demand"
     )]
     Factorization(String),
-    #[error("unknown condition `{0}`")]
-    UnknownCondition(String),
+    #[error("unknown condition `{name}`; {}", known_conditions(.known))]
+    UnknownCondition { name: String, known: Vec<String> },
     #[error("{what} has {found} entries but the network has {expected}")]
     SizeMismatch {
         what: &'static str,
