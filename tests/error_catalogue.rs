@@ -344,6 +344,11 @@ fn apply_outcomes(s: &Scratch, net: &str) -> Vec<Outcome> {
             "status.toml",
             format!("{valid}status = \"great\"\n"),
         ),
+        (
+            "set not converged",
+            "stopped.toml",
+            format!("{valid}status = \"not converged\"\n"),
+        ),
         ("set empty", "empty.csv", String::new()),
         (
             "set unknown group",
@@ -533,7 +538,12 @@ fn every_row_finding_has_the_severity_the_catalogue_gives_it() {
     }
     let sheet = scratch.file("findings.csv", findings.as_bytes());
     let out = Command::new(env!("CARGO_BIN_EXE_roughcal"))
-        .args(["tests", net.to_str().unwrap(), sheet.to_str().unwrap(), "--json"])
+        .args([
+            "tests",
+            net.to_str().unwrap(),
+            sheet.to_str().unwrap(),
+            "--json",
+        ])
         .output()
         .unwrap();
     let json: serde_json::Value = serde_json::from_slice(&out.stdout).expect("stdout is JSON");
@@ -550,8 +560,10 @@ fn every_row_finding_has_the_severity_the_catalogue_gives_it() {
         })
         .collect();
     for (phrase, severity) in severities {
-        let matching: Vec<&(String, String)> =
-            given.iter().filter(|(reason, _)| reason.contains(&phrase)).collect();
+        let matching: Vec<&(String, String)> = given
+            .iter()
+            .filter(|(reason, _)| reason.contains(&phrase))
+            .collect();
         assert!(!matching.is_empty(), "no finding says `{phrase}`");
         for (reason, found) in matching {
             assert_eq!(

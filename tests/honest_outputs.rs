@@ -53,7 +53,12 @@ fn tests_lists_every_row_of_the_sheet_with_its_findings() {
     ];
     let path = sheet(dir.path(), &(rows.join("\n") + "\n"));
     let net = small_network();
-    let out = roughcal(&["tests", net.to_str().unwrap(), path.to_str().unwrap(), "--json"]);
+    let out = roughcal(&[
+        "tests",
+        net.to_str().unwrap(),
+        path.to_str().unwrap(),
+        "--json",
+    ]);
     assert!(out.status.success(), "{out:?}");
     let value = json(&out);
     let tests = value["tests"].as_array().unwrap();
@@ -88,7 +93,16 @@ fn tests_lists_every_row_of_the_sheet_with_its_findings() {
     // The text table has a line for each of them too.
     let text = roughcal(&["tests", net.to_str().unwrap(), path.to_str().unwrap()]);
     let text = String::from_utf8_lossy(&text.stdout);
-    for needle in ["OK1", "NUM", "LEN", "WIDE", "(line 6)", "COEF", "OK2", "is not a number"] {
+    for needle in [
+        "OK1",
+        "NUM",
+        "LEN",
+        "WIDE",
+        "(line 6)",
+        "COEF",
+        "OK2",
+        "is not a number",
+    ] {
         assert!(text.contains(needle), "`{needle}` missing:\n{text}");
     }
 }
@@ -136,18 +150,33 @@ fn calibrate_carries_every_screening_warning_with_its_test() {
     let warning = &s1["warnings"][0];
     assert_eq!(warning["rule"], "static-mismatch", "{s1}");
     assert_eq!(warning["column"], "static_psi");
-    assert!(warning["reason"].as_str().unwrap().contains("modelled static"));
-    let d1 = value["tests"].as_array().unwrap().iter().find(|t| t["test"] == "D1");
+    assert!(
+        warning["reason"]
+            .as_str()
+            .unwrap()
+            .contains("modelled static")
+    );
+    let d1 = value["tests"]
+        .as_array()
+        .unwrap()
+        .iter()
+        .find(|t| t["test"] == "D1");
     assert_eq!(d1.unwrap()["warnings"], serde_json::json!([]));
 
     let text = roughcal(&["calibrate", net, path]);
     let text = String::from_utf8_lossy(&text.stdout);
-    assert!(text.contains("warning (kept in the fit) S1: static_psi: modelled static"), "{text}");
+    assert!(
+        text.contains("warning (kept in the fit) S1: static_psi: modelled static"),
+        "{text}"
+    );
 
     let folder = dir.path().join("out");
     roughcal(&["calibrate", net, path, "--out", folder.to_str().unwrap()]);
     let report = std::fs::read_to_string(folder.join("report.md")).unwrap();
-    assert!(report.contains("- S1: static_psi: modelled static"), "{report}");
+    assert!(
+        report.contains("- S1: static_psi: modelled static"),
+        "{report}"
+    );
 }
 
 #[test]
@@ -170,7 +199,11 @@ fn messages_are_printed_once_with_the_prefix() {
     let empty = dir.path().join("empty.csv");
     std::fs::write(&empty, "").unwrap();
     let broken = dir.path().join("broken.toml");
-    std::fs::write(&broken, "units = \"us\"\n[[junction]]\nid = \"J-1\"\nelevation = nan\n").unwrap();
+    std::fs::write(
+        &broken,
+        "units = \"us\"\n[[junction]]\nid = \"J-1\"\nelevation = nan\n",
+    )
+    .unwrap();
     let net = small_network();
     for args in [
         vec!["tests", net.to_str().unwrap(), empty.to_str().unwrap()],
@@ -225,7 +258,12 @@ fn numbers_from_the_sheet_come_back_as_typed() {
     // 26 psi and 0.1 gpm do not survive a round trip through SI exactly in floating point.
     let path = sheet(dir.path(), "T1,,,J-102,J-103,26,13.3,1000.1,,,,,\n");
     let net = small_network();
-    let out = roughcal(&["tests", net.to_str().unwrap(), path.to_str().unwrap(), "--json"]);
+    let out = roughcal(&[
+        "tests",
+        net.to_str().unwrap(),
+        path.to_str().unwrap(),
+        "--json",
+    ]);
     let value = json(&out);
     let t = &value["tests"][0];
     assert_eq!(t["measured_static"].as_f64(), Some(26.0), "{t}");

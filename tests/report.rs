@@ -683,8 +683,16 @@ fn an_unconverged_calibrate_writes_no_coefficient_set_and_apply_refuses_one() {
     assert!(calibrate(&["--out", out_arg]).status.success());
     let stopped = calibrate(&["--out", out_arg, "--force", "--max-iterations", "1"]);
     assert_eq!(stopped.status.code(), Some(1));
-    for name in [COEFFICIENTS_TOML, COEFFICIENTS_CSV, CALIBRATED_NETWORK, "pipes.csv"] {
-        assert!(!out.join(name).exists(), "{name} written by an unconverged fit");
+    for name in [
+        COEFFICIENTS_TOML,
+        COEFFICIENTS_CSV,
+        CALIBRATED_NETWORK,
+        "pipes.csv",
+    ] {
+        assert!(
+            !out.join(name).exists(),
+            "{name} written by an unconverged fit"
+        );
     }
     let report = std::fs::read_to_string(out.join(REPORT_MD)).unwrap();
     assert!(

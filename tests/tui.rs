@@ -619,18 +619,27 @@ fn export_refuses_an_unconverged_fit_and_asks_before_exporting_an_out_of_date_on
     app.fit.outcome.as_mut().unwrap().result.converged = false;
     ctrl(&mut app, &mut runner, 'e');
     assert!(app.export_prompt.is_none());
-    assert!(message(&app).contains("did NOT converge"), "{}", message(&app));
+    assert!(
+        message(&app).contains("did NOT converge"),
+        "{}",
+        message(&app)
+    );
     assert_eq!(std::fs::read_dir(dir.path()).unwrap().count(), 2);
 
     // A converged fit, then an edit: the fit is out of date and the export asks first.
     fit(&mut app, &mut runner);
+    key(&mut app, &mut runner, KeyCode::F(2));
     key(&mut app, &mut runner, KeyCode::Right);
     type_text(&mut app, &mut runner, "2024-05-08");
     key(&mut app, &mut runner, KeyCode::Enter);
     assert!(screen(&app, 100, 24).contains("fit out of date"));
     ctrl(&mut app, &mut runner, 'e');
     assert!(app.export_prompt.is_none());
-    assert!(message(&app).contains("fit out of date"), "{}", message(&app));
+    assert!(
+        message(&app).contains("fit out of date"),
+        "{}",
+        message(&app)
+    );
     key(&mut app, &mut runner, KeyCode::Char('n'));
     assert!(app.export_prompt.is_none());
     assert_eq!(std::fs::read_dir(dir.path()).unwrap().count(), 3); // network, sheet, SHEET.orig
@@ -741,7 +750,11 @@ fn a_sheet_changed_by_another_program_is_never_overwritten() {
     key(&mut app, &mut runner, KeyCode::Enter);
     assert!(!app.unsaved);
     // Another program (a real child process) changes D3 and adds a row while the workbench is open.
-    let theirs = SHEET.replace("D3,2024-05-07,10:20,J-105,J-107,71,52,640", "D3,2024-05-07,10:20,J-105,J-107,71,50,640")
+    let theirs = SHEET
+        .replace(
+            "D3,2024-05-07,10:20,J-105,J-107,71,52,640",
+            "D3,2024-05-07,10:20,J-105,J-107,71,50,640",
+        )
         .replace("D1,2024-05-07,", "D1,2024-05-09,")
         + "D4,2024-05-07,11:00,J-101,J-103,60,45,600,,,,,\n";
     let status = std::process::Command::new("sh")
@@ -768,9 +781,16 @@ fn a_sheet_changed_by_another_program_is_never_overwritten() {
     assert_eq!(std::fs::read_to_string(&sheet).unwrap(), theirs);
     let side = dir.path().join("sheet.roughcal-unsaved.csv");
     let ours = std::fs::read_to_string(&side).unwrap();
-    assert!(ours.contains("D2,2024-05-07,09:40,J-104,J-106,63,"), "{ours}");
+    assert!(
+        ours.contains("D2,2024-05-07,09:40,J-104,J-106,63,"),
+        "{ours}"
+    );
     assert!(app.confirm.is_some());
-    assert!(message(&app).contains("changed by another program"), "{}", message(&app));
+    assert!(
+        message(&app).contains("changed by another program"),
+        "{}",
+        message(&app)
+    );
     assert!(screen(&app, 100, 24).contains("NOT SAVED"));
     // Further edits go aside too until the question is answered.
     assert!(app.has_unsaved_edits());
@@ -778,7 +798,10 @@ fn a_sheet_changed_by_another_program_is_never_overwritten() {
     // both changed it (D1's date, already the same: no conflict).
     key(&mut app, &mut runner, KeyCode::Char('y'));
     let merged = std::fs::read_to_string(&sheet).unwrap();
-    assert!(merged.contains("D2,2024-05-07,09:40,J-104,J-106,63,"), "{merged}");
+    assert!(
+        merged.contains("D2,2024-05-07,09:40,J-104,J-106,63,"),
+        "{merged}"
+    );
     assert!(merged.contains("J-105,J-107,71,50,640"), "{merged}");
     assert!(merged.contains("D4,"), "{merged}");
     assert!(merged.contains("D1,2024-05-09,"), "{merged}");

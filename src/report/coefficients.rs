@@ -700,7 +700,10 @@ pub fn coefficients_toml(result: &CalibrationResult, network_file: &str) -> Stri
             "tests",
             toml_edit::value(i64::try_from(group.tests_informing).unwrap_or(i64::MAX)),
         );
-        table.insert("status", toml_edit::value(status_label(result, group.status)));
+        table.insert(
+            "status",
+            toml_edit::value(status_label(result, group.status)),
+        );
         groups.push(table);
     }
     let mut document = DocumentMut::new();

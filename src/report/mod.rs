@@ -182,7 +182,10 @@ pub enum OutputWriteError {
     #[error(transparent)]
     Write(#[from] WriteError),
     #[error("{}: cannot remove an earlier run's output beside an unconverged report: {cause}", .path.display())]
-    RemoveStale { path: PathBuf, cause: std::io::Error },
+    RemoveStale {
+        path: PathBuf,
+        cause: std::io::Error,
+    },
 }
 
 /// The outputs of a run already present in `folder`.

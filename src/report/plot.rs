@@ -54,8 +54,15 @@ pub fn fit_svg(result: &CalibrationResult, units: UnitSystem) -> Result<String, 
     } else {
         (NOT_CONVERGED_TITLE, LAST_ITERATION_LABEL)
     };
-    draw(&mut svg, (lo, hi), unit, (title, after_label), &before, &after)
-        .map_err(|e| ReportError::Plot(e.to_string()))?;
+    draw(
+        &mut svg,
+        (lo, hi),
+        unit,
+        (title, after_label),
+        &before,
+        &after,
+    )
+    .map_err(|e| ReportError::Plot(e.to_string()))?;
     Ok(svg)
 }
 

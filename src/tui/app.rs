@@ -1231,9 +1231,7 @@ fn confirm(app: &mut App, yes: bool, effects: &mut Vec<Effect>) {
     if !yes {
         match question {
             Confirm::ExternalChange(target) => keep_both(app, target),
-            Confirm::QuitWithTyping | Confirm::QuitUnsaved => {
-                app.info("not quitting: carry on")
-            }
+            Confirm::QuitWithTyping | Confirm::QuitUnsaved => app.info("not quitting: carry on"),
             _ => app.info("cancelled"),
         }
         return;
@@ -1764,18 +1762,22 @@ fn set_network_text(app: &mut App, text: String, effects: &mut Vec<Effect>) -> b
             app.network_unsaved = true;
             app.fit.stale = app.fit.outcome.is_some();
             app.fit.export_out_of_date = false;
-            match &app.network_conflict {
+            let side = match &app.network_conflict {
                 Some(Conflict {
                     side_file: Ok((side, _)),
-                }) => {
+                }) => Some(side.clone()),
+                _ => None,
+            };
+            match side {
+                Some(side) => {
                     app.info(format!("kept aside in {}", side.display()));
                     effects.push(Effect::SaveSideFile {
                         target: SaveTarget::Network,
-                        path: side.clone(),
+                        path: side,
                         text,
                     });
                 }
-                _ => {
+                None => {
                     app.info(format!("saved to {name}"));
                     effects.push(Effect::SaveNetwork {
                         path: app.session.network_path.clone(),
@@ -1799,11 +1801,8 @@ fn run_calibration(app: &mut App, effects: &mut Vec<Effect>) {
         app.info("a fit is already running (Esc cancels it)");
         return;
     }
-    let input = sheet_reading::fit_tests(
-        &app.session.sheet,
-        &app.session.network,
-        &app.static_heads,
-    );
+    let input =
+        sheet_reading::fit_tests(&app.session.sheet, &app.session.network, &app.static_heads);
     if input.tests.is_empty() {
         app.error("no usable test on the sheet: fix the flagged rows first");
         return;

@@ -134,8 +134,9 @@ mod tests {
         // Ours: A edited, C deleted, D added.
         let mine = sheet("A,J-1,J-2,60,45,500\nB,J-1,J-2,61,41,500\nD,J-3,J-4,63,43,500\n");
         // Theirs: a row inserted at the top, B edited; A and C as they were.
-        let theirs =
-            sheet("Z,J-9,J-8,70,50,500\nA,J-1,J-2,60,40,500\nB,J-1,J-2,61,49,500\nC,J-1,J-2,62,42,500\n");
+        let theirs = sheet(
+            "Z,J-9,J-8,70,50,500\nA,J-1,J-2,60,40,500\nB,J-1,J-2,61,49,500\nC,J-1,J-2,62,42,500\n",
+        );
         let merged = reapply(&base, &mine, &theirs);
         assert_eq!(merged.applied, 3);
         assert!(merged.conflicts.is_empty());

@@ -18,8 +18,8 @@ use super::app::{Action, App, Effect, ExportJob, SaveTarget, update};
 use super::keymap::action_for_key;
 use super::views;
 use super::worker::CalibrationWorker;
-use crate::report::{OutputWriteError, write_outputs};
 use crate::fieldtest::load_sheet;
+use crate::report::{OutputWriteError, write_outputs};
 use crate::storage::{self, FileStamp, WriteError};
 
 /// How files are written: [`storage::write_atomic`] normally; tests pass a failing one.
@@ -60,7 +60,8 @@ impl Runner {
                 keep_original,
                 expected,
             } => {
-                if let Some(changed) = self.changed_on_disk(SaveTarget::Sheet, &path, expected, &text)
+                if let Some(changed) =
+                    self.changed_on_disk(SaveTarget::Sheet, &path, expected, &text)
                 {
                     return vec![changed];
                 }

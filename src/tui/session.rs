@@ -14,7 +14,10 @@ pub enum OpenError {
     // Io errors are part of the message, not a `source`, and wrapped errors are transparent, so that an
     // error chain prints each cause once.
     #[error("cannot read {path}: {cause}")]
-    Read { path: PathBuf, cause: std::io::Error },
+    Read {
+        path: PathBuf,
+        cause: std::io::Error,
+    },
     #[error(transparent)]
     Network(#[from] NetworkFileError),
     #[error(transparent)]
@@ -24,7 +27,10 @@ pub enum OpenError {
     #[error("{path} already exists; `roughcal open` works on an existing sheet")]
     SheetExists { path: PathBuf },
     #[error("cannot make the demo folder {path}: {cause}")]
-    Scratch { path: PathBuf, cause: std::io::Error },
+    Scratch {
+        path: PathBuf,
+        cause: std::io::Error,
+    },
 }
 
 fn read_network(path: &Path) -> Result<(String, crate::network::Network), OpenError> {
@@ -113,7 +119,10 @@ pub enum DemoCleanup {
     /// It holds files the user made there (exports): kept, with their names.
     Kept { folder: PathBuf, yours: Vec<String> },
     /// It could not be removed.
-    Failed { folder: PathBuf, cause: std::io::Error },
+    Failed {
+        folder: PathBuf,
+        cause: std::io::Error,
+    },
 }
 
 impl DemoCleanup {
