@@ -421,7 +421,7 @@ pub enum Action {
         result: Result<Option<FileStamp>, String>,
     },
     /// The sheet as another program left it, read back after "reload theirs".
-    SheetReloaded(Result<(FieldSheet, Option<FileStamp>), String>),
+    SheetReloaded(Box<Result<(FieldSheet, Option<FileStamp>), String>>),
     /// The network text as another program left it.
     NetworkReloaded(Result<(String, Option<FileStamp>), String>),
     ToggleMapShading,
@@ -889,7 +889,7 @@ pub fn update(app: &mut App, action: Action) -> Vec<Effect> {
                 _ => {}
             }
         }
-        Action::SheetReloaded(result) => sheet_reloaded(app, result, &mut effects),
+        Action::SheetReloaded(result) => sheet_reloaded(app, *result, &mut effects),
         Action::NetworkReloaded(result) => network_reloaded(app, result),
         Action::ToggleMapShading => {
             app.map.shading = match app.map.shading {

@@ -108,7 +108,7 @@ impl Runner {
                 let result = load_sheet(&path)
                     .map(|sheet| (sheet, stamp))
                     .map_err(|e| e.to_string());
-                vec![Action::SheetReloaded(result)]
+                vec![Action::SheetReloaded(Box::new(result))]
             }
             Effect::ReloadNetwork(path) => {
                 let stamp = FileStamp::of(&path).ok();
