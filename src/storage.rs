@@ -174,6 +174,37 @@ pub fn unsaved_copy_path(path: &Path) -> PathBuf {
     path.with_file_name(name)
 }
 
+/// The first of [`unsaved_copy_path`], `STEM.roughcal-unsaved-2.EXT`, `-3`, ... that names nothing yet,
+/// so a side file kept from an earlier conflict is never replaced by a later one.
+pub fn free_unsaved_copy_path(path: &Path) -> PathBuf {
+    let first = unsaved_copy_path(path);
+    if !first.exists() {
+        return first;
+    }
+    let stem = path
+        .file_stem()
+        .map_or_else(|| "roughcal".into(), |s| s.to_string_lossy().into_owned());
+    (2u32..)
+        .map(|n| {
+            let name = match path.extension() {
+                Some(ext) => format!("{stem}.roughcal-unsaved-{n}.{}", ext.to_string_lossy()),
+                None => format!("{stem}.roughcal-unsaved-{n}"),
+            };
+            path.with_file_name(name)
+        })
+        .find(|candidate| !candidate.exists())
+        .unwrap_or(first)
+}
+
+/// Gives `copy` the permissions of `original` (a side file holds the same readings, so it is no more
+/// readable than the file it stands in for). Best effort: a copy that keeps the default mode is still
+/// better than no copy.
+pub fn copy_mode(original: &Path, copy: &Path) {
+    if let Ok(meta) = fs::metadata(original) {
+        let _ = fs::set_permissions(copy, meta.permissions());
+    }
+}
+
 /// Keeps a copy of `path` as it is now in `path.orig`, unless one is already there (the first original
 /// is the one worth keeping). Returns the copy's path.
 pub fn keep_original(path: &Path) -> Result<PathBuf, WriteError> {

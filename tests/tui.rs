@@ -816,10 +816,17 @@ fn a_sheet_changed_by_another_program_is_never_overwritten() {
     assert!(app.confirm.is_some());
     key(&mut app, &mut runner, KeyCode::Char('n'));
     assert_eq!(std::fs::read_to_string(&sheet).unwrap(), their_second);
-    assert_eq!(app.session.sheet_path, side);
+    // The first conflict's side file is kept; this one has a name of its own.
+    assert_eq!(std::fs::read_to_string(&side).unwrap(), ours);
+    let second_side = dir.path().join("sheet.roughcal-unsaved-2.csv");
+    assert_eq!(app.session.sheet_path, second_side);
     type_text(&mut app, &mut runner, "D1y");
     key(&mut app, &mut runner, KeyCode::Enter);
-    assert!(std::fs::read_to_string(&side).unwrap().contains("D1y,"));
+    assert!(
+        std::fs::read_to_string(&second_side)
+            .unwrap()
+            .contains("D1y,")
+    );
     assert_eq!(std::fs::read_to_string(&sheet).unwrap(), their_second);
 }
 

@@ -144,9 +144,12 @@ impl Runner {
         if FileStamp::of(path).ok() == Some(expected) {
             return None;
         }
-        let side = storage::unsaved_copy_path(path);
+        let side = storage::free_unsaved_copy_path(path);
         let side_file = (self.write)(&side, text.as_bytes())
-            .map(|()| (side.clone(), FileStamp::of(&side).ok()))
+            .map(|()| {
+                storage::copy_mode(path, &side);
+                (side.clone(), FileStamp::of(&side).ok())
+            })
             .map_err(|e| short_write_error(&side, &e));
         Some(Action::ExternalChange { target, side_file })
     }
