@@ -909,3 +909,38 @@ fn the_demo_copy_is_removed_on_exit_unless_it_holds_an_export() {
     assert!(said.contains(&folder.display().to_string()), "{said}");
     assert!(folder.join("roughcal-export-1").join(REPORT_MD).exists());
 }
+
+#[test]
+fn a_network_changed_by_another_program_is_never_overwritten() {
+    let dir = tempfile::tempdir().unwrap();
+    let mut app = workbench(dir.path(), SHEET);
+    let mut runner = Runner::new();
+    let network = app.session.network_path.clone();
+    let theirs = format!("{NETWORK}\n# retouched by the planning office\n");
+    std::fs::write(&network, &theirs).unwrap();
+    // A group edit: the lock of the first group.
+    key(&mut app, &mut runner, KeyCode::F(3));
+    key(&mut app, &mut runner, KeyCode::Char(' '));
+    assert_eq!(std::fs::read_to_string(&network).unwrap(), theirs);
+    let side = dir.path().join("small.roughcal-unsaved.toml");
+    assert!(
+        std::fs::read_to_string(&side)
+            .unwrap()
+            .contains("locked = true")
+    );
+    assert!(matches!(
+        app.confirm,
+        Some(roughcal::tui::app::Confirm::ExternalChange(_))
+    ));
+    // n: both kept, the group edits go on in the side file.
+    key(&mut app, &mut runner, KeyCode::Char('n'));
+    assert_eq!(app.session.network_path, side);
+    key(&mut app, &mut runner, KeyCode::Char(' '));
+    assert!(!app.network_unsaved, "{}", message(&app));
+    assert!(
+        !std::fs::read_to_string(&side)
+            .unwrap()
+            .contains("locked = true")
+    );
+    assert_eq!(std::fs::read_to_string(&network).unwrap(), theirs);
+}
