@@ -5,6 +5,8 @@
 //! One [`GradientSolver`] (one symbolic factorization) serves every test; each residual solve starts
 //! from its static solution.
 
+use std::collections::HashMap;
+
 use crate::calibrate::CalibrationTest;
 use crate::hydraulics::{GradientSolver, OperatingState, Solution, SolveError};
 use crate::network::Network;
@@ -322,13 +324,24 @@ impl StaticHeads {
 /// The static-pressure warnings ([`check_modelled_static`]) of every test of `reading` that resolves
 /// against `net` and has no error finding.
 pub fn static_findings(net: &Network, reading: &SheetReading, heads: &StaticHeads) -> Vec<Finding> {
+    // Hashed once: the workbench runs this on every committed edit of sheets of thousands of rows.
+    let junctions: HashMap<&str, usize> = net
+        .junctions
+        .iter()
+        .enumerate()
+        .map(|(i, j)| (j.id.as_str(), i))
+        .collect();
     reading
         .tests
         .iter()
         .filter(|t| !reading.row_has_error(t.row))
         .filter_map(|test| {
-            let resolved = resolve(net, test)?;
-            let head = heads.head_m(resolved.condition, resolved.residual_junction)?;
+            let junction = *junctions.get(test.residual_node.as_str())?;
+            let condition = match &test.condition {
+                Some(name) => Some(net.conditions.iter().position(|c| &c.name == name)?),
+                None => None,
+            };
+            let head = heads.head_m(condition, junction)?;
             check_modelled_static(test, head)
         })
         .collect()
