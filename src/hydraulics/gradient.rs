@@ -30,6 +30,30 @@
 //! head-balance residual |h_k(Q_k) - (H_a - H_b)| over open links is below
 //! [`SolverSettings::head_tolerance_m`] (default 1e-6 m), and (3) no link changed status in that iteration.
 //! Not meeting all three within [`SolverSettings::max_iterations`] is [`SolveError::NotConverged`].
+//!
+//! **Control valves** follow the extension of the global gradient algorithm to pressure and flow
+//! regulating devices by status switching (Todini and Pilati 1988; the status logic of regulating
+//! valves as analysed by Deuerlein, Simpson and Dempe 2009, J. Hydraul. Eng. 135(11), and Piller and
+//! van Zyl 2014, J. Hydraul. Eng. 140(11); from memory). A valve is, at each iteration, in one of three
+//! states: *open* (a minor loss K v^2/2g, its fully open K), *closed*, or *active*:
+//!
+//! - an active pressure-reducing valve fixes the head of its downstream junction at the setting
+//!   (elevation plus set pressure): that junction is pinned in the head system like a fixed head, and the
+//!   valve's flow is whatever continuity at the pinned junction asks of it;
+//! - an active pressure-sustaining valve pins its upstream junction the same way;
+//! - an active flow-control valve carries exactly its setting (a known flow in the right-hand side);
+//! - a throttle valve is always open, its setting the loss coefficient.
+//!
+//! After each head solve, a pressure-reducing valve goes active when its downstream head rises above the
+//! setting, opens fully when the upstream head less its open loss cannot reach the setting, and closes
+//! against reverse flow (reopening when the heads across it would drive flow forward again); a
+//! pressure-sustaining valve mirrors this on its upstream side; a flow-control valve goes active when it
+//! would pass more than its setting and opens when the head across it can no longer drive the setting.
+//! As for check valves, a valve that keeps switching is frozen closed with a warning. Pinning keeps the
+//! matrix pattern and its definiteness, so one symbolic analysis still serves every state. The C
+//! sensitivities treat an active valve's flow as fixed in the iteration it converged at: exact when the
+//! zone below a pressure-reducing valve has no other supply, otherwise a first-order approximation that
+//! ignores how that zone's roughness moves the valve's share of the supply.
 
 use std::sync::Arc;
 
@@ -42,8 +66,8 @@ use faer::sparse::linalg::cholesky::{
 use faer::sparse::{SparseColMatRef, SymbolicSparseColMatRef};
 use faer::{Conj, MatMut, Par, Side};
 
-use super::headloss::{HW_FLOW_EXPONENT, HazenWilliams};
-use crate::network::{Condition, Network, NodeRef};
+use super::headloss::{HW_FLOW_EXPONENT, HazenWilliams, minor_loss_coefficient};
+use crate::network::{Condition, Network, NodeRef, ValveKind};
 
 /// Threading of the factorization and the triangular solves. Sequential kernels measured faster than
 /// two threads on this project's 2-core benchmark machine at both 10,000 and 90,000 junctions (the
@@ -53,6 +77,11 @@ const LINEAR_ALGEBRA_PARALLELISM: Par = Par::Seq;
 
 /// Velocity of the starting flow in every pipe of a cold start (m/s).
 const INITIAL_VELOCITY_MS: f64 = 0.1;
+
+/// Smallest Newton slope of an open valve (m per m^3/s). A valve with no open loss has a law h = 0 whose
+/// slope vanishes; the floor keeps its conductance finite (1,000 m^3/s per m, thousands of times a
+/// main's) without changing the law the iteration converges to, only how fast.
+const OPEN_VALVE_MIN_SLOPE: f64 = 1e-3;
 
 /// Largest junction imbalance a solution may have, as a share of the total demand (or of 1 L/s when the
 /// network carries almost nothing).
@@ -94,6 +123,9 @@ pub struct OperatingState {
     pub fixed_head_m: Vec<f64>,
     pub pipe_closed: Vec<bool>,
     pub pump_off: Vec<bool>,
+    /// Setting of each valve in internal units (see [`crate::network::Valve::setting`]).
+    pub valve_setting: Vec<f64>,
+    pub valve_closed: Vec<bool>,
 }
 
 impl OperatingState {
@@ -105,6 +137,8 @@ impl OperatingState {
             fixed_head_m: net.fixed_heads.iter().map(|f| f.head_m).collect(),
             pipe_closed: net.pipes.iter().map(|p| p.closed).collect(),
             pump_off: net.pumps.iter().map(|p| p.off).collect(),
+            valve_setting: net.valves.iter().map(|v| v.setting).collect(),
+            valve_closed: net.valves.iter().map(|v| v.closed).collect(),
         }
     }
 
@@ -124,6 +158,16 @@ impl OperatingState {
         }
         for &pump in &condition.pumps_off {
             if let Some(slot) = state.pump_off.get_mut(pump) {
+                *slot = true;
+            }
+        }
+        for &(valve, setting) in &condition.valve_settings {
+            if let Some(slot) = state.valve_setting.get_mut(valve) {
+                *slot = setting;
+            }
+        }
+        for &valve in &condition.closed_valves {
+            if let Some(slot) = state.valve_closed.get_mut(valve) {
                 *slot = true;
             }
         }
@@ -177,11 +221,22 @@ pub enum LinkStatus {
     PumpCannotLift,
     /// A link whose status kept changing; frozen closed.
     FrozenClosed,
+    /// A control valve regulating: holding its set pressure or flow.
+    Active,
+    /// A control valve shut by its own control: against reverse flow, or a pressure-reducing valve whose
+    /// downstream head is already above its setting.
+    ControlClosed,
 }
 
 impl LinkStatus {
+    /// Flows by its own law (a pipe, a running pump, an open valve).
     fn carries_flow(self) -> bool {
         self == Self::Open
+    }
+
+    /// Joins its two ends hydraulically: open, or a valve regulating.
+    fn connects(self) -> bool {
+        matches!(self, Self::Open | Self::Active)
     }
 
     /// Short word for tables and JSON.
@@ -193,6 +248,8 @@ impl LinkStatus {
             Self::PumpOff => "off",
             Self::PumpCannotLift => "cannot lift",
             Self::FrozenClosed => "closed (status oscillated)",
+            Self::Active => "active",
+            Self::ControlClosed => "closed (control)",
         }
     }
 }
@@ -215,6 +272,7 @@ pub enum SolveWarning {
 pub enum LinkRef {
     Pipe(usize),
     Pump(usize),
+    Valve(usize),
 }
 
 /// Why a solve produced no answer.
@@ -268,6 +326,10 @@ pub struct Solution {
     pub pump_flow_m3s: Vec<f64>,
     pub pump_head_gain_m: Vec<f64>,
     pub pump_status: Vec<LinkStatus>,
+    pub valve_flow_m3s: Vec<f64>,
+    /// Head across each valve, from end minus to end (m); NaN where an end is isolated.
+    pub valve_head_loss_m: Vec<f64>,
+    pub valve_status: Vec<LinkStatus>,
     pub iterations: usize,
     /// Largest |inflow - outflow - demand| over junctions (m^3/s), computed from the final flows.
     pub max_imbalance_m3s: f64,
@@ -282,8 +344,11 @@ struct FactorizedSystem {
     symbolic: Arc<SymbolicCholesky<usize>>,
     /// Numeric values of the Cholesky factor, laid out by `symbolic`.
     factor: Vec<f64>,
-    /// p_k = 1/g_k of every link (pipes then pumps) at the final iterate; 0 for links carrying no flow.
+    /// p_k = 1/g_k of every link (pipes, pumps, valves) at the final iterate; 0 for links carrying no
+    /// flow by their own law.
     conductance: Vec<f64>,
+    /// Junctions whose head an active valve fixed: their heads do not move with any C.
+    pinned: Vec<bool>,
 }
 
 impl Solution {
@@ -337,6 +402,9 @@ impl Solution {
         if self.isolated.get(junction).copied().unwrap_or(true) {
             return None;
         }
+        if system.pinned.get(junction).copied().unwrap_or(false) {
+            return Some(vec![0.0; net.pipes.len()]);
+        }
         let n = self.head_m.len();
         let mut lambda = vec![0.0; n];
         lambda[junction] = 1.0;
@@ -349,8 +417,8 @@ impl Solution {
             MemStack::new(&mut scratch),
         );
         let lambda_of = |node: NodeRef| match node {
-            NodeRef::Junction(i) => lambda[i],
-            NodeRef::FixedHead(_) => 0.0,
+            NodeRef::Junction(i) if !system.pinned[i] => lambda[i],
+            NodeRef::Junction(_) | NodeRef::FixedHead(_) => 0.0,
         };
         let sensitivities = net
             .pipes
@@ -361,7 +429,11 @@ impl Solution {
                 if p == 0.0 {
                     return 0.0;
                 }
-                let dh_dc = -HW_FLOW_EXPONENT * self.pipe_headloss_m[k] / c_factors[k];
+                // Only the Hazen-Williams part of the loss depends on C, not the minor loss.
+                let q = self.pipe_flow_m3s[k];
+                let minor_m =
+                    minor_loss_coefficient(pipe.minor_loss, pipe.diameter_m) * q * q.abs();
+                let dh_dc = -HW_FLOW_EXPONENT * (self.pipe_headloss_m[k] - minor_m) / c_factors[k];
                 p * dh_dc * (lambda_of(pipe.from) - lambda_of(pipe.to))
             })
             .collect();
@@ -386,20 +458,30 @@ struct LinkSlots {
 /// also its place in every per-link vector of the iterate.
 #[derive(Debug, Clone, Copy)]
 enum SolverLink {
-    /// Pipe `index` of the network: Hazen-Williams, and a check valve if the pipe has one.
+    /// Pipe `index` of the network: Hazen-Williams plus its minor loss m Q|Q|, and a check valve if the
+    /// pipe has one.
     Pipe {
         index: usize,
         check_valve: bool,
+        minor_m: f64,
         slots: LinkSlots,
     },
     /// Pump `index` of the network: its head curve.
     Pump { index: usize, slots: LinkSlots },
+    /// Valve `index` of the network: its control, and a minor loss when open.
+    Valve {
+        index: usize,
+        kind: ValveKind,
+        slots: LinkSlots,
+    },
 }
 
 impl SolverLink {
     fn slots(&self) -> LinkSlots {
         match *self {
-            SolverLink::Pipe { slots, .. } | SolverLink::Pump { slots, .. } => slots,
+            SolverLink::Pipe { slots, .. }
+            | SolverLink::Pump { slots, .. }
+            | SolverLink::Valve { slots, .. } => slots,
         }
     }
 
@@ -407,6 +489,25 @@ impl SolverLink {
         match *self {
             SolverLink::Pipe { index, .. } => LinkRef::Pipe(index),
             SolverLink::Pump { index, .. } => LinkRef::Pump(index),
+            SolverLink::Valve { index, .. } => LinkRef::Valve(index),
+        }
+    }
+
+    /// The junction whose head this link fixes while it is active: a pressure-reducing valve's
+    /// downstream end, a pressure-sustaining valve's upstream end.
+    fn controlled_junction(&self) -> Option<usize> {
+        match *self {
+            SolverLink::Valve {
+                kind: ValveKind::PressureReducing,
+                slots,
+                ..
+            } => slots.to.junction(),
+            SolverLink::Valve {
+                kind: ValveKind::PressureSustaining,
+                slots,
+                ..
+            } => slots.from.junction(),
+            _ => None,
         }
     }
 }
@@ -509,6 +610,10 @@ struct HeadSystem<'p> {
     rhs: Vec<f64>,
     factor: Vec<f64>,
     workspace: Option<MemBuffer>,
+    /// Head an active valve fixes at each junction, NaN where none does.
+    pinned_head_m: Vec<f64>,
+    /// The junctions pinned now, to clear them at the next assembly.
+    pinned: Vec<usize>,
 }
 
 impl<'p> HeadSystem<'p> {
@@ -519,6 +624,34 @@ impl<'p> HeadSystem<'p> {
             rhs: vec![0.0; pattern.junction_count],
             factor: Vec::new(),
             workspace: None,
+            pinned_head_m: vec![f64::NAN; pattern.junction_count],
+            pinned: Vec::new(),
+        }
+    }
+
+    /// Pins the junction of every active pressure valve at the valve's target head.
+    fn pin_controlled_heads(&mut self, links: &[SolverLink], laws: &LinkLaws, it: &Iterate) {
+        for &j in &self.pinned {
+            self.pinned_head_m[j] = f64::NAN;
+        }
+        self.pinned.clear();
+        for (k, link) in links.iter().enumerate().skip(laws.first_valve) {
+            if it.status[k] != LinkStatus::Active || isolated_end(&it.isolated, link.slots()) {
+                continue;
+            }
+            if let (Some(j), SolverLink::Valve { index, .. }) = (link.controlled_junction(), link) {
+                self.pinned_head_m[j] = laws.valve_target[*index];
+                self.pinned.push(j);
+            }
+        }
+    }
+
+    /// A link end as the head system sees it: an unknown head, or a known one (fixed head, pinned).
+    fn end(&self, node: NodeRef, fixed_head_m: &[f64]) -> LinkEnd {
+        match node {
+            NodeRef::Junction(i) if self.pinned_head_m[i].is_nan() => LinkEnd::Unknown(i),
+            NodeRef::Junction(i) => LinkEnd::Known(self.pinned_head_m[i]),
+            NodeRef::FixedHead(f) => LinkEnd::Known(fixed_head_m[f]),
         }
     }
 
@@ -537,11 +670,22 @@ impl<'p> HeadSystem<'p> {
         for (r, d) in self.rhs.iter_mut().zip(demand_m3s) {
             *r = -d;
         }
+        self.pin_controlled_heads(links, laws, it);
         for (k, link) in links.iter().enumerate() {
             let slots = link.slots();
-            if !it.status[k].carries_flow() || isolated_end(&it.isolated, slots) {
+            if !it.status[k].connects() || isolated_end(&it.isolated, slots) {
                 it.conductance[k] = 0.0;
                 it.flow[k] = 0.0;
+                continue;
+            }
+            if it.status[k] == LinkStatus::Active {
+                // A regulating valve: a known flow (the set flow, or what continuity asked of it at the
+                // last iteration) and no conductance.
+                it.conductance[k] = 0.0;
+                if let Some(set_flow) = laws.set_flow_m3s(link) {
+                    it.flow[k] = set_flow;
+                }
+                self.add_link(slots, 0.0, it.flow[k], fixed_head_m);
                 continue;
             }
             let (loss, slope) = laws.at(k, link, it.flow[k]);
@@ -555,25 +699,39 @@ impl<'p> HeadSystem<'p> {
                 self.rhs[j] = 0.0;
             }
         }
+        for &j in &self.pinned {
+            self.values[self.pattern.diagonal_slot[j]] = 1.0;
+            self.rhs[j] = self.pinned_head_m[j];
+        }
     }
 
-    /// One link's terms: conductance `p` on both diagonals and minus it off the diagonal; the carried flow
-    /// Q - y leaves the from junction and enters the to junction; a fixed-head end adds p H_f to the other.
+    /// One link's terms: conductance `p` on the diagonal of each unknown end and minus it off the
+    /// diagonal between two unknown ends; the carried flow Q - y leaves the from junction and enters the
+    /// to junction; a known end (fixed head, pinned junction) of head H adds p H to the other end instead.
     fn add_link(&mut self, slots: LinkSlots, p: f64, carried_m3s: f64, fixed_head_m: &[f64]) {
-        for d in [slots.diag_from, slots.diag_to].into_iter().flatten() {
-            self.values[d] += p;
-        }
-        if let Some(o) = slots.off_diagonal {
-            self.values[o] -= p;
-        }
-        for (end, other, sign) in [(slots.from, slots.to, -1.0), (slots.to, slots.from, 1.0)] {
-            match (end, other) {
-                (NodeRef::Junction(i), _) => self.rhs[i] += sign * carried_m3s,
-                (NodeRef::FixedHead(f), NodeRef::Junction(j)) => {
-                    self.rhs[j] += p * fixed_head_m[f];
+        match (
+            self.end(slots.from, fixed_head_m),
+            self.end(slots.to, fixed_head_m),
+        ) {
+            (LinkEnd::Unknown(i), LinkEnd::Unknown(j)) => {
+                for d in [slots.diag_from, slots.diag_to].into_iter().flatten() {
+                    self.values[d] += p;
                 }
-                (NodeRef::FixedHead(_), NodeRef::FixedHead(_)) => {}
+                if let Some(o) = slots.off_diagonal {
+                    self.values[o] -= p;
+                }
+                self.rhs[i] -= carried_m3s;
+                self.rhs[j] += carried_m3s;
             }
+            (LinkEnd::Unknown(i), LinkEnd::Known(head_m)) => {
+                self.values[self.pattern.diagonal_slot[i]] += p;
+                self.rhs[i] += p * head_m - carried_m3s;
+            }
+            (LinkEnd::Known(head_m), LinkEnd::Unknown(j)) => {
+                self.values[self.pattern.diagonal_slot[j]] += p;
+                self.rhs[j] += p * head_m + carried_m3s;
+            }
+            (LinkEnd::Known(_), LinkEnd::Known(_)) => {}
         }
     }
 
@@ -622,11 +780,31 @@ impl<'p> HeadSystem<'p> {
         Ok(())
     }
 
-    /// The last factor, kept with the solution for sensitivities.
-    fn into_factor(self) -> Option<(Arc<SymbolicCholesky<usize>>, Vec<f64>)> {
+    /// The last factor and the junctions it pinned, kept with the solution for sensitivities.
+    fn into_factor(self) -> Option<LastFactor> {
         let symbolic = self.pattern.symbolic.as_ref()?;
-        Some((Arc::clone(symbolic), self.factor))
+        Some(LastFactor {
+            symbolic: Arc::clone(symbolic),
+            factor: self.factor,
+            pinned: self.pinned_head_m.iter().map(|h| !h.is_nan()).collect(),
+        })
     }
+}
+
+/// One end of a link in the head system.
+#[derive(Debug, Clone, Copy)]
+enum LinkEnd {
+    /// A junction whose head is solved for.
+    Unknown(usize),
+    /// A fixed head, or a junction pinned by an active valve (m).
+    Known(f64),
+}
+
+/// The factor of the last iteration, as [`HeadSystem::into_factor`] hands it on.
+struct LastFactor {
+    symbolic: Arc<SymbolicCholesky<usize>>,
+    factor: Vec<f64>,
+    pinned: Vec<bool>,
 }
 
 /// The Newton iterate: heads per junction; flow, status and conductance p = 1/g per solver link.
@@ -659,21 +837,77 @@ struct LinkLaws<'a> {
     resistance: &'a [f64],
     linear_below_m3s: f64,
     cache: Vec<LawAtFlow>,
+    /// Position of the first valve in the link table.
+    first_valve: usize,
+    /// Open-loss coefficient m (h = m Q|Q|) of each valve: its open K, or a throttle's setting.
+    valve_open_m: Vec<f64>,
+    /// What each valve holds while active: a head (m) for pressure valves (elevation of the controlled
+    /// end plus the set pressure head; NaN when that end is a fixed head), a flow (m^3/s) for flow
+    /// control, NaN for throttles.
+    valve_target: Vec<f64>,
 }
 
 impl<'a> LinkLaws<'a> {
-    fn new(net: &'a Network, resistance: &'a [f64], linear_below_m3s: f64, links: usize) -> Self {
+    fn new(
+        net: &'a Network,
+        state: &OperatingState,
+        resistance: &'a [f64],
+        linear_below_m3s: f64,
+    ) -> Self {
         let unevaluated = LawAtFlow {
             flow_m3s: f64::NAN,
             loss_m: 0.0,
             slope: 0.0,
         };
+        let elevation = |node: NodeRef| match node {
+            NodeRef::Junction(i) => net.junctions[i].elevation_m,
+            NodeRef::FixedHead(_) => f64::NAN,
+        };
+        let (valve_open_m, valve_target) = net
+            .valves
+            .iter()
+            .zip(&state.valve_setting)
+            .map(|(valve, &setting)| match valve.kind {
+                ValveKind::Throttle => {
+                    (minor_loss_coefficient(setting, valve.diameter_m), f64::NAN)
+                }
+                kind => {
+                    let open_m = minor_loss_coefficient(valve.minor_loss, valve.diameter_m);
+                    let target = match kind {
+                        ValveKind::PressureReducing => elevation(valve.to) + setting,
+                        ValveKind::PressureSustaining => elevation(valve.from) + setting,
+                        _ => setting,
+                    };
+                    (open_m, target)
+                }
+            })
+            .unzip();
         Self {
             net,
             resistance,
             linear_below_m3s,
-            cache: vec![unevaluated; links],
+            cache: vec![unevaluated; net.pipes.len() + net.pumps.len() + net.valves.len()],
+            first_valve: net.pipes.len() + net.pumps.len(),
+            valve_open_m,
+            valve_target,
         }
+    }
+
+    /// The flow an active flow-control valve carries.
+    fn set_flow_m3s(&self, link: &SolverLink) -> Option<f64> {
+        match *link {
+            SolverLink::Valve {
+                index,
+                kind: ValveKind::FlowControl,
+                ..
+            } => Some(self.valve_target[index]),
+            _ => None,
+        }
+    }
+
+    /// Loss of a valve fully open at flow `q` (m).
+    fn valve_open_loss_m(&self, valve: usize, q: f64) -> f64 {
+        self.valve_open_m[valve] * q * q.abs()
     }
 
     /// Head loss of link `k` in its own direction at flow `q` (a pump's loss is minus its gain), and its
@@ -684,15 +918,26 @@ impl<'a> LinkLaws<'a> {
             return (entry.loss_m, entry.slope);
         }
         let (loss_m, slope) = match *link {
-            SolverLink::Pipe { index, .. } => {
+            SolverLink::Pipe { index, minor_m, .. } => {
                 let r = self.resistance[index];
                 let q0 = self.linear_below_m3s;
-                if q.abs() < q0 {
+                let (loss, slope) = if q.abs() < q0 {
                     let slope = r * q0.powf(HW_FLOW_EXPONENT - 1.0);
                     (slope * q, slope)
                 } else {
                     HazenWilliams::head_loss_and_slope(r, q)
-                }
+                };
+                (
+                    loss + minor_m * q * q.abs(),
+                    slope + 2.0 * minor_m * q.abs(),
+                )
+            }
+            SolverLink::Valve { index, .. } => {
+                let m = self.valve_open_m[index];
+                (
+                    m * q * q.abs(),
+                    (2.0 * m * q.abs()).max(OPEN_VALVE_MIN_SLOPE),
+                )
             }
             SolverLink::Pump { index, .. } => {
                 let curve = &self.net.pumps[index].curve;
@@ -735,6 +980,7 @@ impl GradientSolver {
             .iter()
             .map(|p| (p.from, p.to))
             .chain(net.pumps.iter().map(|p| (p.from, p.to)))
+            .chain(net.valves.iter().map(|v| (v.from, v.to)))
             .collect();
         let (pattern, slots) = HeadPattern::analyse(net.junctions.len(), &ends)?;
         let pipes = net
@@ -744,17 +990,28 @@ impl GradientSolver {
             .map(|(index, pipe)| SolverLink::Pipe {
                 index,
                 check_valve: pipe.check_valve,
+                minor_m: minor_loss_coefficient(pipe.minor_loss, pipe.diameter_m),
                 slots: slots[index],
             });
         let pumps = (0..net.pumps.len()).map(|index| SolverLink::Pump {
             index,
             slots: slots[net.pipes.len() + index],
         });
+        let first_valve = net.pipes.len() + net.pumps.len();
+        let valves = net
+            .valves
+            .iter()
+            .enumerate()
+            .map(|(index, valve)| SolverLink::Valve {
+                index,
+                kind: valve.kind,
+                slots: slots[first_valve + index],
+            });
         Ok(Self {
             settings,
-            links: pipes.chain(pumps).collect(),
+            links: pipes.chain(pumps).chain(valves).collect(),
             pattern,
-            law: HazenWilliams::for_units(net.units),
+            law: HazenWilliams::for_network(net),
         })
     }
 
@@ -806,7 +1063,7 @@ impl GradientSolver {
         let demand_m3s: Vec<f64> = (0..self.pattern.junction_count)
             .map(|j| state.demand_m3s(net, j))
             .collect();
-        let mut laws = LinkLaws::new(net, resistance, settings.linear_below_m3s, self.links.len());
+        let mut laws = LinkLaws::new(net, state, resistance, settings.linear_below_m3s);
         let mut it = self.starting_iterate(net, state, warm_start);
         let mut system = HeadSystem::new(&self.pattern);
         let mut relative_change = f64::INFINITY;
@@ -828,15 +1085,15 @@ impl GradientSolver {
             if it.head.iter().any(|h| !h.is_finite()) {
                 return Err(SolveError::NonFinite { iteration });
             }
-            relative_change = self.update_flows(&mut laws, &mut it, &state.fixed_head_m);
-            statuses_changed = self.update_statuses(net, state, &mut it);
+            relative_change = self.update_flows(&mut laws, &mut it, state, &demand_m3s);
+            statuses_changed = self.update_statuses(net, state, &laws, &mut it);
             head_residual = self.head_residual(&mut laws, &it, &state.fixed_head_m);
             if !statuses_changed
                 && relative_change < settings.relative_flow_tolerance
                 && head_residual < settings.head_tolerance_m
             {
                 let factor = system.into_factor();
-                return self.finish(net, &demand_m3s, laws, it, factor, iteration);
+                return self.finish(net, state, laws, it, factor, iteration);
             }
         }
         Err(SolveError::NotConverged {
@@ -889,12 +1146,25 @@ impl GradientSolver {
                         .max(1e-4);
                     (status, q)
                 }
+                SolverLink::Valve { index, .. } => {
+                    let status = if state.valve_closed[index] {
+                        LinkStatus::Closed
+                    } else {
+                        LinkStatus::Open
+                    };
+                    let d = net.valves[index].diameter_m;
+                    (
+                        status,
+                        INITIAL_VELOCITY_MS * std::f64::consts::PI * d * d / 4.0,
+                    )
+                }
             })
             .unzip();
         let mut head = vec![0.0; self.pattern.junction_count];
         if let Some(warm) = warm_start
             && warm.pipe_flow_m3s.len() == net.pipes.len()
             && warm.pump_flow_m3s.len() == net.pumps.len()
+            && warm.valve_flow_m3s.len() == net.valves.len()
         {
             for (k, link) in self.links.iter().enumerate() {
                 let (warm_q, warm_status) = match *link {
@@ -904,16 +1174,23 @@ impl GradientSolver {
                     SolverLink::Pump { index, .. } => {
                         (warm.pump_flow_m3s[index], warm.pump_status[index])
                     }
+                    SolverLink::Valve { index, .. } => {
+                        (warm.valve_flow_m3s[index], warm.valve_status[index])
+                    }
                 };
                 if status[k] != LinkStatus::Open {
                     continue;
                 }
                 if matches!(
                     warm_status,
-                    LinkStatus::CheckValveClosed | LinkStatus::PumpCannotLift
+                    LinkStatus::CheckValveClosed
+                        | LinkStatus::PumpCannotLift
+                        | LinkStatus::ControlClosed
+                        | LinkStatus::Active
                 ) {
                     status[k] = warm_status;
-                } else if warm_status == LinkStatus::Open && warm_q != 0.0 {
+                }
+                if warm_status.connects() && warm_q != 0.0 {
                     flow[k] = warm_q;
                 }
             }
@@ -938,9 +1215,17 @@ impl GradientSolver {
         }
     }
 
-    /// New flows from the new heads, Q' = Q - y + p (H_a - H_b); returns the relative flow change
+    /// New flows from the new heads, Q' = Q - y + p (H_a - H_b), and for each active pressure valve the
+    /// flow continuity asks of it at the junction it pins; returns the relative flow change
     /// sum|Q' - Q| / sum|Q'|.
-    fn update_flows(&self, laws: &mut LinkLaws, it: &mut Iterate, fixed_head_m: &[f64]) -> f64 {
+    fn update_flows(
+        &self,
+        laws: &mut LinkLaws,
+        it: &mut Iterate,
+        state: &OperatingState,
+        demand_m3s: &[f64],
+    ) -> f64 {
+        let fixed_head_m = &state.fixed_head_m;
         let mut change_sum = 0.0;
         let mut flow_sum = 0.0;
         for (k, link) in self.links.iter().enumerate() {
@@ -957,15 +1242,80 @@ impl GradientSolver {
             flow_sum += new_q.abs();
             it.flow[k] = new_q;
         }
+        for (k, new_q) in self.pressure_valve_flows(laws, it, demand_m3s) {
+            change_sum += (new_q - it.flow[k]).abs();
+            flow_sum += new_q.abs();
+            it.flow[k] = new_q;
+        }
         // A network at rest has no flow to be relative to: measure against the linearisation flow.
         change_sum / flow_sum.max(self.links.len() as f64 * self.settings.linear_below_m3s)
+    }
+
+    /// The flow of each active pressure valve from continuity at the junction it pins: what that
+    /// junction's other links and demand leave over. Valves pinning one junction share it equally.
+    fn pressure_valve_flows(
+        &self,
+        laws: &LinkLaws,
+        it: &Iterate,
+        demand_m3s: &[f64],
+    ) -> Vec<(usize, f64)> {
+        let regulating: Vec<(usize, usize)> = self
+            .links
+            .iter()
+            .enumerate()
+            .skip(laws.first_valve)
+            .filter(|(k, link)| {
+                it.status[*k] == LinkStatus::Active && !isolated_end(&it.isolated, link.slots())
+            })
+            .filter_map(|(k, link)| link.controlled_junction().map(|j| (k, j)))
+            .collect();
+        if regulating.is_empty() {
+            return Vec::new();
+        }
+        let mut inflow = vec![0.0; self.pattern.junction_count];
+        let mut sharing = vec![0u32; self.pattern.junction_count];
+        for &(_, j) in &regulating {
+            sharing[j] += 1;
+        }
+        for (k, link) in self.links.iter().enumerate() {
+            if regulating.iter().any(|&(r, _)| r == k) {
+                continue;
+            }
+            let slots = link.slots();
+            if let NodeRef::Junction(i) = slots.from {
+                inflow[i] -= it.flow[k];
+            }
+            if let NodeRef::Junction(i) = slots.to {
+                inflow[i] += it.flow[k];
+            }
+        }
+        regulating
+            .iter()
+            .map(|&(k, j)| {
+                let left_over = (demand_m3s[j] - inflow[j]) / f64::from(sharing[j]);
+                // Downstream of a reducing valve the junction needs what it does not receive; upstream
+                // of a sustaining valve it passes on what it does not use.
+                let q = if slots_to_is(self.links[k].slots(), j) {
+                    left_over
+                } else {
+                    -left_over
+                };
+                (k, q)
+            })
+            .collect()
     }
 
     /// Check valves close against reverse flow and reopen when the heads would push flow forward; a pump
     /// that would run backwards stops lifting and restarts when the lift falls below its shutoff head. A
     /// link that changes status more than [`SolverSettings::max_status_changes`] times is frozen closed
     /// with a warning. Returns whether any status changed.
-    fn update_statuses(&self, net: &Network, state: &OperatingState, it: &mut Iterate) -> bool {
+    fn update_statuses(
+        &self,
+        net: &Network,
+        state: &OperatingState,
+        laws: &LinkLaws,
+        it: &mut Iterate,
+    ) -> bool {
         let settings = self.settings;
         let tolerance = settings.head_tolerance_m;
         let mut changed = false;
@@ -996,6 +1346,25 @@ impl GradientSolver {
                 {
                     LinkStatus::Open
                 }
+                (SolverLink::Valve { index, kind, .. }, status) => {
+                    let target = laws.valve_target[index];
+                    let heads = ValveHeads {
+                        from_m: it.node_head_m(&state.fixed_head_m, slots.from),
+                        to_m: it.node_head_m(&state.fixed_head_m, slots.to),
+                        open_loss_m: laws.valve_open_loss_m(
+                            index,
+                            if kind == ValveKind::FlowControl {
+                                target
+                            } else {
+                                it.flow[k]
+                            },
+                        ),
+                    };
+                    match next_valve_status(kind, status, heads, it.flow[k], target, tolerance) {
+                        Some(next) => next,
+                        None => continue,
+                    }
+                }
                 _ => continue,
             };
             changed = true;
@@ -1009,7 +1378,12 @@ impl GradientSolver {
                 it.status[k] = new_status;
             }
             it.flow[k] = match (new_status, *link) {
-                (LinkStatus::Open, SolverLink::Pipe { .. }) => settings.linear_below_m3s * 10.0,
+                (LinkStatus::Active, link) => laws
+                    .set_flow_m3s(&link)
+                    .unwrap_or(settings.linear_below_m3s * 10.0),
+                (LinkStatus::Open, SolverLink::Pipe { .. } | SolverLink::Valve { .. }) => {
+                    settings.linear_below_m3s * 10.0
+                }
                 (LinkStatus::Open, SolverLink::Pump { index, .. }) => net.pumps[index]
                     .curve
                     .max_flow_m3s()
@@ -1051,7 +1425,7 @@ impl GradientSolver {
             ),
             (
                 "the link list",
-                net.pipes.len() + net.pumps.len(),
+                net.pipes.len() + net.pumps.len() + net.valves.len(),
                 self.links.len(),
             ),
             (
@@ -1074,6 +1448,16 @@ impl GradientSolver {
                 state.pump_off.len(),
                 net.pumps.len(),
             ),
+            (
+                "the valve setting list",
+                state.valve_setting.len(),
+                net.valves.len(),
+            ),
+            (
+                "the valve status list",
+                state.valve_closed.len(),
+                net.valves.len(),
+            ),
         ];
         for (what, found, expected) in checks {
             if found != expected {
@@ -1095,7 +1479,7 @@ impl GradientSolver {
             self.links
                 .iter()
                 .zip(status)
-                .filter(|(_, s)| s.carries_flow())
+                .filter(|(_, s)| s.connects())
                 .map(|(link, _)| link.slots())
         };
         for slots in flowing() {
@@ -1148,10 +1532,10 @@ impl GradientSolver {
     fn finish(
         &self,
         net: &Network,
-        demand_m3s: &[f64],
+        state: &OperatingState,
         laws: LinkLaws,
         it: Iterate,
-        factor: Option<(Arc<SymbolicCholesky<usize>>, Vec<f64>)>,
+        factor: Option<LastFactor>,
         iterations: usize,
     ) -> Result<Solution, SolveError> {
         let Iterate {
@@ -1164,6 +1548,9 @@ impl GradientSolver {
             ..
         } = it;
         let pipe_count = net.pipes.len();
+        let first_valve = laws.first_valve;
+        let fixed_head_m = &state.fixed_head_m;
+        let demand_m3s: Vec<f64> = (0..head.len()).map(|j| state.demand_m3s(net, j)).collect();
 
         let mut imbalance: Vec<f64> = demand_m3s.iter().map(|d| -d).collect();
         for (link, q) in self.links.iter().zip(&flow) {
@@ -1222,11 +1609,22 @@ impl GradientSolver {
                 }
             })
             .collect();
-        let pump_flow_m3s: Vec<f64> = flow[pipe_count..].to_vec();
+        let pump_flow_m3s: Vec<f64> = flow[pipe_count..first_valve].to_vec();
+        let valve_head_loss_m = self.links[first_valve..]
+            .iter()
+            .map(|link| {
+                let slots = link.slots();
+                let head_of = |node: NodeRef| match node {
+                    NodeRef::Junction(i) => head[i],
+                    NodeRef::FixedHead(f) => fixed_head_m[f],
+                };
+                head_of(slots.from) - head_of(slots.to)
+            })
+            .collect();
         let pump_head_gain_m = pump_flow_m3s
             .iter()
             .zip(&net.pumps)
-            .zip(&status[pipe_count..])
+            .zip(&status[pipe_count..first_valve])
             .map(|((&q, pump), s)| {
                 if s.carries_flow() {
                     pump.curve.head_gain_m(q)
@@ -1242,15 +1640,19 @@ impl GradientSolver {
             pipe_status: status[..pipe_count].to_vec(),
             pump_flow_m3s,
             pump_head_gain_m,
-            pump_status: status[pipe_count..].to_vec(),
+            pump_status: status[pipe_count..first_valve].to_vec(),
+            valve_flow_m3s: flow[first_valve..].to_vec(),
+            valve_head_loss_m,
+            valve_status: status[first_valve..].to_vec(),
             iterations,
             max_imbalance_m3s,
             isolated,
             warnings,
-            system: factor.map(|(symbolic, factor)| FactorizedSystem {
-                symbolic,
-                factor,
+            system: factor.map(|last| FactorizedSystem {
+                symbolic: last.symbolic,
+                factor: last.factor,
                 conductance,
+                pinned: last.pinned,
             }),
         };
         let negative = solution.negative_pressure_junctions(net);
@@ -1261,6 +1663,80 @@ impl GradientSolver {
         }
         Ok(solution)
     }
+}
+
+/// Heads at a valve's two ends and its loss when fully open at the flow that matters (m).
+#[derive(Debug, Clone, Copy)]
+struct ValveHeads {
+    from_m: f64,
+    to_m: f64,
+    open_loss_m: f64,
+}
+
+/// The state a regulating valve moves to after a head solve, if it changes (the status logic of the
+/// module documentation). `target` is the head a pressure valve holds (m) or the flow a flow-control
+/// valve caps (m^3/s); `flow` the valve's flow in its own direction (m^3/s).
+fn next_valve_status(
+    kind: ValveKind,
+    status: LinkStatus,
+    heads: ValveHeads,
+    flow: f64,
+    target: f64,
+    tolerance_m: f64,
+) -> Option<LinkStatus> {
+    use LinkStatus::{Active, ControlClosed, Open};
+    let ValveHeads {
+        from_m,
+        to_m,
+        open_loss_m,
+    } = heads;
+    let next = match (kind, status) {
+        (ValveKind::PressureReducing | ValveKind::PressureSustaining, Active | Open)
+            if flow < 0.0 =>
+        {
+            ControlClosed
+        }
+        // Even fully open the upstream head cannot give the set downstream head.
+        (ValveKind::PressureReducing, Active) if from_m - open_loss_m < target - tolerance_m => {
+            Open
+        }
+        (ValveKind::PressureReducing, Open) if to_m > target + tolerance_m => Active,
+        (ValveKind::PressureReducing, ControlClosed)
+            if from_m > target + tolerance_m && to_m < target - tolerance_m =>
+        {
+            Active
+        }
+        (ValveKind::PressureReducing, ControlClosed)
+            if from_m > to_m + tolerance_m && from_m <= target + tolerance_m =>
+        {
+            Open
+        }
+        // Even fully open the downstream head keeps the upstream above its setting.
+        (ValveKind::PressureSustaining, Active) if to_m + open_loss_m > target + tolerance_m => {
+            Open
+        }
+        (ValveKind::PressureSustaining, Open) if from_m < target - tolerance_m => Active,
+        (ValveKind::PressureSustaining, ControlClosed)
+            if from_m > target + tolerance_m && to_m < target - tolerance_m =>
+        {
+            Active
+        }
+        (ValveKind::PressureSustaining, ControlClosed)
+            if from_m > to_m + tolerance_m && to_m >= target - tolerance_m =>
+        {
+            Open
+        }
+        // The head across it can no longer drive the set flow even fully open.
+        (ValveKind::FlowControl, Active) if from_m - to_m < open_loss_m - tolerance_m => Open,
+        (ValveKind::FlowControl, Open) if flow > target => Active,
+        _ => return None,
+    };
+    Some(next)
+}
+
+/// Whether `junction` is the to end of a link.
+fn slots_to_is(slots: LinkSlots, junction: usize) -> bool {
+    slots.to == NodeRef::Junction(junction)
 }
 
 fn isolated_end(isolated: &[bool], slots: LinkSlots) -> bool {
