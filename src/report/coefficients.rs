@@ -983,6 +983,8 @@ mod tests {
                 max_c: 140.0,
                 locked: false,
             }],
+            valves: Vec::new(),
+            hazen_williams_constant: None,
             conditions: vec![],
         };
         let set = parse_coefficients_toml(
