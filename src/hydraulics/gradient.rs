@@ -112,6 +112,15 @@ impl Default for SolverSettings {
     }
 }
 
+/// The `[[condition]]` of `net` called `name`, or an error that lists the conditions there are.
+pub fn named_condition<'a>(net: &'a Network, name: &str) -> Result<&'a Condition, SolveError> {
+    net.find_condition(name)
+        .ok_or_else(|| SolveError::UnknownCondition {
+            name: name.to_string(),
+            known: net.conditions.iter().map(|c| c.name.clone()).collect(),
+        })
+}
+
 /// The boundary state of one solve: demands, fixed-head grades, and which links are out of service.
 #[derive(Debug, Clone, PartialEq)]
 pub struct OperatingState {
@@ -187,13 +196,7 @@ impl OperatingState {
     pub fn for_condition_name(net: &Network, name: Option<&str>) -> Result<Self, SolveError> {
         match name {
             None => Ok(Self::base(net)),
-            Some(name) => net
-                .find_condition(name)
-                .map(|c| Self::for_condition(net, c))
-                .ok_or_else(|| SolveError::UnknownCondition {
-                    name: name.to_string(),
-                    known: net.conditions.iter().map(|c| c.name.clone()).collect(),
-                }),
+            Some(name) => named_condition(net, name).map(|c| Self::for_condition(net, c)),
         }
     }
 

@@ -252,6 +252,44 @@ impl Network {
         self.groups.iter().position(|g| g.name == name)
     }
 
+    /// This network as it stands under `condition`: base demands scaled, fixed-head grades overridden,
+    /// the condition's pipes and valves closed, its pumps off and its valve settings in force. For
+    /// methods that read a network as written (the loop method); the gradient solver takes the same
+    /// condition as an operating state instead.
+    pub fn under_condition(&self, condition: &Condition) -> Network {
+        let mut net = self.clone();
+        for junction in &mut net.junctions {
+            junction.demand_m3s *= condition.demand_factor;
+        }
+        for &(fixed, head_m) in &condition.heads {
+            if let Some(f) = net.fixed_heads.get_mut(fixed) {
+                f.head_m = head_m;
+            }
+        }
+        for &pipe in &condition.closed_pipes {
+            if let Some(p) = net.pipes.get_mut(pipe) {
+                p.closed = true;
+            }
+        }
+        for &pump in &condition.pumps_off {
+            if let Some(p) = net.pumps.get_mut(pump) {
+                p.off = true;
+            }
+        }
+        for &(valve, setting) in &condition.valve_settings {
+            if let Some(v) = net.valves.get_mut(valve) {
+                v.setting = setting;
+            }
+        }
+        for &valve in &condition.closed_valves {
+            if let Some(v) = net.valves.get_mut(valve) {
+                v.closed = true;
+            }
+        }
+        net.conditions.clear();
+        net
+    }
+
     /// Current C-factor of every pipe, in pipe order.
     pub fn c_factors(&self) -> Vec<f64> {
         self.pipes.iter().map(|p| p.c_factor).collect()
