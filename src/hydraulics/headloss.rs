@@ -35,6 +35,34 @@ pub fn minor_loss_coefficient(k: f64, diameter_m: f64) -> f64 {
     k / (2.0 * STANDARD_GRAVITY * area * area)
 }
 
+/// A Hazen-Williams constant and the unit system whose formula it is written in (10.44 means one thing
+/// for ft, gpm and inches and another for metres and m^3/s).
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct HwConstant {
+    pub units: UnitSystem,
+    pub k: f64,
+}
+
+impl HwConstant {
+    /// The constant a network's solves use: its own, or its unit system's default.
+    pub fn of_network(net: &Network) -> Self {
+        Self {
+            units: net.units,
+            k: net
+                .hazen_williams_constant
+                .unwrap_or_else(|| HazenWilliams::default_constant(net.units)),
+        }
+    }
+
+    /// By how much C values fitted under `self` must be multiplied to give the same losses under
+    /// `other` (1 when the two are the same law): (K_other / K_self)^(1/1.852), both in SI form.
+    pub fn c_scale_to(self, other: HwConstant) -> f64 {
+        let from = HazenWilliams::with_constant(self.units, self.k).k_si;
+        let to = HazenWilliams::with_constant(other.units, other.k).k_si;
+        (to / from).powf(1.0 / HW_FLOW_EXPONENT)
+    }
+}
+
 /// Hazen-Williams with the constant of one unit system, evaluated in SI.
 #[derive(Debug, Clone, Copy, PartialEq)]
 pub struct HazenWilliams {
