@@ -20,6 +20,7 @@
 #![cfg_attr(not(test), deny(clippy::indexing_slicing))]
 
 use std::collections::HashMap;
+use std::hash::{BuildHasherDefault, Hasher};
 use std::fmt;
 use std::ops::Range;
 use std::path::Path;
@@ -172,7 +173,7 @@ pub fn parse_network(text: &str, file_name: &str) -> Result<LoadedNetwork, Netwo
         if let Some(root) = parse_piece(root_text, None) {
             let root = root.into_inner();
             if !layout.conflicts_with(&root) {
-                let loaded = reader.build(&root, &layout);
+                let loaded = reader.build_parsing_ahead(&root, &layout);
                 if !reader.abandoned {
                     return reader.finish(loaded);
                 }
@@ -285,8 +286,8 @@ struct Run {
 enum Batch {
     /// The top-level table (an inline array `pipe = [{ ... }]`, or every entry of a whole document).
     Root,
-    /// One run, parsed when it is reached.
-    Run(Section, Span),
+    /// One run (its index in [`Layout::runs`]), parsed when it is reached.
+    Run(usize, Section, Span),
 }
 
 impl Layout {
@@ -344,9 +345,26 @@ impl Layout {
             .chain(
                 self.runs
                     .iter()
-                    .filter(|run| run.section == section)
-                    .map(|run| Batch::Run(section, run.text.clone())),
+                    .enumerate()
+                    .filter(|(_, run)| run.section == section)
+                    .map(|(index, run)| Batch::Run(index, section, run.text.clone())),
             )
+            .collect()
+    }
+
+    /// Every run in the order the walk opens them: section by section as [`Reader::build`] reads
+    /// them, each section's runs in file order.
+    fn walk_order(&self) -> Vec<(usize, Section, Span)> {
+        Section::WALK_ORDER
+            .into_iter()
+            .flat_map(|section| {
+                self.batches(section)
+                    .into_iter()
+                    .filter_map(|batch| match batch {
+                        Batch::Run(index, section, span) => Some((index, section, span)),
+                        Batch::Root => None,
+                    })
+            })
             .collect()
     }
 }
@@ -374,17 +392,19 @@ const ROOT_KEYS: &[&str] = &[
 ];
 
 impl Section {
-    const ALL: [Self; 6] = [
+    /// Every section, in the order [`Reader::build`] reads them (nodes before the links that name
+    /// them, groups before the pipes).
+    const WALK_ORDER: [Self; 6] = [
         Self::Junction,
         Self::FixedHead,
+        Self::Group,
         Self::Pipe,
         Self::Pump,
-        Self::Group,
         Self::Condition,
     ];
 
     fn from_key(key: &str) -> Option<Self> {
-        Self::ALL.into_iter().find(|section| section.key() == key)
+        Self::WALK_ORDER.into_iter().find(|section| section.key() == key)
     }
 
     fn key(self) -> &'static str {
@@ -502,10 +522,49 @@ struct Seen<T> {
     line: usize,
 }
 
+/// A fast hash for ids (the multiply-rotate hash of the Rust compiler, "FxHash"): a city file looks up
+/// half a million ids, and the default hash, built to resist crafted keys from a network, is several
+/// times slower on short keys. The ids come from the user's own file.
+#[derive(Default)]
+struct IdHasher(u64);
+
+impl IdHasher {
+    const SEED: u64 = 0x51_7c_c1_b7_27_22_0a_95;
+
+    fn add(&mut self, word: u64) {
+        self.0 = (self.0.rotate_left(5) ^ word).wrapping_mul(Self::SEED);
+    }
+}
+
+impl Hasher for IdHasher {
+    fn write(&mut self, bytes: &[u8]) {
+        let mut chunks = bytes.chunks_exact(8);
+        for chunk in &mut chunks {
+            let mut word = [0u8; 8];
+            word.copy_from_slice(chunk);
+            self.add(u64::from_le_bytes(word));
+        }
+        let mut word = [0u8; 8];
+        let rest = chunks.remainder();
+        if let Some(target) = word.get_mut(..rest.len()) {
+            target.copy_from_slice(rest);
+        }
+        self.add(u64::from_le_bytes(word));
+    }
+
+    fn write_u8(&mut self, byte: u8) {
+        self.add(u64::from(byte));
+    }
+
+    fn finish(&self) -> u64 {
+        self.0
+    }
+}
+
 /// The ids of one namespace (node ids, link ids, group names or condition names).
 struct Namespace<T> {
     name: &'static str,
-    seen: HashMap<String, Seen<T>>,
+    seen: HashMap<String, Seen<T>, BuildHasherDefault<IdHasher>>,
     /// Ids in file order, for suggestions.
     order: Vec<String>,
 }
@@ -514,7 +573,7 @@ impl<T: Copy> Namespace<T> {
     fn new(name: &'static str) -> Self {
         Self {
             name,
-            seen: HashMap::new(),
+            seen: HashMap::default(),
             order: Vec::new(),
         }
     }
@@ -572,7 +631,13 @@ struct Reader<'t> {
     diagnostics: Vec<Diagnostic>,
     /// A run of entries turned out not to be TOML on its own: the file must be read as one document.
     abandoned: bool,
+    /// Runs parsed on a second thread while this one walks the previous runs, in walk order.
+    ahead: Option<std::sync::mpsc::Receiver<ParsedRun<'t>>>,
 }
+
+/// A run parsed ahead of the walk: its index in [`Layout::runs`] and its table (`None` when it is not
+/// plain TOML on its own).
+type ParsedRun<'t> = (usize, Option<Spanned<DeTable<'t>>>);
 
 impl<'t> Reader<'t> {
     fn new(text: &'t str, file: &str) -> Self {
@@ -585,7 +650,40 @@ impl<'t> Reader<'t> {
             line_starts,
             diagnostics: Vec::new(),
             abandoned: false,
+            ahead: None,
         }
+    }
+
+    /// [`Self::build`] with the runs parsed on a second thread, one or two runs ahead of the walk, so
+    /// that parsing and walking share the two cores of a field laptop. Falls back to parsing on this
+    /// thread when no thread can be started.
+    fn build_parsing_ahead(&mut self, root: &DeTable<'t>, layout: &Layout) -> LoadedNetwork {
+        let text: &'t str = self.text;
+        std::thread::scope(|scope| {
+            let (sender, receiver) = std::sync::mpsc::sync_channel::<ParsedRun<'t>>(2);
+            let order = layout.walk_order();
+            let parser = std::thread::Builder::new()
+                .name("network-parse".to_string())
+                .spawn_scoped(scope, move || {
+                    for (index, section, span) in order {
+                        let parsed = text
+                            .get(span)
+                            .and_then(|piece| parse_piece(piece, Some(section)));
+                        let failed = parsed.is_none();
+                        // A closed channel means the walk stopped: nothing more is wanted.
+                        if sender.send((index, parsed)).is_err() || failed {
+                            break;
+                        }
+                    }
+                });
+            if parser.is_ok() {
+                self.ahead = Some(receiver);
+            }
+            let loaded = self.build(root, layout);
+            // Closing the channel releases a parser still waiting to hand over a run.
+            self.ahead = None;
+            loaded
+        })
     }
 
     fn finish(self, loaded: LoadedNetwork) -> Result<LoadedNetwork, NetworkFileError> {
@@ -608,12 +706,18 @@ impl<'t> Reader<'t> {
         }
         match batch {
             Batch::Root => Some((std::borrow::Cow::Borrowed(root), 0)),
-            Batch::Run(section, span) => {
+            Batch::Run(index, section, span) => {
                 let text: &'t str = self.text;
-                match text
-                    .get(span.clone())
-                    .and_then(|piece| parse_piece(piece, Some(*section)))
-                {
+                let parsed = match &self.ahead {
+                    Some(ahead) => match ahead.recv() {
+                        Ok((parsed_index, parsed)) if parsed_index == *index => parsed,
+                        _ => None,
+                    },
+                    None => text
+                        .get(span.clone())
+                        .and_then(|piece| parse_piece(piece, Some(*section))),
+                };
+                match parsed {
                     Some(table) => Some((std::borrow::Cow::Owned(table.into_inner()), span.start)),
                     None => {
                         self.abandoned = true;
@@ -751,6 +855,15 @@ impl<'t> Reader<'t> {
     }
 
     fn string(&mut self, rec: &Record<'_, '_>, key: &str, required: bool) -> Got<String> {
+        match self.text_value(rec, key, required) {
+            Got::Value(text, span) => Got::Value(text.to_string(), span),
+            Got::Absent => Got::Absent,
+            Got::Invalid => Got::Invalid,
+        }
+    }
+
+    /// A string value, borrowed from the parsed table.
+    fn text_value<'d>(&mut self, rec: &Record<'d, '_>, key: &str, required: bool) -> Got<&'d str> {
         let Some(found) = self.get(rec, key) else {
             if required {
                 self.missing(rec, key);
@@ -759,7 +872,7 @@ impl<'t> Reader<'t> {
             return Got::Absent;
         };
         match found.value.as_str() {
-            Some(text) => Got::Value(text.to_string(), found.span),
+            Some(text) => Got::Value(text, found.span),
             None => {
                 self.wrong_type(rec, key, &found, "a string");
                 Got::Invalid
@@ -1212,13 +1325,13 @@ impl<'t> Reader<'t> {
 
     /// The `from` and `to` of a pipe or pump, resolved to nodes.
     fn ends(&mut self, rec: &Record<'_, '_>, nodes: &Namespace<NodeRef>) -> Option<(NodeRef, NodeRef)> {
-        let from = self.string(rec, "from", true);
-        let to = self.string(rec, "to", true);
-        let resolve = |reader: &mut Self, key: &str, got: &Got<String>| -> Option<NodeRef> {
+        let from = self.text_value(rec, "from", true);
+        let to = self.text_value(rec, "to", true);
+        let resolve = |reader: &mut Self, key: &str, got: &Got<&str>| -> Option<NodeRef> {
             let Got::Value(id, span) = got else {
                 return None;
             };
-            match nodes.get(id.as_str()) {
+            match nodes.get(id) {
                 Some(seen) => Some(seen.target),
                 None => {
                     let message = format!(
