@@ -31,25 +31,34 @@ pub fn run(network: &Path, output: Output) -> anyhow::Result<ExitCode> {
         Err(error @ NetworkFileError::Unreadable { .. }) => return Err(error.into()),
     };
     if output == Output::Json {
-        let report = match &loaded {
-            Ok(loaded) => {
-                let summary = NetworkSummary::of(&loaded.network);
-                JsonReport {
-                    caution: CAUTION,
-                    file: &loaded.sources.file,
-                    problems: Vec::new(),
-                    summary: Some(JsonSummary::of(&summary)),
-                    units: Some(summary.units.labels()),
-                    valid: true,
-                }
-            }
-            Err(diagnostics) => JsonReport {
+        let summary = loaded
+            .as_ref()
+            .ok()
+            .map(|loaded| NetworkSummary::of(&loaded.network));
+        let report = match (&loaded, &summary) {
+            (Ok(loaded), Some(summary)) => JsonReport {
+                caution: CAUTION,
+                file: &loaded.sources.file,
+                problems: Vec::new(),
+                summary: Some(JsonSummary::of(summary)),
+                units: Some(summary.units.labels()),
+                valid: true,
+            },
+            (Err(diagnostics), _) => JsonReport {
                 caution: CAUTION,
                 file: diagnostics.first().map_or("", |d| d.file.as_str()),
                 problems: diagnostics.iter().map(JsonProblem::of).collect(),
                 summary: None,
                 units: None,
                 valid: false,
+            },
+            (Ok(loaded), None) => JsonReport {
+                caution: CAUTION,
+                file: &loaded.sources.file,
+                problems: Vec::new(),
+                summary: None,
+                units: None,
+                valid: true,
             },
         };
         let mut out = std::io::BufWriter::new(std::io::stdout().lock());

@@ -7,12 +7,11 @@ use std::process::ExitCode;
 use anyhow::bail;
 use serde_json::{Value, json};
 
+use roughcal::calibrate::CAUTION;
 use roughcal::fieldtest::{
     AvailableFlow, FieldSheet, Severity, SheetReading, default_target, load_sheet, screen_sheet,
 };
-use roughcal::calibrate::CAUTION;
 use roughcal::network::UnitSystem;
-
 
 pub fn run(sheet_path: &Path, target: Option<f64>, json: bool) -> anyhow::Result<ExitCode> {
     let sheet = match load_sheet(sheet_path) {

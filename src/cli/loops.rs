@@ -6,9 +6,9 @@ use std::path::Path;
 use std::process::ExitCode;
 
 use anyhow::Context as _;
+use roughcal::calibrate::CAUTION;
 use roughcal::hydraulics::gradient::MASS_BALANCE_TOLERANCE;
 use roughcal::hydraulics::loops::{LoopError, LoopKind, LoopOptions, LoopSolution, solve_loops};
-use roughcal::calibrate::CAUTION;
 use roughcal::network::file::load_network_file;
 use roughcal::network::{Network, NodeRef};
 use roughcal::report::table::{Align, TextTable};

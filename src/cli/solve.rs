@@ -6,8 +6,8 @@ use std::path::Path;
 use std::process::ExitCode;
 
 use anyhow::{Context, bail};
-use roughcal::hydraulics::{GradientSolver, LinkRef, OperatingState, Solution, SolveWarning};
 use roughcal::calibrate::CAUTION;
+use roughcal::hydraulics::{GradientSolver, LinkRef, OperatingState, Solution, SolveWarning};
 use roughcal::network::file::load_network_file;
 use roughcal::network::{Network, UnitLabels};
 use roughcal::report::table::{Align, TextTable};
@@ -164,7 +164,8 @@ impl Serialize for Nodes<'_> {
             solution,
         } = self.0;
         let units = net.units;
-        let mut seq = serializer.serialize_seq(Some(net.junctions.len() + net.fixed_heads.len()))?;
+        let mut seq =
+            serializer.serialize_seq(Some(net.junctions.len() + net.fixed_heads.len()))?;
         for (j, junction) in net.junctions.iter().enumerate() {
             let pressure_head_m = solution.pressure_head_m(net, j);
             let pressure = pressure_head_m.map(|p| units.pressure_from_head_m(p));

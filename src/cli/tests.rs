@@ -14,8 +14,8 @@ use roughcal::report::table::{Align, TextTable};
 use serde_json::json;
 
 use super::fireflow::finding_json;
-use roughcal::calibrate::CAUTION;
 use super::load_network_or_report;
+use roughcal::calibrate::CAUTION;
 
 pub fn run(
     network_path: &Path,

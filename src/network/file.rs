@@ -20,8 +20,8 @@
 #![cfg_attr(not(test), deny(clippy::indexing_slicing))]
 
 use std::collections::HashMap;
-use std::hash::{BuildHasherDefault, Hasher};
 use std::fmt;
+use std::hash::{BuildHasherDefault, Hasher};
 use std::ops::Range;
 use std::path::Path;
 
@@ -220,10 +220,12 @@ fn parse_piece(text: &str, section: Option<Section>) -> Option<Spanned<DeTable<'
             match (keys.next(), keys.next()) {
                 (Some((key, entries)), None) if key.get_ref() == section.key() => {
                     match entries.get_ref() {
-                        DeValue::Array(entries) => entries.iter().all(|entry| match entry.get_ref() {
-                            DeValue::Table(entry) => plain_values(entry, text),
-                            _ => false,
-                        }),
+                        DeValue::Array(entries) => {
+                            entries.iter().all(|entry| match entry.get_ref() {
+                                DeValue::Table(entry) => plain_values(entry, text),
+                                _ => false,
+                            })
+                        }
                         _ => false,
                     }
                 }
@@ -260,7 +262,8 @@ fn plain_value(value: &Spanned<DeValue<'_>>, text: &str) -> bool {
         }
         DeValue::Array(array) => array.iter().all(|element| plain_value(element, text)),
         DeValue::Table(table) => {
-            text.get(value.span().start..).is_some_and(|rest| rest.starts_with('{'))
+            text.get(value.span().start..)
+                .is_some_and(|rest| rest.starts_with('{'))
                 && plain_values(table, text)
         }
         DeValue::String(_) | DeValue::Boolean(_) | DeValue::Datetime(_) => true,
@@ -307,7 +310,11 @@ impl Layout {
         let mut line_start = 0;
         for line in text.split_inclusive('\n') {
             if let Some(rest) = line.strip_prefix("[[") {
-                let name = rest.split("]]").next().unwrap_or("").trim_matches([' ', '\t']);
+                let name = rest
+                    .split("]]")
+                    .next()
+                    .unwrap_or("")
+                    .trim_matches([' ', '\t']);
                 headers.push((line_start, Section::from_key(name)?));
             }
             line_start += line.len();
@@ -315,9 +322,7 @@ impl Layout {
         let root_end = headers.first().map_or(text.len(), |&(start, _)| start);
         let mut runs: Vec<Run> = Vec::new();
         for (index, &(start, section)) in headers.iter().enumerate() {
-            let end = headers
-                .get(index + 1)
-                .map_or(text.len(), |&(next, _)| next);
+            let end = headers.get(index + 1).map_or(text.len(), |&(next, _)| next);
             match runs.last_mut() {
                 Some(run) if run.section == section && end - run.text.start <= RUN_BYTES => {
                     run.text.end = end;
@@ -404,7 +409,9 @@ impl Section {
     ];
 
     fn from_key(key: &str) -> Option<Self> {
-        Self::WALK_ORDER.into_iter().find(|section| section.key() == key)
+        Self::WALK_ORDER
+            .into_iter()
+            .find(|section| section.key() == key)
     }
 
     fn key(self) -> &'static str {
@@ -844,7 +851,13 @@ impl<'t> Reader<'t> {
         self.report_at(rec, &header, message, key);
     }
 
-    fn wrong_type(&mut self, rec: &Record<'_, '_>, key: &str, found: &Found<'_, '_>, expected: &str) {
+    fn wrong_type(
+        &mut self,
+        rec: &Record<'_, '_>,
+        key: &str,
+        found: &Found<'_, '_>,
+        expected: &str,
+    ) {
         let message = format!(
             "{} must be {expected}, found {} `{}`",
             Self::what(rec, key),
@@ -1112,25 +1125,25 @@ impl<'t> Reader<'t> {
                 break;
             };
             for mut rec in self.records(&table, offset, Section::Junction) {
-            sources.junctions.push(self.location(rec.header.start));
-            let id = self.read_id(&mut rec, Section::Junction);
-            self.check_keys(&rec);
-            let elevation = self.finite(&rec, "elevation", true).value();
-            let demand = self.finite(&rec, "demand", false).value();
-            let position = self.position(&rec);
-            let index = network.junctions.len();
-            let id_span = id.as_ref().map_or(rec.header.clone(), |(_, s)| s.clone());
-            if let Some(id) = &id {
-                pending_nodes.push((id.clone(), NodeRef::Junction(index), "junction"));
+                sources.junctions.push(self.location(rec.header.start));
+                let id = self.read_id(&mut rec, Section::Junction);
+                self.check_keys(&rec);
+                let elevation = self.finite(&rec, "elevation", true).value();
+                let demand = self.finite(&rec, "demand", false).value();
+                let position = self.position(&rec);
+                let index = network.junctions.len();
+                let id_span = id.as_ref().map_or(rec.header.clone(), |(_, s)| s.clone());
+                if let Some(id) = &id {
+                    pending_nodes.push((id.clone(), NodeRef::Junction(index), "junction"));
+                }
+                junction_spans.push(id_span);
+                network.junctions.push(Junction {
+                    id: id.map(|(id, _)| id).unwrap_or_default(),
+                    elevation_m: units_or_us.length_to_m(elevation.unwrap_or(f64::NAN)),
+                    demand_m3s: units_or_us.flow_to_m3s(demand.unwrap_or(0.0)),
+                    position,
+                });
             }
-            junction_spans.push(id_span);
-            network.junctions.push(Junction {
-                id: id.map(|(id, _)| id).unwrap_or_default(),
-                elevation_m: units_or_us.length_to_m(elevation.unwrap_or(f64::NAN)),
-                demand_m3s: units_or_us.flow_to_m3s(demand.unwrap_or(0.0)),
-                position,
-            });
-        }
         }
 
         let mut any_fixed_head = false;
@@ -1139,22 +1152,22 @@ impl<'t> Reader<'t> {
                 break;
             };
             for mut rec in self.records(&table, offset, Section::FixedHead) {
-            any_fixed_head = true;
-            sources.fixed_heads.push(self.location(rec.header.start));
-            let id = self.read_id(&mut rec, Section::FixedHead);
-            self.check_keys(&rec);
-            let head = self.finite(&rec, "head", true).value();
-            let position = self.position(&rec);
-            let index = network.fixed_heads.len();
-            if let Some(id) = &id {
-                pending_nodes.push((id.clone(), NodeRef::FixedHead(index), "fixed head"));
+                any_fixed_head = true;
+                sources.fixed_heads.push(self.location(rec.header.start));
+                let id = self.read_id(&mut rec, Section::FixedHead);
+                self.check_keys(&rec);
+                let head = self.finite(&rec, "head", true).value();
+                let position = self.position(&rec);
+                let index = network.fixed_heads.len();
+                if let Some(id) = &id {
+                    pending_nodes.push((id.clone(), NodeRef::FixedHead(index), "fixed head"));
+                }
+                network.fixed_heads.push(FixedHead {
+                    id: id.map(|(id, _)| id).unwrap_or_default(),
+                    head_m: units_or_us.length_to_m(head.unwrap_or(f64::NAN)),
+                    position,
+                });
             }
-            network.fixed_heads.push(FixedHead {
-                id: id.map(|(id, _)| id).unwrap_or_default(),
-                head_m: units_or_us.length_to_m(head.unwrap_or(f64::NAN)),
-                position,
-            });
-        }
         }
 
         let nodes = Namespace::in_file_order(self, "node id", pending_nodes);
@@ -1165,18 +1178,18 @@ impl<'t> Reader<'t> {
                 break;
             };
             for mut rec in self.records(&table, offset, Section::Group) {
-            sources.groups.push(self.location(rec.header.start));
-            let name = self.read_id(&mut rec, Section::Group);
-            self.check_keys(&rec);
-            let group = self.group(&rec);
-            if let Some(name) = &name {
-                groups.register(self, "group", name, network.groups.len(), "name");
+                sources.groups.push(self.location(rec.header.start));
+                let name = self.read_id(&mut rec, Section::Group);
+                self.check_keys(&rec);
+                let group = self.group(&rec);
+                if let Some(name) = &name {
+                    groups.register(self, "group", name, network.groups.len(), "name");
+                }
+                network.groups.push(RoughnessGroup {
+                    name: name.map(|(name, _)| name).unwrap_or_default(),
+                    ..group
+                });
             }
-            network.groups.push(RoughnessGroup {
-                name: name.map(|(name, _)| name).unwrap_or_default(),
-                ..group
-            });
-        }
         }
 
         let mut pending_links: Vec<((String, Span), LinkRef, &'static str)> = Vec::new();
@@ -1186,34 +1199,34 @@ impl<'t> Reader<'t> {
                 break;
             };
             for mut rec in self.records(&table, offset, Section::Pipe) {
-            sources.pipes.push(self.location(rec.header.start));
-            let id = self.read_id(&mut rec, Section::Pipe);
-            self.check_keys(&rec);
-            let ends = self.ends(&rec, &nodes);
-            let length = self.positive(&rec, "length", true).value();
-            let diameter = self.positive(&rec, "diameter", true).value();
-            let c_factor = self.positive(&rec, "c", true).value();
-            let group = self.pipe_group(&rec, &groups);
-            let closed = self.boolean(&rec, "closed").value().unwrap_or(false);
-            let check_valve = self.boolean(&rec, "check_valve").value().unwrap_or(false);
-            let index = network.pipes.len();
-            if let Some(id) = &id {
-                pending_links.push((id.clone(), LinkRef::Pipe(index), "pipe"));
+                sources.pipes.push(self.location(rec.header.start));
+                let id = self.read_id(&mut rec, Section::Pipe);
+                self.check_keys(&rec);
+                let ends = self.ends(&rec, &nodes);
+                let length = self.positive(&rec, "length", true).value();
+                let diameter = self.positive(&rec, "diameter", true).value();
+                let c_factor = self.positive(&rec, "c", true).value();
+                let group = self.pipe_group(&rec, &groups);
+                let closed = self.boolean(&rec, "closed").value().unwrap_or(false);
+                let check_valve = self.boolean(&rec, "check_valve").value().unwrap_or(false);
+                let index = network.pipes.len();
+                if let Some(id) = &id {
+                    pending_links.push((id.clone(), LinkRef::Pipe(index), "pipe"));
+                }
+                all_links_resolved &= ends.is_some();
+                let (from, to) = ends.unwrap_or((NodeRef::Junction(0), NodeRef::Junction(0)));
+                network.pipes.push(Pipe {
+                    id: id.map(|(id, _)| id).unwrap_or_default(),
+                    from,
+                    to,
+                    length_m: units_or_us.length_to_m(length.unwrap_or(f64::NAN)),
+                    diameter_m: units_or_us.diameter_to_m(diameter.unwrap_or(f64::NAN)),
+                    c_factor: c_factor.unwrap_or(f64::NAN),
+                    group,
+                    closed,
+                    check_valve,
+                });
             }
-            all_links_resolved &= ends.is_some();
-            let (from, to) = ends.unwrap_or((NodeRef::Junction(0), NodeRef::Junction(0)));
-            network.pipes.push(Pipe {
-                id: id.map(|(id, _)| id).unwrap_or_default(),
-                from,
-                to,
-                length_m: units_or_us.length_to_m(length.unwrap_or(f64::NAN)),
-                diameter_m: units_or_us.diameter_to_m(diameter.unwrap_or(f64::NAN)),
-                c_factor: c_factor.unwrap_or(f64::NAN),
-                group,
-                closed,
-                check_valve,
-            });
-        }
         }
 
         for batch in layout.batches(Section::Pump) {
@@ -1221,31 +1234,31 @@ impl<'t> Reader<'t> {
                 break;
             };
             for mut rec in self.records(&table, offset, Section::Pump) {
-            sources.pumps.push(self.location(rec.header.start));
-            let id = self.read_id(&mut rec, Section::Pump);
-            self.check_keys(&rec);
-            let ends = self.ends(&rec, &nodes);
-            let curve = self.pump_curve(&rec, units_or_us);
-            let off = self.boolean(&rec, "off").value().unwrap_or(false);
-            let index = network.pumps.len();
-            if let Some(id) = &id {
-                pending_links.push((id.clone(), LinkRef::Pump(index), "pump"));
+                sources.pumps.push(self.location(rec.header.start));
+                let id = self.read_id(&mut rec, Section::Pump);
+                self.check_keys(&rec);
+                let ends = self.ends(&rec, &nodes);
+                let curve = self.pump_curve(&rec, units_or_us);
+                let off = self.boolean(&rec, "off").value().unwrap_or(false);
+                let index = network.pumps.len();
+                if let Some(id) = &id {
+                    pending_links.push((id.clone(), LinkRef::Pump(index), "pump"));
+                }
+                all_links_resolved &= ends.is_some();
+                let (from, to) = ends.unwrap_or((NodeRef::Junction(0), NodeRef::Junction(0)));
+                network.pumps.push(Pump {
+                    id: id.map(|(id, _)| id).unwrap_or_default(),
+                    from,
+                    to,
+                    curve: curve.unwrap_or(PumpCurve {
+                        points: Vec::new(),
+                        a: f64::NAN,
+                        b: f64::NAN,
+                        c: f64::NAN,
+                    }),
+                    off,
+                });
             }
-            all_links_resolved &= ends.is_some();
-            let (from, to) = ends.unwrap_or((NodeRef::Junction(0), NodeRef::Junction(0)));
-            network.pumps.push(Pump {
-                id: id.map(|(id, _)| id).unwrap_or_default(),
-                from,
-                to,
-                curve: curve.unwrap_or(PumpCurve {
-                    points: Vec::new(),
-                    a: f64::NAN,
-                    b: f64::NAN,
-                    c: f64::NAN,
-                }),
-                off,
-            });
-        }
         }
 
         let links = Namespace::in_file_order(self, "link id", pending_links);
@@ -1257,20 +1270,20 @@ impl<'t> Reader<'t> {
                 break;
             };
             for mut rec in self.records(&table, offset, Section::Condition) {
-            sources.conditions.push(self.location(rec.header.start));
-            let name = self.read_id(&mut rec, Section::Condition);
-            self.check_keys(&rec);
-            let condition = self.condition(&rec, &network, &nodes, &links, units_or_us);
-            let name_span = name.as_ref().map_or(rec.header.clone(), |(_, s)| s.clone());
-            if let Some(name) = &name {
-                conditions.register(self, "condition", name, network.conditions.len(), "name");
+                sources.conditions.push(self.location(rec.header.start));
+                let name = self.read_id(&mut rec, Section::Condition);
+                self.check_keys(&rec);
+                let condition = self.condition(&rec, &network, &nodes, &links, units_or_us);
+                let name_span = name.as_ref().map_or(rec.header.clone(), |(_, s)| s.clone());
+                if let Some(name) = &name {
+                    conditions.register(self, "condition", name, network.conditions.len(), "name");
+                }
+                condition_spans.push(name_span);
+                network.conditions.push(Condition {
+                    name: name.map(|(name, _)| name).unwrap_or_default(),
+                    ..condition
+                });
             }
-            condition_spans.push(name_span);
-            network.conditions.push(Condition {
-                name: name.map(|(name, _)| name).unwrap_or_default(),
-                ..condition
-            });
-        }
         }
 
         if self.abandoned {
@@ -1324,7 +1337,11 @@ impl<'t> Reader<'t> {
     }
 
     /// The `from` and `to` of a pipe or pump, resolved to nodes.
-    fn ends(&mut self, rec: &Record<'_, '_>, nodes: &Namespace<NodeRef>) -> Option<(NodeRef, NodeRef)> {
+    fn ends(
+        &mut self,
+        rec: &Record<'_, '_>,
+        nodes: &Namespace<NodeRef>,
+    ) -> Option<(NodeRef, NodeRef)> {
         let from = self.text_value(rec, "from", true);
         let to = self.text_value(rec, "to", true);
         let resolve = |reader: &mut Self, key: &str, got: &Got<&str>| -> Option<NodeRef> {
@@ -1428,10 +1445,9 @@ impl<'t> Reader<'t> {
             let pair = element.get_ref().as_array().and_then(|pair| {
                 let mut values = pair.iter();
                 match (values.next(), values.next(), values.next()) {
-                    (Some(flow), Some(head), None) => Some((
-                        value_number(flow.get_ref())?,
-                        value_number(head.get_ref())?,
-                    )),
+                    (Some(flow), Some(head), None) => {
+                        Some((value_number(flow.get_ref())?, value_number(head.get_ref())?))
+                    }
                     _ => None,
                 }
             });
