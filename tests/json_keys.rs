@@ -53,10 +53,21 @@ fn paths_of(value: &Value, key: &str, at: &str, found: &mut Vec<String>) {
 fn every_json_command_shares_caution_units_and_max_imbalance() {
     let demo = repo("demo-network/district.toml");
     let sheet = repo("field-sheets/demo.csv");
-    // A pipes-only network (in si units), which the loop solver accepts.
-    let pipes_only = repo("tests/data/honesty/negative-pressure.toml");
     let fireflow_sheet = repo("tests/data/fireflow-us.csv");
     let out = tempfile::tempdir().unwrap();
+    // A looped, pipes-only network, which the loop solver accepts: the test network without its
+    // pump and check valve (as in solver_honesty.rs).
+    let base = include_str!("data/base.toml");
+    let (Some(pump_at), Some(condition_at)) = (base.find("[[pump]]"), base.find("[[condition]]"))
+    else {
+        panic!("tests/data/base.toml has a pump and a condition");
+    };
+    let looped = format!("{}{}", &base[..pump_at], &base[condition_at..])
+        .replace("check_valve = true\n", "")
+        .replace("pumps_off = [\"PU-1\"]\n", "");
+    let pipes_only_path = out.path().join("looped.toml");
+    std::fs::write(&pipes_only_path, looped).unwrap();
+    let pipes_only = pipes_only_path.display().to_string();
     let out_dir = out.path().join("fit");
     let reports = [
         ("check", report(&["check", &demo, "--json"])),
