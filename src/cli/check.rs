@@ -83,10 +83,10 @@ pub fn run(network: &Path, output: Output) -> anyhow::Result<ExitCode> {
         }
         Err(diagnostics) => {
             for diagnostic in &diagnostics {
-                eprintln!("{diagnostic}");
+                eprintln!("roughcal: {diagnostic}");
             }
             eprintln!(
-                "{}: {} found",
+                "roughcal: {}: {} found",
                 network.display(),
                 counted(diagnostics.len(), "problem")
             );
