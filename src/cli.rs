@@ -41,6 +41,13 @@ pub enum Command {
     Check {
         /// Network file (TOML).
         network: PathBuf,
+        /// Machine-readable output: the summary, or every defect with its place, on stdout.
+        #[arg(long, conflicts_with = "quiet")]
+        json: bool,
+        /// Print nothing for a good file (for scripts: the exit status says it); defects still go to
+        /// stderr.
+        #[arg(long, short = 'q')]
+        quiet: bool,
     },
     /// Solve the steady state of a network (global gradient algorithm).
     Solve {
@@ -222,7 +229,18 @@ pub fn load_network_or_report(
 pub fn run(cli: Cli) -> anyhow::Result<ExitCode> {
     match cli.command {
         None => ui::run_demo(),
-        Some(Command::Check { network }) => check::run(&network),
+        Some(Command::Check {
+            network,
+            json,
+            quiet,
+        }) => check::run(
+            &network,
+            match (json, quiet) {
+                (true, _) => check::Output::Json,
+                (false, true) => check::Output::Quiet,
+                (false, false) => check::Output::Text,
+            },
+        ),
         Some(Command::Solve {
             network,
             condition,

@@ -12,4 +12,4 @@ pub mod units;
 pub mod write;
 
 pub use model::*;
-pub use units::UnitSystem;
+pub use units::{UnitLabels, UnitSystem};
