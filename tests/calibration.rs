@@ -136,6 +136,7 @@ fn grid_network(c_by_group: [f64; 3]) -> Network {
         pumps: vec![],
         groups,
         conditions: vec![],
+        lonlat_origin: None,
     }
 }
 
@@ -333,6 +334,7 @@ fn single_path_matches_the_head_loss_ratio_method() {
         pumps: vec![],
         groups: vec![group("main", 40.0, 150.0)],
         conditions: vec![],
+        lonlat_origin: None,
     };
     let static_psi = 200.0 * 0.4335;
     let test = CalibrationTest {

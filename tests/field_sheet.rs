@@ -45,6 +45,7 @@ fn network() -> Network {
             closed_pipes: vec![],
             pumps_off: vec![],
         }],
+        lonlat_origin: None,
     }
 }
 

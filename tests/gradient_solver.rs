@@ -15,6 +15,7 @@ fn network(junctions: Vec<Junction>, fixed: Vec<FixedHead>, pipes: Vec<Pipe>) ->
         pumps: vec![],
         groups: vec![],
         conditions: vec![],
+        lonlat_origin: None,
     }
 }
 

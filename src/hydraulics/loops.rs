@@ -479,6 +479,7 @@ mod tests {
             pumps: Vec::new(),
             groups: Vec::new(),
             conditions: Vec::new(),
+            lonlat_origin: None,
         }
     }
 

@@ -16,6 +16,7 @@ use std::path::Path;
 
 use toml_edit::{Document, Item, Table, TableLike, Value};
 
+use super::lonlat::LonLat;
 use super::model::{
     Condition, DEFAULT_GROUP_MAX_C, DEFAULT_GROUP_MIN_C, FixedHead, Junction, Network, NodeRef,
     Pipe, Pump, PumpCurve, RoughnessGroup,
@@ -187,6 +188,8 @@ enum Section {
 const ROOT_KEYS: &[&str] = &[
     "title",
     "units",
+    "origin_lon",
+    "origin_lat",
     "junction",
     "fixed_head",
     "pipe",
@@ -704,6 +707,7 @@ impl<'t> Reader<'t> {
             pumps: Vec::new(),
             groups: Vec::new(),
             conditions: Vec::new(),
+            lonlat_origin: self.lonlat_origin(&root_rec),
         };
         let mut sources = SourceMap {
             file: self.file.clone(),
@@ -894,6 +898,37 @@ impl<'t> Reader<'t> {
             rec.label
         );
         self.report_at(rec, &span, message, absent);
+        None
+    }
+
+    /// `origin_lon` and `origin_lat` of the top level: both or neither, in range.
+    fn lonlat_origin(&mut self, rec: &Record<'_>) -> Option<LonLat> {
+        let lon = self.finite(rec, "origin_lon", false);
+        let lat = self.finite(rec, "origin_lat", false);
+        let (given, span, absent) = match (lon, lat) {
+            (Got::Value(lon_deg, lon_span), Got::Value(lat_deg, lat_span)) => {
+                if !(-180.0..=180.0).contains(&lon_deg) {
+                    let message = format!(
+                        "`origin_lon` must be a longitude from -180 to 180 degrees, found `{lon_deg}`"
+                    );
+                    self.report(&lon_span, message, None, Some("origin_lon"));
+                    return None;
+                }
+                if !(-90.0..=90.0).contains(&lat_deg) {
+                    let message = format!(
+                        "`origin_lat` must be a latitude from -90 to 90 degrees, found `{lat_deg}`"
+                    );
+                    self.report(&lat_span, message, None, Some("origin_lat"));
+                    return None;
+                }
+                return Some(LonLat { lon_deg, lat_deg });
+            }
+            (Got::Value(_, span), Got::Absent) => ("origin_lon", span, "origin_lat"),
+            (Got::Absent, Got::Value(_, span)) => ("origin_lat", span, "origin_lon"),
+            _ => return None,
+        };
+        let message = format!("`{given}` given without `{absent}`: give both or neither");
+        self.report(&span, message, None, Some(absent));
         None
     }
 

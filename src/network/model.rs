@@ -20,6 +20,11 @@ pub struct Network {
     pub pumps: Vec<Pump>,
     pub groups: Vec<RoughnessGroup>,
     pub conditions: Vec<Condition>,
+    /// Where plan coordinates came from WGS84 longitude and latitude (a network imported with
+    /// `coordinates = "lonlat"`): the origin of the local projection that turned them into x, y (see
+    /// [`super::lonlat::LocalProjection`]), so exports can give lon/lat back. `None`: x, y are the file's
+    /// own plan coordinates.
+    pub lonlat_origin: Option<super::lonlat::LonLat>,
 }
 
 /// A node whose head is unknown: a pipe joint, hydrant or service point.

@@ -508,6 +508,7 @@ impl Draft {
                 })
                 .collect(),
             conditions: Vec::new(),
+            lonlat_origin: None,
         };
         net.fixed_heads = self
             .fixed_head_positions_m

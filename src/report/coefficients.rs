@@ -936,6 +936,7 @@ mod tests {
                 locked: false,
             }],
             conditions: vec![],
+            lonlat_origin: None,
         };
         let set = parse_coefficients_toml(
             "[[group]]\nname = \"ci\"\nc = 80\n\n[[group]]\nname = \"pvc\"\nc = 140\n",
