@@ -757,7 +757,10 @@ fn import_outcomes(s: &Scratch) -> Vec<Outcome> {
         "no config",
         args("missing.toml", &pipes_file, "o.toml"),
     ));
-    out.push(run("shapefile", args(&config_file, "mains.shp", "o.toml")));
+    out.push(run(
+        "shapefile",
+        args(&config_file, "mains.shp", "never-written.toml"),
+    ));
     out.push(run(
         "existing out",
         args(&config_file, &pipes_file, existing.to_str().unwrap()),

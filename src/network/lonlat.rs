@@ -168,12 +168,13 @@ mod tests {
         let back = projection.inverse(x, y);
         assert!((back.lon_deg - point.lon_deg).abs() < 1e-12);
         assert!((back.lat_deg - point.lat_deg).abs() < 1e-12);
-        // About 1 km away the plan distance agrees with the geodesic to a millimetre per 100 m
-        // (equirectangular distortion grows with the square of the distance).
+        // About 1 km away the plan distance agrees with the geodesic within 1e-4 (10 cm per km; the
+        // equirectangular scale error grows with the distance from the origin's latitude), well inside
+        // any snapping distance; lengths are measured on the ellipsoid, not in the plan.
         let plan = x.hypot(y);
         let geodesic = geodesic_distance_m(origin, point);
         assert!(
-            (plan - geodesic).abs() < 1e-5 * geodesic,
+            (plan - geodesic).abs() < 1e-4 * geodesic,
             "{plan} {geodesic}"
         );
     }
