@@ -755,7 +755,7 @@ fn import_outcomes(s: &Scratch) -> Vec<Outcome> {
     let config_file = format!("{gis}/IMPORT.toml");
     out.push(run(
         "no config",
-        args("missing.toml", &pipes_file, "o.toml"),
+        args("no-such-import.toml", &pipes_file, "never-written.toml"),
     ));
     out.push(run(
         "shapefile",
