@@ -1361,7 +1361,11 @@ fn list_ids(network: &Network, junctions: &[usize]) -> String {
 /// Which junctions reach a fixed head through links that are open (pipes not closed, pumps not off,
 /// and none of the extra `closed_pipes` / `pumps_off`). Direction is ignored: a check valve still
 /// connects.
-fn reachable(network: &Network, closed_pipes: &[usize], pumps_off: &[usize]) -> Vec<bool> {
+pub(crate) fn reachable(
+    network: &Network,
+    closed_pipes: &[usize],
+    pumps_off: &[usize],
+) -> Vec<bool> {
     let junction_count = network.junctions.len();
     let node_count = junction_count + network.fixed_heads.len();
     let index = |node: NodeRef| match node {
