@@ -598,48 +598,6 @@ pub fn demo_sheet_csv() -> Result<String, DemoError> {
     Ok(out)
 }
 
-#[cfg(test)]
-mod tests {
-    use super::*;
-
-    #[test]
-    fn pitot_inverse_round_trips() {
-        // NFPA 291 pitot formula: 1000 gpm through a 2.5 in, c = 0.9 outlet needs about 35.5 psi.
-        let p = pitot_psi_for_flow(1000.0, 2.5, 0.9);
-        assert!((29.83 * 0.9 * 6.25 * p.sqrt() - 1000.0).abs() < 1e-9);
-        assert!((p - 35.5).abs() < 0.1, "{p}");
-    }
-
-    #[test]
-    fn the_district_is_a_believable_small_zone() {
-        let loaded = crate::network::file::parse_network(&district_network_toml(), "district.toml")
-            .expect("the demo network is valid");
-        let net = loaded.network;
-        assert!(
-            (150..=400).contains(&net.pipes.len()),
-            "{}",
-            net.pipes.len()
-        );
-        assert_eq!(net.groups.len(), 5);
-        assert!(net.junctions.iter().all(|j| j.position.is_some()));
-        let solver = crate::hydraulics::GradientSolver::new(&net).unwrap();
-        let state = crate::hydraulics::OperatingState::base(&net);
-        let solution = solver.solve(&net, &state, &net.c_factors(), None).unwrap();
-        // Street pressures between 40 and 120 psi (common practice, no source: the usual design band).
-        let street = |id: &str| id != "J-SUCT" && id != "J-DISCH";
-        for j in (0..net.junctions.len()).filter(|&j| street(&net.junctions[j].id)) {
-            let psi = net
-                .units
-                .pressure_from_head_m(solution.pressure_head_m(&net, j).unwrap());
-            assert!(
-                (40.0..=130.0).contains(&psi),
-                "{}: {psi}",
-                net.junctions[j].id
-            );
-        }
-    }
-}
-
 /// The demo district as its (invented) GIS would export it, for `demo-network/gis/`: pipes and nodes
 /// as GeoJSON in the district's own plan feet, and the IMPORT.toml that reads them.
 ///
@@ -811,4 +769,46 @@ pub fn gis_district() -> Result<crate::network::import::export::GisExport, DemoE
             .into(),
     };
     gis_export(&gis, &plan).map_err(|e| DemoError::Network(e.to_string()))
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn pitot_inverse_round_trips() {
+        // NFPA 291 pitot formula: 1000 gpm through a 2.5 in, c = 0.9 outlet needs about 35.5 psi.
+        let p = pitot_psi_for_flow(1000.0, 2.5, 0.9);
+        assert!((29.83 * 0.9 * 6.25 * p.sqrt() - 1000.0).abs() < 1e-9);
+        assert!((p - 35.5).abs() < 0.1, "{p}");
+    }
+
+    #[test]
+    fn the_district_is_a_believable_small_zone() {
+        let loaded = crate::network::file::parse_network(&district_network_toml(), "district.toml")
+            .expect("the demo network is valid");
+        let net = loaded.network;
+        assert!(
+            (150..=400).contains(&net.pipes.len()),
+            "{}",
+            net.pipes.len()
+        );
+        assert_eq!(net.groups.len(), 5);
+        assert!(net.junctions.iter().all(|j| j.position.is_some()));
+        let solver = crate::hydraulics::GradientSolver::new(&net).unwrap();
+        let state = crate::hydraulics::OperatingState::base(&net);
+        let solution = solver.solve(&net, &state, &net.c_factors(), None).unwrap();
+        // Street pressures between 40 and 120 psi (common practice, no source: the usual design band).
+        let street = |id: &str| id != "J-SUCT" && id != "J-DISCH";
+        for j in (0..net.junctions.len()).filter(|&j| street(&net.junctions[j].id)) {
+            let psi = net
+                .units
+                .pressure_from_head_m(solution.pressure_head_m(&net, j).unwrap());
+            assert!(
+                (40.0..=130.0).contains(&psi),
+                "{}: {psi}",
+                net.junctions[j].id
+            );
+        }
+    }
 }
