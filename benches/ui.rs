@@ -39,9 +39,12 @@ fn app() -> App {
         network_text: String::new(),
         network,
         sheet_path: PathBuf::from("bench.csv"),
+        sheet_base: sheet.clone(),
         sheet,
         scratch_folder: None,
         keep_original: false,
+        sheet_file: Default::default(),
+        network_file: Default::default(),
     };
     let mut app = App::new(session, Theme { no_color: false });
     update(&mut app, Action::Resize(80, 24));

@@ -70,7 +70,8 @@ pub enum Command {
         network: PathBuf,
         sheet: PathBuf,
         /// Target residual pressure for available flow (psi or kPa, the sheet's unit).
-        #[arg(long)]
+        // A negative value reaches the command's own message instead of being taken for a flag.
+        #[arg(long, allow_negative_numbers = true)]
         target: Option<f64>,
         #[arg(long)]
         json: bool,
@@ -79,7 +80,7 @@ pub enum Command {
     Fireflow {
         sheet: PathBuf,
         /// Target residual pressure (psi or kPa, the sheet's unit); default 20 psi / 140 kPa.
-        #[arg(long)]
+        #[arg(long, allow_negative_numbers = true)]
         target: Option<f64>,
         #[arg(long)]
         json: bool,
@@ -97,13 +98,13 @@ pub enum Command {
         #[arg(long, value_enum, default_value_t = FitTarget::Pressures)]
         fit: FitTarget,
         /// Gauge accuracy, one standard deviation (psi or kPa); default 1 psi / 7 kPa.
-        #[arg(long = "gauge-sd")]
+        #[arg(long = "gauge-sd", allow_negative_numbers = true)]
         gauge_sd: Option<f64>,
         /// Prior standard deviation of each group's C around its start value (off when absent).
-        #[arg(long = "prior-sd")]
+        #[arg(long = "prior-sd", allow_negative_numbers = true)]
         prior_sd: Option<f64>,
         /// Share-within thresholds of the fit statistics (psi or kPa), two values.
-        #[arg(long = "within", num_args = 2, value_names = ["TIGHT", "LOOSE"])]
+        #[arg(long = "within", num_args = 2, value_names = ["TIGHT", "LOOSE"], allow_negative_numbers = true)]
         within: Option<Vec<f64>>,
         /// Iteration limit of the optimizer.
         #[arg(long = "max-iterations", default_value_t = 50)]
@@ -235,10 +236,10 @@ pub fn load_network_or_report(
         Ok(loaded) => Ok(Some(loaded)),
         Err(NetworkFileError::Invalid { diagnostics }) => {
             for diagnostic in &diagnostics {
-                eprintln!("{diagnostic}");
+                eprintln!("roughcal: {diagnostic}");
             }
             eprintln!(
-                "{}: {} problem{} found; run `roughcal check` for a summary",
+                "roughcal: {}: {} problem{} found; run `roughcal check` for a summary",
                 path.display(),
                 diagnostics.len(),
                 if diagnostics.len() == 1 { "" } else { "s" }

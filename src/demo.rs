@@ -472,8 +472,15 @@ fn round_to_half(value: f64) -> f64 {
 pub enum DemoError {
     #[error("the generated demo network does not load: {0}")]
     Network(String),
+    // Not `#[from]`: the cause is in the message, and a source as well would print it twice.
     #[error("the generated demo network does not solve: {0}")]
-    Solve(#[from] crate::hydraulics::SolveError),
+    Solve(crate::hydraulics::SolveError),
+}
+
+impl From<crate::hydraulics::SolveError> for DemoError {
+    fn from(error: crate::hydraulics::SolveError) -> Self {
+        Self::Solve(error)
+    }
 }
 
 /// The demo field sheet (CSV text in the template's us header), synthesised on the network of

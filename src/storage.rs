@@ -22,6 +22,8 @@ pub enum WriteError {
     Replace { path: PathBuf, cause: io::Error },
     #[error("{path}: already exists; refusing to overwrite it without --force")]
     Exists { path: PathBuf },
+    #[error("{path}: cannot keep the file's mode or owner, the previous file is kept: {cause}")]
+    Keep { path: PathBuf, cause: io::Error },
 }
 
 /// Writes `bytes` to `path` atomically (see the module documentation).
@@ -41,6 +43,16 @@ pub fn write_atomic_with(
             path: path.to_path_buf(),
             cause,
         })?;
+    // The replacement takes the place of the old file with its mode and owner, never the defaults of
+    // a new file: a sheet kept group-readable or owned by a service account stays so.
+    if let Err(cause) = keep_mode_and_owner(path, &file) {
+        drop(file);
+        let _ = fs::remove_file(&temp_path);
+        return Err(WriteError::Keep {
+            path: path.to_path_buf(),
+            cause,
+        });
+    }
     let written = fill(&mut file)
         .and_then(|()| file.flush())
         .and_then(|()| file.sync_all());
@@ -67,6 +79,71 @@ pub fn write_atomic_with(
     Ok(())
 }
 
+/// Gives `file` (the temporary replacement of `target`) the mode and owner of `target`, if it exists.
+#[cfg(unix)]
+fn keep_mode_and_owner(target: &Path, file: &File) -> io::Result<()> {
+    use std::os::unix::fs::{MetadataExt, fchown};
+    let Ok(meta) = fs::metadata(target) else {
+        return Ok(());
+    };
+    let current = file.metadata()?;
+    if current.uid() != meta.uid() || current.gid() != meta.gid() {
+        fchown(file, Some(meta.uid()), Some(meta.gid()))?;
+    }
+    file.set_permissions(meta.permissions())
+}
+
+#[cfg(not(unix))]
+fn keep_mode_and_owner(target: &Path, file: &File) -> io::Result<()> {
+    match fs::metadata(target) {
+        Ok(meta) => file.set_permissions(meta.permissions()),
+        Err(_) => Ok(()),
+    }
+}
+
+/// What a file on disk was when roughcal last read or wrote it: size, modification time and a hash of
+/// its bytes. A save checks the file still matches before replacing it, so another program's change
+/// is never overwritten unseen.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub struct FileStamp {
+    pub size: u64,
+    pub modified: Option<SystemTime>,
+    /// A 64-bit hash of the bytes (SipHash with fixed keys: it tells versions apart, it does not
+    /// guard against anyone forging one).
+    pub hash: u64,
+}
+
+impl FileStamp {
+    /// The stamp of the file at `path` as it is now.
+    pub fn of(path: &Path) -> io::Result<FileStamp> {
+        let bytes = fs::read(path)?;
+        let modified = fs::metadata(path)?.modified().ok();
+        Ok(FileStamp::of_bytes(&bytes, modified))
+    }
+
+    /// The stamp of `bytes` read with modification time `modified`.
+    pub fn of_bytes(bytes: &[u8], modified: Option<SystemTime>) -> FileStamp {
+        use std::hash::{Hash, Hasher};
+        let mut hasher = std::collections::hash_map::DefaultHasher::new();
+        bytes.hash(&mut hasher);
+        FileStamp {
+            size: bytes.len() as u64,
+            modified,
+            hash: hasher.finish(),
+        }
+    }
+}
+
+/// Whether the file at `path` can be written by this process: it has a write permission bit and it
+/// opens for writing (which changes nothing in it). A file that does not exist counts as writable.
+pub fn is_writable(path: &Path) -> bool {
+    match fs::metadata(path) {
+        Ok(meta) if meta.permissions().readonly() => false,
+        Ok(_) => OpenOptions::new().append(true).open(path).is_ok(),
+        Err(_) => true,
+    }
+}
+
 /// As [`write_atomic`], but refuses to replace an existing file unless `force`.
 pub fn write_new(path: &Path, bytes: &[u8], force: bool) -> Result<(), WriteError> {
     if !force && path.exists() {
@@ -82,6 +159,50 @@ pub fn original_copy_path(path: &Path) -> PathBuf {
     let mut name = path.as_os_str().to_owned();
     name.push(".orig");
     PathBuf::from(name)
+}
+
+/// The side file that holds edits a save could not put into `path` (another program changed it):
+/// `SHEET.csv` -> `SHEET.roughcal-unsaved.csv`, `net.toml` -> `net.roughcal-unsaved.toml`.
+pub fn unsaved_copy_path(path: &Path) -> PathBuf {
+    let stem = path
+        .file_stem()
+        .map_or_else(|| "roughcal".into(), |s| s.to_string_lossy().into_owned());
+    let name = match path.extension() {
+        Some(ext) => format!("{stem}.roughcal-unsaved.{}", ext.to_string_lossy()),
+        None => format!("{stem}.roughcal-unsaved"),
+    };
+    path.with_file_name(name)
+}
+
+/// The first of [`unsaved_copy_path`], `STEM.roughcal-unsaved-2.EXT`, `-3`, ... that names nothing yet,
+/// so a side file kept from an earlier conflict is never replaced by a later one.
+pub fn free_unsaved_copy_path(path: &Path) -> PathBuf {
+    let first = unsaved_copy_path(path);
+    if !first.exists() {
+        return first;
+    }
+    let stem = path
+        .file_stem()
+        .map_or_else(|| "roughcal".into(), |s| s.to_string_lossy().into_owned());
+    (2u32..)
+        .map(|n| {
+            let name = match path.extension() {
+                Some(ext) => format!("{stem}.roughcal-unsaved-{n}.{}", ext.to_string_lossy()),
+                None => format!("{stem}.roughcal-unsaved-{n}"),
+            };
+            path.with_file_name(name)
+        })
+        .find(|candidate| !candidate.exists())
+        .unwrap_or(first)
+}
+
+/// Gives `copy` the permissions of `original` (a side file holds the same readings, so it is no more
+/// readable than the file it stands in for). Best effort: a copy that keeps the default mode is still
+/// better than no copy.
+pub fn copy_mode(original: &Path, copy: &Path) {
+    if let Ok(meta) = fs::metadata(original) {
+        let _ = fs::set_permissions(copy, meta.permissions());
+    }
 }
 
 /// Keeps a copy of `path` as it is now in `path.orig`, unless one is already there (the first original

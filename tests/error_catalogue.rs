@@ -176,6 +176,8 @@ const FINDING_ROWS: &[&str] = &[
     "HT-20,,,J-1,J-2,70,55,500,,,,noon,",
     "HT-21,,,J-1,J-2,20,5,500,,,,,",
     "HT-1,,,J-2,J-3,70,50,500,,,,,",
+    "HT-22,,,J-1,J-2,70,55,5000,,2.5,,,",
+    "HT-23,,,J-1,J-2,70,55,500",
 ];
 
 fn cli_outcomes(s: &Scratch) -> Vec<Outcome> {
@@ -341,6 +343,11 @@ fn apply_outcomes(s: &Scratch, net: &str) -> Vec<Outcome> {
             "set status",
             "status.toml",
             format!("{valid}status = \"great\"\n"),
+        ),
+        (
+            "set not converged",
+            "stopped.toml",
+            format!("{valid}status = \"not converged\"\n"),
         ),
         ("set empty", "empty.csv", String::new()),
         (
@@ -774,4 +781,83 @@ fn import_outcomes(s: &Scratch) -> Vec<Outcome> {
         );
     }
     out
+}
+
+/// The severity each row of "Findings of single rows" gives in its example (`: error:` or
+/// `: warning:`), by phrase.
+fn catalogued_severities() -> Vec<(String, &'static str)> {
+    let doc = std::fs::read_to_string(Path::new(env!("CARGO_MANIFEST_DIR")).join("docs/errors.md"))
+        .unwrap();
+    let mut out = Vec::new();
+    let mut in_rows = false;
+    for line in doc.lines() {
+        if line.starts_with('#') {
+            in_rows = line.contains("Findings of single rows");
+        }
+        let (true, Some(rest)) = (in_rows, line.strip_prefix("| `")) else {
+            continue;
+        };
+        let phrase = rest.split("` |").next().unwrap().to_string();
+        let example = rest.split("` |").nth(1).unwrap_or("");
+        let severity = if example.contains(": error: ") {
+            "error"
+        } else if example.contains(": warning: ") {
+            "warning"
+        } else {
+            continue;
+        };
+        out.push((phrase, severity));
+    }
+    out
+}
+
+#[test]
+fn every_row_finding_has_the_severity_the_catalogue_gives_it() {
+    let severities = catalogued_severities();
+    assert!(severities.len() > 20, "only {} rows read", severities.len());
+    let scratch = Scratch {
+        dir: tempfile::tempdir().unwrap(),
+    };
+    let net = scratch.file("base.toml", BASE.as_bytes());
+    let mut findings = format!("{HEADER}\n");
+    for row in FINDING_ROWS {
+        findings.push_str(row);
+        findings.push('\n');
+    }
+    let sheet = scratch.file("findings.csv", findings.as_bytes());
+    let out = Command::new(env!("CARGO_BIN_EXE_roughcal"))
+        .args([
+            "tests",
+            net.to_str().unwrap(),
+            sheet.to_str().unwrap(),
+            "--json",
+        ])
+        .output()
+        .unwrap();
+    let json: serde_json::Value = serde_json::from_slice(&out.stdout).expect("stdout is JSON");
+    let given: Vec<(String, String)> = json["tests"]
+        .as_array()
+        .unwrap()
+        .iter()
+        .flat_map(|t| t["findings"].as_array().unwrap().clone())
+        .map(|f| {
+            (
+                f["reason"].as_str().unwrap().to_string(),
+                f["severity"].as_str().unwrap().to_string(),
+            )
+        })
+        .collect();
+    for (phrase, severity) in severities {
+        let matching: Vec<&(String, String)> = given
+            .iter()
+            .filter(|(reason, _)| reason.contains(&phrase))
+            .collect();
+        assert!(!matching.is_empty(), "no finding says `{phrase}`");
+        for (reason, found) in matching {
+            assert_eq!(
+                found, severity,
+                "docs/errors.md says `{phrase}` is a {severity}, the program gives {found}: {reason}"
+            );
+        }
+    }
 }

@@ -174,6 +174,8 @@ impl Fixture {
             tests: &self.tests,
             excluded: &self.excluded,
             result: &self.result,
+            warnings: &[],
+            out_of_date: None,
         }
     }
 
@@ -664,4 +666,71 @@ fn calibrate_cli_writes_refuses_and_fails_when_not_converged() {
 
     let bad_flag = calibrate(&["--gauge-sd=0"]);
     assert_eq!(bad_flag.status.code(), Some(1));
+}
+
+#[test]
+fn an_unconverged_calibrate_writes_no_coefficient_set_and_apply_refuses_one() {
+    let root = std::path::Path::new(env!("CARGO_MANIFEST_DIR"));
+    let network = root.join("demo-network/district.toml");
+    let sheet = root.join("field-sheets/demo.csv");
+    let dir = tempfile::tempdir().unwrap();
+    let out = dir.path().join("run");
+    let out_arg = out.to_str().unwrap();
+    let calibrate = |extra: &[&str]| {
+        let mut all: Vec<&std::ffi::OsStr> =
+            vec!["calibrate".as_ref(), network.as_os_str(), sheet.as_os_str()];
+        all.extend(extra.iter().map(std::ffi::OsStr::new));
+        roughcal(&all)
+    };
+    // A converged run first, so that a forced unconverged run over it must clear the old set away.
+    assert!(calibrate(&["--out", out_arg]).status.success());
+    let stopped = calibrate(&["--out", out_arg, "--force", "--max-iterations", "1"]);
+    assert_eq!(stopped.status.code(), Some(1));
+    for name in [
+        COEFFICIENTS_TOML,
+        COEFFICIENTS_CSV,
+        CALIBRATED_NETWORK,
+        "pipes.csv",
+    ] {
+        assert!(
+            !out.join(name).exists(),
+            "{name} written by an unconverged fit"
+        );
+    }
+    let report = std::fs::read_to_string(out.join(REPORT_MD)).unwrap();
+    assert!(
+        report.lines().next().unwrap().contains("NOT CONVERGED"),
+        "{report}"
+    );
+    let svg = std::fs::read_to_string(out.join(FIT_SVG)).unwrap();
+    assert!(svg.contains("NOT CONVERGED"));
+    assert!(!svg.contains(">after calibration<"));
+
+    // A set built from an unconverged fit says so in its status, and `apply` refuses it.
+    let fx = Fixture::new(1);
+    assert!(!fx.result.converged);
+    let outputs = fx.outputs();
+    let set = outputs.get(COEFFICIENTS_TOML).unwrap();
+    assert!(set.contains("status = \"not converged\""), "{set}");
+    let set_path = dir.path().join("stopped.toml");
+    std::fs::write(&set_path, set).unwrap();
+    let network_path = dir.path().join("grid.toml");
+    std::fs::write(&network_path, &fx.text).unwrap();
+    let applied = dir.path().join("applied.toml");
+    let refused = roughcal(&[
+        "apply".as_ref(),
+        network_path.as_os_str(),
+        set_path.as_os_str(),
+        "--out".as_ref(),
+        applied.as_os_str(),
+    ]);
+    assert_eq!(refused.status.code(), Some(1));
+    let message = String::from_utf8_lossy(&refused.stderr);
+    assert!(message.contains("is marked not converged"), "{message}");
+    assert!(!applied.exists());
+    // And the one writer withholds it whatever asks for it.
+    let folder = dir.path().join("direct");
+    let written = write_outputs(&folder, &outputs, false).unwrap();
+    assert_eq!(written.len(), 2);
+    assert!(!folder.join(COEFFICIENTS_TOML).exists());
 }

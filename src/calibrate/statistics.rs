@@ -1,5 +1,6 @@
 //! Fit statistics, parameter uncertainty and the per-group verdicts.
 
+use crate::network::units::as_typed;
 use nalgebra::DMatrix;
 
 use super::evaluate::TestEvaluation;
@@ -135,8 +136,8 @@ impl Summary {
             let errors_after = test_errors(test, after, options.fit, to_pressure);
             comparisons.push(TestComparison {
                 id: test.id.clone(),
-                measured_static: test.static_head_m * to_pressure,
-                measured_residual: test.residual_head_m * to_pressure,
+                measured_static: as_typed(test.static_head_m * to_pressure),
+                measured_residual: as_typed(test.residual_head_m * to_pressure),
                 modelled_static_before: before.static_head_m * to_pressure,
                 modelled_residual_before: before.residual_head_m * to_pressure,
                 modelled_static_after: after.static_head_m * to_pressure,

@@ -26,6 +26,7 @@ pub fn run(
         return Ok(ExitCode::from(1));
     };
     let set = load_coefficients(coefficients)?;
+    set.check_converged()?;
     set.check_against(&loaded.network)?;
     let updated = apply_group_c(&text, &set.c_by_group()).with_context(|| {
         format!(

@@ -8,7 +8,9 @@ use std::sync::atomic::AtomicBool;
 
 use anyhow::{Context as _, bail};
 use roughcal::calibrate::{self as core, CalibrationOptions};
-use roughcal::fieldtest::{calibration_tests, load_sheet, screen_sheet};
+use roughcal::fieldtest::{
+    StaticHeads, calibration_input, load_sheet, screen_sheet, with_static_findings,
+};
 use roughcal::network::Network;
 use roughcal::network::file::parse_network;
 use roughcal::report::{
@@ -50,12 +52,18 @@ pub fn run(args: Args) -> anyhow::Result<ExitCode> {
     let sheet = match load_sheet(&args.sheet) {
         Ok(sheet) => sheet,
         Err(error) => {
-            eprintln!("{error}");
+            eprintln!("roughcal: {error}");
             return Ok(ExitCode::from(1));
         }
     };
-    let reading = screen_sheet(&sheet, Some(&network));
-    let (tests, excluded) = calibration_tests(&network, &reading);
+    // Every warning `tests` gives (the modelled-static one too) goes with its test into the outputs.
+    let reading = with_static_findings(
+        &network,
+        screen_sheet(&sheet, Some(&network)),
+        &StaticHeads::solve(&network),
+    );
+    let input = calibration_input(&network, &reading);
+    let (tests, excluded) = (input.tests, input.excluded);
 
     let mut progress = |report: &core::IterationReport| {
         eprintln!(
@@ -79,6 +87,8 @@ pub fn run(args: Args) -> anyhow::Result<ExitCode> {
         tests: &tests,
         excluded: &excluded,
         result: &result,
+        warnings: &input.warnings,
+        out_of_date: None,
     };
     if args.json {
         println!("{}", serde_json::to_string_pretty(&json_summary(&run))?);

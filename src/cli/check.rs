@@ -19,10 +19,10 @@ pub fn run(network: &Path) -> anyhow::Result<ExitCode> {
         }
         Err(NetworkFileError::Invalid { diagnostics }) => {
             for diagnostic in &diagnostics {
-                eprintln!("{diagnostic}");
+                eprintln!("roughcal: {diagnostic}");
             }
             eprintln!(
-                "{}: {} found",
+                "roughcal: {}: {} found",
                 network.display(),
                 counted(diagnostics.len(), "problem")
             );

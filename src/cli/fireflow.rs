@@ -19,7 +19,7 @@ pub fn run(sheet_path: &Path, target: Option<f64>, json: bool) -> anyhow::Result
     let sheet = match load_sheet(sheet_path) {
         Ok(sheet) => sheet,
         Err(error) => {
-            eprintln!("{error}");
+            eprintln!("roughcal: {error}");
             return Ok(ExitCode::from(1));
         }
     };

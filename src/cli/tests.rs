@@ -28,7 +28,7 @@ pub fn run(
     let sheet = match load_sheet(sheet_path) {
         Ok(sheet) => sheet,
         Err(error) => {
-            eprintln!("{error}");
+            eprintln!("roughcal: {error}");
             return Ok(ExitCode::from(1));
         }
     };
@@ -46,6 +46,8 @@ pub fn run(
             .map(|c| {
                 json!({
                     "test": c.test_id,
+                    "line": c.line,
+                    "read_as_test": c.read,
                     "residual_node": c.residual_node,
                     "measured_static": c.measured_static,
                     "measured_residual": c.measured_residual,
@@ -58,7 +60,7 @@ pub fn run(
                     "total_flow": c.total_flow,
                     "field_available_flow": c.field_available.value(),
                     "model_available_flow": c.model_available,
-                    "usable": !c.has_error() && !c.gauge_isolated_in_model,
+                    "usable": c.read && !c.has_error() && !c.gauge_isolated_in_model,
                     "negative_pressure_in_model": c.negative_pressure_somewhere,
                     "gauge_isolated_in_model": c.gauge_isolated_in_model,
                     "findings": c.findings.iter().map(finding_json).collect::<Vec<_>>(),
@@ -141,15 +143,19 @@ fn table(rows: &[ModelComparison], target: f64, pressure: &str, flow: &str) -> S
             other => other.value(),
         };
         table.row(vec![
-            c.test_id.clone(),
+            if c.test_id.is_empty() {
+                format!("(line {})", c.line)
+            } else {
+                c.test_id.clone()
+            },
             c.residual_node.clone(),
-            format!("{:.1}", c.measured_static),
+            number(c.measured_static, 1),
             number(c.modelled_static, 1),
-            format!("{:.1}", c.measured_residual),
+            number(c.measured_residual, 1),
             number(c.modelled_residual, 1),
             number(c.static_error(), 1),
             number(c.residual_error(), 1),
-            format!("{:.1}", c.measured_drop()),
+            number(c.measured_drop(), 1),
             number(c.modelled_drop(), 1),
             number(field_available, 0),
             number(c.model_available, 0),

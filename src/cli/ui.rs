@@ -47,21 +47,44 @@ pub fn run_demo() -> anyhow::Result<ExitCode> {
         ),
         error: false,
     });
-    run(app)
+    let outcome = run(app);
+    // The scratch copy goes with the session, unless the user made something in it.
+    if let Some(message) = tui::clean_up_demo(&folder).message() {
+        eprintln!("roughcal: {message}");
+    }
+    outcome
 }
 
 pub fn run_open(network: &Path, sheet: &Path) -> anyhow::Result<ExitCode> {
+    // The files first: a missing or broken file is the more useful message, with or without a terminal.
+    let session = tui::open_files(network, sheet)?;
     if !has_terminal() {
         eprintln!("{NO_TERMINAL}");
         return Ok(ExitCode::from(1));
     }
-    let session = tui::open_files(network, sheet)?;
+    let read_only: Vec<String> = [
+        (session.sheet_file.read_only, sheet),
+        (session.network_file.read_only, network),
+    ]
+    .iter()
+    .filter(|(read_only, _)| *read_only)
+    .map(|(_, path)| path.display().to_string())
+    .collect();
     let mut app = App::new(session, theme());
+    if !read_only.is_empty() {
+        app.message = Some(tui::app::StatusMessage {
+            text: format!(
+                "read-only: {} cannot be written; look, fit and export, edits are refused",
+                read_only.join(" and ")
+            ),
+            error: true,
+        });
+    }
     let leftovers: Vec<_> = [sheet, network]
         .iter()
         .flat_map(|path| roughcal::storage::remove_stale_temporaries(path))
         .collect();
-    if !leftovers.is_empty() {
+    if !leftovers.is_empty() && read_only.is_empty() {
         app.message = Some(tui::app::StatusMessage {
             text: format!(
                 "cleared {} leftover file(s) of an interrupted save; re-check your last edit",

@@ -13,7 +13,10 @@ pub mod screening;
 pub mod sheet;
 
 pub use fireflow::{AvailableFlow, available_flow, default_target};
-pub use model_check::{ExcludedTest, ModelComparison, calibration_tests, compare_with_model};
+pub use model_check::{
+    CalibrationInput, ExcludedTest, ModelComparison, StaticHeads, calibration_input,
+    calibration_tests, compare_with_model, static_findings, with_static_findings,
+};
 pub use pitot::{OutletShape, pitot_flow, pitot_flow_gpm, pitot_flow_lps};
 pub use reading::{FlowTest, FlowingHydrant, SheetReading, read_tests, screen_sheet};
 pub use screening::{Finding, Rule, Severity, check_modelled_static, screen};

@@ -5,6 +5,8 @@
 //! One [`GradientSolver`] (one symbolic factorization) serves every test; each residual solve starts
 //! from its static solution.
 
+use std::collections::HashMap;
+
 use crate::calibrate::CalibrationTest;
 use crate::hydraulics::{GradientSolver, OperatingState, Solution, SolveError};
 use crate::network::Network;
@@ -13,17 +15,25 @@ use super::fireflow::AvailableFlow;
 use super::reading::{FlowTest, SheetReading};
 use super::screening::{Finding, Severity, check_modelled_static};
 
-/// One test next to the model (pressures in the sheet's unit, flows in the sheet's flow unit).
+/// One row of the sheet next to the model (pressures in the sheet's unit, flows in the sheet's flow
+/// unit). A row that does not read as a test (a bad number, a blank id, ...) is listed too, with its
+/// findings and no values where its cells give none.
 #[derive(Debug, Clone, PartialEq)]
 pub struct ModelComparison {
+    /// The test id as written (may be empty).
     pub test_id: String,
     pub row: usize,
+    /// 1-based line of the sheet.
+    pub line: usize,
+    /// The residual hydrant as written (may be empty).
     pub residual_node: String,
-    pub measured_static: f64,
-    pub measured_residual: f64,
+    /// Whether the row read as a test (its values are then all present).
+    pub read: bool,
+    pub measured_static: Option<f64>,
+    pub measured_residual: Option<f64>,
     pub modelled_static: Option<f64>,
     pub modelled_residual: Option<f64>,
-    pub total_flow: f64,
+    pub total_flow: Option<f64>,
     /// NFPA 291 extrapolation of the field readings to the target residual.
     pub field_available: AvailableFlow,
     /// Largest total hydrant flow (split as in the test) for which the modelled residual pressure stays
@@ -41,16 +51,16 @@ pub struct ModelComparison {
 impl ModelComparison {
     /// Measured minus modelled static pressure.
     pub fn static_error(&self) -> Option<f64> {
-        self.modelled_static.map(|m| self.measured_static - m)
+        Some(self.measured_static? - self.modelled_static?)
     }
 
     /// Measured minus modelled residual pressure.
     pub fn residual_error(&self) -> Option<f64> {
-        self.modelled_residual.map(|m| self.measured_residual - m)
+        Some(self.measured_residual? - self.modelled_residual?)
     }
 
-    pub fn measured_drop(&self) -> f64 {
-        self.measured_static - self.measured_residual
+    pub fn measured_drop(&self) -> Option<f64> {
+        Some(self.measured_static? - self.measured_residual?)
     }
 
     pub fn modelled_drop(&self) -> Option<f64> {
@@ -88,9 +98,49 @@ fn resolve(net: &Network, test: &FlowTest) -> Option<ResolvedTest> {
     })
 }
 
-/// Compares every test of `reading` with the model. `target` is the target residual in the sheet's
-/// pressure unit. Tests with a screening error are listed with their findings and no model values.
+/// Compares every row of `reading` with the model, in sheet order. `target` is the target residual in
+/// the sheet's pressure unit. Rows with a screening error are listed with their findings and no model
+/// values; rows that do not read as a test at all are listed with their findings alone.
 pub fn compare_with_model(
+    net: &Network,
+    reading: &SheetReading,
+    target: f64,
+) -> Result<Vec<ModelComparison>, SolveError> {
+    let mut out = Vec::new();
+    let tested = compare_tests(net, reading, target)?;
+    let mut tested = tested.into_iter().peekable();
+    for row in reading.rows() {
+        if let Some(comparison) = tested.next_if(|c| c.row == row) {
+            out.push(comparison);
+            continue;
+        }
+        let findings: Vec<Finding> = reading.findings_for_row(row).cloned().collect();
+        let Some(first) = findings.first() else {
+            continue;
+        };
+        out.push(ModelComparison {
+            test_id: first.test_id.clone(),
+            row,
+            line: first.line,
+            residual_node: String::new(),
+            read: false,
+            measured_static: None,
+            measured_residual: None,
+            modelled_static: None,
+            modelled_residual: None,
+            total_flow: None,
+            field_available: AvailableFlow::Undefined,
+            model_available: None,
+            findings,
+            negative_pressure_somewhere: false,
+            gauge_isolated_in_model: false,
+        });
+    }
+    Ok(out)
+}
+
+/// [`compare_with_model`] for the rows that read as tests.
+fn compare_tests(
     net: &Network,
     reading: &SheetReading,
     target: f64,
@@ -105,12 +155,14 @@ pub fn compare_with_model(
         let mut comparison = ModelComparison {
             test_id: test.test_id.clone(),
             row: test.row,
+            line: test.line,
             residual_node: test.residual_node.clone(),
-            measured_static: test.static_pressure(),
-            measured_residual: test.residual_pressure(),
+            read: true,
+            measured_static: Some(test.static_pressure()),
+            measured_residual: Some(test.residual_pressure()),
             modelled_static: None,
             modelled_residual: None,
-            total_flow: test.total_flow(),
+            total_flow: Some(test.total_flow()),
             field_available: test.available_flow(target),
             model_available: None,
             findings: Vec::new(),
@@ -230,13 +282,111 @@ pub struct ExcludedTest {
     pub reason: String,
 }
 
+/// The modelled static pressure head at every junction, for the network as written and for each of its
+/// conditions: one solve per condition with no hydrant open, enough to run the static-pressure check
+/// ([`check_modelled_static`]) on any number of tests without solving per test.
+#[derive(Debug, Clone, Default, PartialEq)]
+pub struct StaticHeads {
+    /// Index 0: the network as written; `i + 1`: condition `i`. `None` where the solve failed (the
+    /// check is then left to whoever solves that state and reports why it fails).
+    by_state: Vec<Option<Vec<Option<f64>>>>,
+}
+
+impl StaticHeads {
+    /// Solves `net` with no hydrant open under every condition.
+    pub fn solve(net: &Network) -> StaticHeads {
+        let Ok(solver) = GradientSolver::new(net) else {
+            return StaticHeads::default();
+        };
+        let c = net.c_factors();
+        let states = std::iter::once(None).chain((0..net.conditions.len()).map(Some));
+        let by_state = states
+            .map(|condition| {
+                let state = OperatingState::for_condition_index(net, condition);
+                let solution = solver.solve(net, &state, &c, None).ok()?;
+                Some(
+                    (0..net.junctions.len())
+                        .map(|j| solution.pressure_head_m(net, j))
+                        .collect(),
+                )
+            })
+            .collect();
+        StaticHeads { by_state }
+    }
+
+    /// Modelled static pressure head at junction `junction` under `condition` (`None`: as written).
+    pub fn head_m(&self, condition: Option<usize>, junction: usize) -> Option<f64> {
+        let state = condition.map_or(0, |c| c + 1);
+        (*self.by_state.get(state)?.as_ref()?.get(junction)?).filter(|h| h.is_finite())
+    }
+}
+
+/// The static-pressure warnings ([`check_modelled_static`]) of every test of `reading` that resolves
+/// against `net` and has no error finding.
+pub fn static_findings(net: &Network, reading: &SheetReading, heads: &StaticHeads) -> Vec<Finding> {
+    // Hashed once: the workbench runs this on every committed edit of sheets of thousands of rows.
+    let junctions: HashMap<&str, usize> = net
+        .junctions
+        .iter()
+        .enumerate()
+        .map(|(i, j)| (j.id.as_str(), i))
+        .collect();
+    reading
+        .tests
+        .iter()
+        .filter(|t| !reading.row_has_error(t.row))
+        .filter_map(|test| {
+            let junction = *junctions.get(test.residual_node.as_str())?;
+            let condition = match &test.condition {
+                Some(name) => Some(net.conditions.iter().position(|c| &c.name == name)?),
+                None => None,
+            };
+            let head = heads.head_m(condition, junction)?;
+            check_modelled_static(test, head)
+        })
+        .collect()
+}
+
+/// `reading` with the static-pressure warnings of [`static_findings`] added (in row order): every
+/// screening warning `tests` gives, for `calibrate` and the workbench.
+pub fn with_static_findings(
+    net: &Network,
+    mut reading: SheetReading,
+    heads: &StaticHeads,
+) -> SheetReading {
+    let found = static_findings(net, &reading, heads);
+    if !found.is_empty() {
+        reading.findings.extend(found);
+        reading.findings.sort_by_key(|f| f.row);
+    }
+    reading
+}
+
+/// What a calibration is given from a screened sheet.
+#[derive(Debug, Clone, Default, PartialEq)]
+pub struct CalibrationInput {
+    /// The usable tests, in sheet order.
+    pub tests: Vec<CalibrationTest>,
+    /// The warnings of each usable test (parallel to `tests`): a warning keeps a test in the fit.
+    pub warnings: Vec<Vec<Finding>>,
+    /// The tests left out, with their reasons.
+    pub excluded: Vec<ExcludedTest>,
+}
+
 /// The usable tests of a screened sheet as calibration input, and the ones left out with their reasons
 /// (every error finding of the row). Warnings keep a test in.
 pub fn calibration_tests(
     net: &Network,
     reading: &SheetReading,
 ) -> (Vec<CalibrationTest>, Vec<ExcludedTest>) {
+    let input = calibration_input(net, reading);
+    (input.tests, input.excluded)
+}
+
+/// As [`calibration_tests`], with the warnings of every usable test.
+pub fn calibration_input(net: &Network, reading: &SheetReading) -> CalibrationInput {
     let mut usable = Vec::new();
+    let mut warnings = Vec::new();
     let mut excluded = Vec::new();
     for row in reading.rows() {
         let errors: Vec<&Finding> = reading
@@ -267,14 +417,17 @@ pub fn calibration_tests(
         }
         let Some(test) = test else { continue };
         match resolve(net, test) {
-            Some(resolved) => usable.push(CalibrationTest {
-                id: test.test_id.clone(),
-                residual_junction: resolved.residual_junction,
-                condition: resolved.condition,
-                hydrant_flows_m3s: resolved.hydrants,
-                static_head_m: test.static_head_m,
-                residual_head_m: test.residual_head_m,
-            }),
+            Some(resolved) => {
+                usable.push(CalibrationTest {
+                    id: test.test_id.clone(),
+                    residual_junction: resolved.residual_junction,
+                    condition: resolved.condition,
+                    hydrant_flows_m3s: resolved.hydrants,
+                    static_head_m: test.static_head_m,
+                    residual_head_m: test.residual_head_m,
+                });
+                warnings.push(reading.findings_for_row(row).cloned().collect());
+            }
             None => excluded.push(ExcludedTest {
                 test_id,
                 row,
@@ -282,5 +435,9 @@ pub fn calibration_tests(
             }),
         }
     }
-    (usable, excluded)
+    CalibrationInput {
+        tests: usable,
+        warnings,
+        excluded,
+    }
 }

@@ -7,10 +7,13 @@
 // Sheets are edited by hand: no indexing that could panic on what they hold.
 #![cfg_attr(not(test), deny(clippy::indexing_slicing))]
 
+use std::collections::HashMap;
+
 use super::fireflow::{AvailableFlow, available_flow};
 use super::pitot::{DEFAULT_OUTLET_COEFFICIENT, pitot_flow};
 use super::screening::{Finding, Rule, Severity, number, screen};
 use super::sheet::{FieldSheet, SheetColumn};
+use crate::network::units::as_typed;
 use crate::network::{Network, UnitSystem};
 
 /// The largest number a cell may hold (in the sheet's units): far above any pressure, flow, outlet or
@@ -39,17 +42,19 @@ pub struct FlowingHydrant {
 impl FlowingHydrant {
     /// Flow in the sheet's flow unit (gpm or L/s).
     pub fn flow(&self, units: UnitSystem) -> f64 {
-        units.flow_from_m3s(self.flow_m3s)
+        as_typed(units.flow_from_m3s(self.flow_m3s))
     }
 
     /// Pitot pressure in the sheet's pressure unit (psi or kPa).
     pub fn pitot_pressure(&self, units: UnitSystem) -> Option<f64> {
-        self.pitot_head_m.map(|h| units.pressure_from_head_m(h))
+        self.pitot_head_m
+            .map(|h| as_typed(units.pressure_from_head_m(h)))
     }
 
     /// Outlet diameter in the sheet's diameter unit (in or mm).
     pub fn outlet(&self, units: UnitSystem) -> Option<f64> {
-        self.outlet_diameter_m.map(|d| units.diameter_from_m(d))
+        self.outlet_diameter_m
+            .map(|d| as_typed(units.diameter_from_m(d)))
     }
 }
 
@@ -79,14 +84,14 @@ pub struct FlowTest {
 }
 
 impl FlowTest {
-    /// Static pressure in the sheet's unit (psi or kPa).
+    /// Static pressure in the sheet's unit (psi or kPa), as typed.
     pub fn static_pressure(&self) -> f64 {
-        self.units.pressure_from_head_m(self.static_head_m)
+        as_typed(self.units.pressure_from_head_m(self.static_head_m))
     }
 
-    /// Residual pressure in the sheet's unit (psi or kPa).
+    /// Residual pressure in the sheet's unit (psi or kPa), as typed.
     pub fn residual_pressure(&self) -> f64 {
-        self.units.pressure_from_head_m(self.residual_head_m)
+        as_typed(self.units.pressure_from_head_m(self.residual_head_m))
     }
 
     /// Total flow of all flowing hydrants.
@@ -96,7 +101,7 @@ impl FlowTest {
 
     /// Total flow in the sheet's unit (gpm or L/s).
     pub fn total_flow(&self) -> f64 {
-        self.units.flow_from_m3s(self.total_flow_m3s())
+        as_typed(self.units.flow_from_m3s(self.total_flow_m3s()))
     }
 
     /// Flow available at `target` residual (sheet pressure unit), in the sheet's flow unit (NFPA 291
@@ -171,10 +176,32 @@ pub fn screen_sheet(sheet: &FieldSheet, network: Option<&Network>) -> SheetReadi
 }
 
 /// Reads every row of the sheet into a test or findings. Rows whose cells are all blank are skipped.
+/// A test id used by an earlier row is found whatever else is wrong with either row.
 pub fn read_tests(sheet: &FieldSheet) -> SheetReading {
     let mut tests = Vec::new();
     let mut findings = Vec::new();
+    let mut first_line_of_id: HashMap<String, usize> = HashMap::new();
     for row in 0..sheet.row_count() {
+        let test_id = sheet.cell(row, SheetColumn::Test).unwrap_or("").trim();
+        let line = sheet.line(row).unwrap_or_default();
+        if !test_id.is_empty() {
+            match first_line_of_id.get(test_id) {
+                Some(&first_line) => findings.push(Finding::new(
+                    Rule::DuplicateTestId,
+                    test_id,
+                    row,
+                    line,
+                    sheet.column_name(SheetColumn::Test),
+                    format!(
+                        "test id {test_id} is also used on line {first_line}; give every test its \
+                         own id"
+                    ),
+                )),
+                None => {
+                    first_line_of_id.insert(test_id.to_string(), line);
+                }
+            }
+        }
         let mut reader = RowReader {
             sheet,
             row,

@@ -2,7 +2,7 @@
 //! its row and line, the column and a reason in plain words. An error leaves the test out of
 //! calibration; a warning keeps it, flagged.
 
-use std::collections::{HashMap, HashSet};
+use std::collections::HashSet;
 
 use super::pitot::pitot_pressure_for_flow;
 use super::reading::FlowTest;
@@ -60,7 +60,11 @@ pub enum Rule {
     SmallDrop,
     /// Modelled static misses the measured one by more than 10 psi / 70 kPa (warning).
     StaticMismatch,
-    /// A flow whose velocity pressure at the outlet would exceed the static pressure (warning).
+    /// A pitot reading above the static pressure (error: no outlet shows more than the main held, so
+    /// the flow computed from it is wrong).
+    PitotAboveStatic,
+    /// A flow whose velocity pressure at the outlet would exceed the static pressure (warning: the
+    /// flow may be metered right and the outlet size wrong).
     ImplausibleFlow,
     /// A test id used by an earlier row (warning).
     DuplicateTestId,
@@ -102,6 +106,7 @@ impl Rule {
             Self::UnknownCondition => "unknown-condition",
             Self::SmallDrop => "small-drop",
             Self::StaticMismatch => "static-mismatch",
+            Self::PitotAboveStatic => "pitot-above-static",
             Self::ImplausibleFlow => "implausible-flow",
             Self::DuplicateTestId => "duplicate-test-id",
         }
@@ -191,25 +196,10 @@ pub(crate) fn number(value: f64) -> String {
 /// [`check_modelled_static`].
 pub fn screen(tests: &[FlowTest], network: Option<&Network>) -> Vec<Finding> {
     let mut findings = Vec::new();
-    let mut first_line_of_id: HashMap<&str, usize> = HashMap::new();
     let lookup = network.map(NodeLookup::new);
     for test in tests {
         screen_pressures(test, &mut findings);
         screen_hydrants(test, &mut findings);
-        match first_line_of_id.get(test.test_id.as_str()) {
-            Some(&first_line) => findings.push(Finding::for_test(
-                test,
-                Rule::DuplicateTestId,
-                SheetColumn::Test,
-                format!(
-                    "test id {} is also used on line {first_line}; give every test its own id",
-                    test.test_id
-                ),
-            )),
-            None => {
-                first_line_of_id.insert(&test.test_id, test.line);
-            }
-        }
         if let (Some(network), Some(lookup)) = (network, &lookup) {
             screen_against_network(test, network, lookup, &mut findings);
         }
@@ -283,7 +273,7 @@ fn screen_hydrants(test: &FlowTest, findings: &mut Vec<Finding>) {
             if pitot > static_p {
                 findings.push(Finding::for_test(
                     test,
-                    Rule::ImplausibleFlow,
+                    Rule::PitotAboveStatic,
                     SheetColumn::Pitot,
                     format!(
                         "pitot reading {} {unit} at hydrant {} is above the static {} {unit}: an \

@@ -720,6 +720,9 @@ pub fn save_sheet(sheet: &FieldSheet, path: &Path) -> Result<(), SheetError> {
             WriteError::Replace { cause: source, .. } => {
                 format!("cannot replace the file, the previous file is kept: {source}")
             }
+            WriteError::Keep { cause, .. } => {
+                format!("cannot keep the file's mode or owner, the previous file is kept: {cause}")
+            }
             WriteError::Exists { .. } => "the file already exists".to_string(),
         };
         SheetError {

@@ -466,6 +466,7 @@ mod tests {
             group: None,
             closed: false,
             check_valve: false,
+            minor_loss: 0.0,
         }
     }
 
@@ -478,6 +479,8 @@ mod tests {
             pipes,
             pumps: Vec::new(),
             groups: Vec::new(),
+            valves: Vec::new(),
+            hazen_williams_constant: None,
             conditions: Vec::new(),
             lonlat_origin: None,
         }

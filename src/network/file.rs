@@ -706,6 +706,8 @@ impl<'t> Reader<'t> {
             pipes: Vec::new(),
             pumps: Vec::new(),
             groups: Vec::new(),
+            valves: Vec::new(),
+            hazen_williams_constant: None,
             conditions: Vec::new(),
             lonlat_origin: self.lonlat_origin(&root_rec),
         };
@@ -803,6 +805,7 @@ impl<'t> Reader<'t> {
                 group,
                 closed,
                 check_valve,
+                minor_loss: 0.0,
             });
         }
 
@@ -1223,6 +1226,8 @@ impl<'t> Reader<'t> {
             heads,
             closed_pipes,
             pumps_off,
+            valve_settings: Vec::new(),
+            closed_valves: Vec::new(),
         }
     }
 

@@ -20,6 +20,11 @@ pub struct Network {
     pub pumps: Vec<Pump>,
     pub groups: Vec<RoughnessGroup>,
     pub conditions: Vec<Condition>,
+    /// Control valves (pressure reducing, pressure sustaining, flow control, throttle).
+    pub valves: Vec<Valve>,
+    /// The Hazen-Williams constant K of the file, in the formula of its unit system (see
+    /// [`crate::hydraulics::headloss`]); `None` for the default of the unit system (10.44 us, 10.67 si).
+    pub hazen_williams_constant: Option<f64>,
     /// Where plan coordinates came from WGS84 longitude and latitude (a network imported with
     /// `coordinates = "lonlat"`): the origin of the local projection that turned them into x, y (see
     /// [`super::lonlat::LocalProjection`]), so exports can give lon/lat back. `None`: x, y are the file's
@@ -54,6 +59,16 @@ pub enum NodeRef {
     FixedHead(usize),
 }
 
+impl NodeRef {
+    /// The junction index, if this is a junction.
+    pub fn junction(self) -> Option<usize> {
+        match self {
+            NodeRef::Junction(i) => Some(i),
+            NodeRef::FixedHead(_) => None,
+        }
+    }
+}
+
 /// A pipe with Hazen-Williams roughness.
 #[derive(Debug, Clone, PartialEq)]
 pub struct Pipe {
@@ -69,6 +84,62 @@ pub struct Pipe {
     pub closed: bool,
     /// Flow allowed only from `from` to `to`.
     pub check_valve: bool,
+    /// Minor-loss coefficient K of the fittings along the pipe: an extra head loss K v^2 / 2g (0 for none).
+    pub minor_loss: f64,
+}
+
+/// What a control valve regulates.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum ValveKind {
+    /// Pressure reducing: holds the pressure at its `to` end at the setting while the upstream head allows.
+    PressureReducing,
+    /// Pressure sustaining: holds the pressure at its `from` end at the setting.
+    PressureSustaining,
+    /// Flow control: lets at most the setting through, from `from` to `to`.
+    FlowControl,
+    /// Throttle: a fixed loss coefficient, the setting.
+    Throttle,
+}
+
+impl ValveKind {
+    /// The word of the network file (`kind = "prv"`).
+    pub fn keyword(self) -> &'static str {
+        match self {
+            Self::PressureReducing => "prv",
+            Self::PressureSustaining => "psv",
+            Self::FlowControl => "fcv",
+            Self::Throttle => "tcv",
+        }
+    }
+
+    /// The kind for a network-file word.
+    pub fn from_keyword(word: &str) -> Option<Self> {
+        [
+            Self::PressureReducing,
+            Self::PressureSustaining,
+            Self::FlowControl,
+            Self::Throttle,
+        ]
+        .into_iter()
+        .find(|k| k.keyword() == word)
+    }
+}
+
+/// A control valve between two nodes. Its head loss is set by its kind and setting, not by a length.
+#[derive(Debug, Clone, PartialEq)]
+pub struct Valve {
+    pub id: String,
+    pub from: NodeRef,
+    pub to: NodeRef,
+    pub diameter_m: f64,
+    pub kind: ValveKind,
+    /// In internal units: a pressure head (m of water above the controlled end's elevation) for
+    /// [`ValveKind::PressureReducing`] and [`ValveKind::PressureSustaining`], a flow (m^3/s) for
+    /// [`ValveKind::FlowControl`], the loss coefficient K for [`ValveKind::Throttle`].
+    pub setting: f64,
+    /// Loss coefficient K of the valve when fully open (0 for none).
+    pub minor_loss: f64,
+    pub closed: bool,
 }
 
 /// A pump adding head from `from` to `to` along a fitted quadratic curve.
@@ -145,6 +216,10 @@ pub struct Condition {
     pub closed_pipes: Vec<usize>,
     /// Indices of pumps off in this condition.
     pub pumps_off: Vec<usize>,
+    /// Valve setting overrides: (index into [`Network::valves`], setting in internal units).
+    pub valve_settings: Vec<(usize, f64)>,
+    /// Indices of valves closed in this condition.
+    pub closed_valves: Vec<usize>,
 }
 
 impl Network {

@@ -18,6 +18,16 @@ pub const PSI_PER_FT: f64 = 0.4335;
 /// kPa of pressure per metre of water head: standard gravity times 1000 kg/m^3 (ISO 80000-3 g_n).
 pub const KPA_PER_M: f64 = 9.80665;
 
+/// A value in file units brought back from SI, as it was typed: rounded to 12 significant digits. The
+/// round trip through SI leaves float noise in the last digits (26 psi comes back as 25.999999999999996);
+/// 12 digits remove it and keep every digit anyone types a reading with.
+pub fn as_typed(value: f64) -> f64 {
+    if !value.is_finite() || value == 0.0 {
+        return value;
+    }
+    format!("{value:.11e}").parse().unwrap_or(value)
+}
+
 /// The unit system a network file, a field sheet and the screens are written in.
 #[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize, Default)]
 #[serde(rename_all = "lowercase")]

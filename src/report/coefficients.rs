@@ -48,6 +48,24 @@ const STATUSES: [GroupStatus; 4] = [
     GroupStatus::NotInformed,
 ];
 
+/// The status of a moved group in a set built from a fit that did not converge. `calibrate` writes no
+/// such set, but the builders mark one honestly, and `apply` refuses any set that carries it.
+pub const NOT_CONVERGED_STATUS: &str = "not converged";
+
+/// The status word written for `group` of `result`.
+fn status_label(result: &CalibrationResult, status: GroupStatus) -> &'static str {
+    let moved = matches!(status, GroupStatus::Fitted | GroupStatus::AtBound);
+    if moved && !result.converged {
+        NOT_CONVERGED_STATUS
+    } else {
+        status.label()
+    }
+}
+
+fn known_status(status: &str) -> bool {
+    status == NOT_CONVERGED_STATUS || STATUSES.iter().any(|s| s.label() == status)
+}
+
 /// One group of a coefficient set. Only `name` and `c` act when the set is applied; the rest is what
 /// the calibration reported about the group.
 #[derive(Debug, Clone, PartialEq)]
@@ -101,6 +119,26 @@ impl CoefficientSet {
                 kind: CoefficientErrorKind::UnknownGroup {
                     name: entry.name.clone(),
                     known: net.groups.iter().map(|g| g.name.clone()).collect(),
+                },
+            }),
+            None => Ok(()),
+        }
+    }
+
+    /// Refuses a set whose status says the fit that made it did not converge: its C values are where
+    /// the optimizer stopped, not a fit.
+    pub fn check_converged(&self) -> Result<(), CoefficientError> {
+        match self
+            .entries
+            .iter()
+            .find(|entry| entry.status.as_deref() == Some(NOT_CONVERGED_STATUS))
+        {
+            Some(entry) => Err(CoefficientError {
+                file: self.file.clone(),
+                line: Some(entry.line),
+                field: Some("status".to_string()),
+                kind: CoefficientErrorKind::NotConverged {
+                    name: entry.name.clone(),
                 },
             }),
             None => Ok(()),
@@ -173,8 +211,15 @@ pub enum CoefficientErrorKind {
     DuplicateGroup { name: String, first_line: usize },
     #[error("the network has no group `{name}` (its groups: {})", .known.join(", "))]
     UnknownGroup { name: String, known: Vec<String> },
-    #[error("unknown status `{0}`; expected one of: fitted, at bound, locked, not informed")]
+    #[error(
+        "unknown status `{0}`; expected one of: fitted, at bound, locked, not informed, not converged"
+    )]
     UnknownStatus(String),
+    #[error(
+        "group `{name}` is marked not converged: the fit that wrote this set did not converge, so its C \
+         values are not a fit; run calibrate again and apply the set of a converged fit"
+    )]
+    NotConverged { name: String },
     #[error("the file lists no group")]
     NoGroups,
 }
@@ -425,7 +470,7 @@ impl RawEntry {
             ));
         }
         if let Some(status) = &self.status
-            && !STATUSES.iter().any(|s| s.label() == status)
+            && !known_status(status)
         {
             return Err(error(
                 "status",
@@ -617,7 +662,7 @@ pub fn coefficients_csv(result: &CalibrationResult) -> String {
             opt(group.ci95.map(|ci| ci.0)),
             opt(group.ci95.map(|ci| ci.1)),
             group.tests_informing.to_string(),
-            group.status.label().to_string(),
+            status_label(result, group.status).to_string(),
         ]);
     }
     for row in rows {
@@ -655,7 +700,10 @@ pub fn coefficients_toml(result: &CalibrationResult, network_file: &str) -> Stri
             "tests",
             toml_edit::value(i64::try_from(group.tests_informing).unwrap_or(i64::MAX)),
         );
-        table.insert("status", toml_edit::value(group.status.label()));
+        table.insert(
+            "status",
+            toml_edit::value(status_label(result, group.status)),
+        );
         groups.push(table);
     }
     let mut document = DocumentMut::new();
@@ -844,7 +892,7 @@ mod tests {
         assert_eq!(
             toml_error("[[group]]\nname = \"ci\"\nc = 80\nstatus = \"great\"\n"),
             "set.toml:4: status: unknown status `great`; expected one of: fitted, at bound, \
-             locked, not informed"
+             locked, not informed, not converged"
         );
         assert_eq!(
             toml_error("[[group]]\nname = \"ci\"\nc = 80\nmin = 90\nmax = 60\n"),
@@ -935,6 +983,8 @@ mod tests {
                 max_c: 140.0,
                 locked: false,
             }],
+            valves: Vec::new(),
+            hazen_williams_constant: None,
             conditions: vec![],
             lonlat_origin: None,
         };

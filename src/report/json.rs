@@ -48,9 +48,19 @@ pub fn json_summary(run: &RunContext<'_>) -> Value {
     let tests: Vec<Value> = result
         .tests
         .iter()
-        .map(|t| {
+        .enumerate()
+        .map(|(i, t)| {
+            let warnings: Vec<Value> = run
+                .warnings
+                .get(i)
+                .map(|w| w.as_slice())
+                .unwrap_or_default()
+                .iter()
+                .map(|w| json!({"rule": w.rule.key(), "column": w.column, "reason": w.reason}))
+                .collect();
             json!({
                 "test": t.id,
+                "warnings": warnings,
                 "measured_residual": t.measured_residual,
                 "modelled_before": t.modelled_residual_before,
                 "modelled_after": t.modelled_residual_after,

@@ -20,11 +20,16 @@ pub fn report_markdown(run: &RunContext<'_>) -> String {
     } else {
         run.network.title.as_str()
     };
-    let _ = writeln!(out, "# Roughness calibration: {title}\n");
-    let _ = writeln!(out, "> **Caution.** {CAUTION}\n");
-    if !result.converged {
+    if result.converged {
+        let _ = writeln!(out, "# Roughness calibration: {title}\n");
+    } else {
+        let _ = writeln!(out, "# NOT CONVERGED: roughness calibration: {title}\n");
         let _ = writeln!(out, "> **{}.**\n", sections::not_converged_line(result));
     }
+    if let Some(answer) = run.out_of_date {
+        let _ = writeln!(out, "> **Fit out of date.** {answer}\n");
+    }
+    let _ = writeln!(out, "> **Caution.** {CAUTION}\n");
 
     let _ = writeln!(out, "## What was fitted and how\n");
     let _ = writeln!(out, "- Network: `{}`", run.network_file);
@@ -63,6 +68,17 @@ pub fn report_markdown(run: &RunContext<'_>) -> String {
     let _ = writeln!(out, "{} test(s) used:\n", run.tests.len());
     out.push_str(&sections::used_tests_table(run).markdown());
     let _ = writeln!(out);
+    let warnings = sections::warning_lines(run);
+    if !warnings.is_empty() {
+        let _ = writeln!(
+            out,
+            "Screening warnings of the tests used (a warning keeps a test in the fit; review them):\n"
+        );
+        for warning in &warnings {
+            let _ = writeln!(out, "- {warning}");
+        }
+        let _ = writeln!(out);
+    }
     if run.excluded.is_empty() {
         let _ = writeln!(out, "No test was excluded.\n");
     } else {

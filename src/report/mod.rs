@@ -67,9 +67,14 @@ pub const OUTPUT_FILES: [&str; 7] = [
     PIPES_CSV,
     RESULTS_GEOJSON,
 ];
+/// The only outputs of a fit that did not converge: the report (marked NOT CONVERGED at its top) and
+/// the plot (titled so). An allow-list, so that an output added later (a per-pipe export, say) is
+/// withheld from an unconverged fit without anyone remembering to.
+pub const UNCONVERGED_OUTPUTS: [&str; 2] = [REPORT_MD, FIT_SVG];
 
 /// A field test left out of the calibration, and why (from [`crate::fieldtest::calibration_tests`]).
 pub use crate::fieldtest::ExcludedTest;
+use crate::fieldtest::Finding;
 
 /// A calibration run as the outputs describe it: inputs, settings and result.
 #[derive(Debug, Clone, Copy)]
@@ -83,13 +88,20 @@ pub struct RunContext<'a> {
     pub tests: &'a [CalibrationTest],
     pub excluded: &'a [ExcludedTest],
     pub result: &'a CalibrationResult,
+    /// Screening warnings of each used test (parallel to `tests`): a warning keeps a test in the fit,
+    /// and the outputs say which.
+    pub warnings: &'a [Vec<Finding>],
+    /// Set when the fit is exported although the sheet or the groups changed after it: the answer the
+    /// user gave, written at the top of the report.
+    pub out_of_date: Option<&'a str>,
 }
 
 /// Why an output could not be built.
 #[derive(Debug, Clone, PartialEq, thiserror::Error)]
 pub enum ReportError {
+    // Not `#[from]`: the cause is in the message, and a source as well would print it twice.
     #[error("cannot write the fitted C into the network text: {0}")]
-    Edit(#[from] NetworkEditError),
+    Edit(NetworkEditError),
     #[error("cannot draw the fit plot: {0}")]
     Plot(String),
     #[error("the result has {result} pipe C-factors but the network has {network} pipes")]
@@ -125,7 +137,7 @@ pub fn calibrated_network(
         .filter(|(pipe, c)| pipe.group.is_some_and(|g| moved.contains(&g)) && pipe.c_factor != **c)
         .map(|(pipe, &c)| (pipe.id.clone(), c))
         .collect();
-    Ok(apply_c_factors(network_text, &changed)?)
+    apply_c_factors(network_text, &changed).map_err(ReportError::Edit)
 }
 
 /// The output files of a run, named and built, ready for [`write_outputs`].
@@ -133,6 +145,8 @@ pub fn calibrated_network(
 pub struct CalibrationOutputs {
     /// (file name, content), in [`OUTPUT_FILES`] order.
     pub files: Vec<(&'static str, String)>,
+    /// Whether the fit converged; [`write_outputs`] writes only [`UNCONVERGED_OUTPUTS`] when not.
+    pub converged: bool,
 }
 
 impl CalibrationOutputs {
@@ -156,6 +170,7 @@ impl CalibrationOutputs {
             .into_iter()
             .chain(results_geojson(run).map(|text| (RESULTS_GEOJSON, text)))
             .collect(),
+            converged: run.result.converged,
         })
     }
 
@@ -177,13 +192,19 @@ pub enum OutputWriteError {
         .files.join(", ")
     )]
     Exists { folder: PathBuf, files: Vec<String> },
-    #[error("cannot create the output folder {}: {source}", .folder.display())]
+    // The io error is part of the message, not a `source`, so that error chains print it once.
+    #[error("cannot create the output folder {}: {cause}", .folder.display())]
     CreateFolder {
         folder: PathBuf,
-        source: std::io::Error,
+        cause: std::io::Error,
     },
     #[error(transparent)]
     Write(#[from] WriteError),
+    #[error("{}: cannot remove an earlier run's output beside an unconverged report: {cause}", .path.display())]
+    RemoveStale {
+        path: PathBuf,
+        cause: std::io::Error,
+    },
 }
 
 /// The outputs of a run already present in `folder`.
@@ -196,6 +217,11 @@ pub fn existing_outputs(folder: &Path) -> Vec<&'static str> {
 
 /// Writes `outputs` into `folder` (created if missing), each file atomically. Without `force`, nothing
 /// is written when the folder already holds any of [`OUTPUT_FILES`]. Returns the paths written.
+///
+/// This is the one place calibration outputs reach the disk. A fit that did not converge gets only
+/// [`UNCONVERGED_OUTPUTS`]: no coefficient set, no calibrated network, nothing that could pass for a
+/// fit. With `force`, the other outputs an earlier run left in the folder are removed, so the folder
+/// never pairs an unconverged report with an older run's coefficients.
 pub fn write_outputs(
     folder: &Path,
     outputs: &CalibrationOutputs,
@@ -210,13 +236,22 @@ pub fn write_outputs(
             });
         }
     }
-    std::fs::create_dir_all(folder).map_err(|source| OutputWriteError::CreateFolder {
+    std::fs::create_dir_all(folder).map_err(|cause| OutputWriteError::CreateFolder {
         folder: folder.to_path_buf(),
-        source,
+        cause,
     })?;
     let mut written = Vec::with_capacity(outputs.files.len());
     for (name, content) in &outputs.files {
         let path = folder.join(name);
+        if !outputs.converged && !UNCONVERGED_OUTPUTS.contains(name) {
+            if path.exists() {
+                std::fs::remove_file(&path).map_err(|cause| OutputWriteError::RemoveStale {
+                    path: path.clone(),
+                    cause,
+                })?;
+            }
+            continue;
+        }
         write_new(&path, content.as_bytes(), force)?;
         written.push(path);
     }

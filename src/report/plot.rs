@@ -12,6 +12,12 @@ use super::ReportError;
 pub const BEFORE_LABEL: &str = "before calibration";
 /// Legend label of the readings after the fit.
 pub const AFTER_LABEL: &str = "after calibration";
+/// Legend label of the readings at the last iteration of a fit that did not converge.
+pub const LAST_ITERATION_LABEL: &str = "at the last iteration (NOT CONVERGED)";
+/// Title of the plot.
+pub const TITLE: &str = "Measured and modelled pressure";
+/// Title of the plot of a fit that did not converge.
+pub const NOT_CONVERGED_TITLE: &str = "NOT CONVERGED: measured and modelled pressure";
 /// Legend label of the line of perfect agreement.
 pub const ONE_TO_ONE_LABEL: &str = "1:1 (model equals field)";
 
@@ -43,8 +49,20 @@ pub fn fit_svg(result: &CalibrationResult, units: UnitSystem) -> Result<String, 
     let (lo, hi) = axis_range(before.iter().chain(&after));
     let unit = units.pressure_label();
     let mut svg = String::new();
-    draw(&mut svg, (lo, hi), unit, &before, &after)
-        .map_err(|e| ReportError::Plot(e.to_string()))?;
+    let (title, after_label) = if result.converged {
+        (TITLE, AFTER_LABEL)
+    } else {
+        (NOT_CONVERGED_TITLE, LAST_ITERATION_LABEL)
+    };
+    draw(
+        &mut svg,
+        (lo, hi),
+        unit,
+        (title, after_label),
+        &before,
+        &after,
+    )
+    .map_err(|e| ReportError::Plot(e.to_string()))?;
     Ok(svg)
 }
 
@@ -70,13 +88,14 @@ fn draw(
     svg: &mut String,
     (lo, hi): (f64, f64),
     unit: &str,
+    (title, after_label): (&str, &str),
     before: &[(f64, f64)],
     after: &[(f64, f64)],
 ) -> Result<(), Box<dyn std::error::Error>> {
     let root = SVGBackend::with_string(svg, (720, 720)).into_drawing_area();
     root.fill(&WHITE)?;
     let mut chart = ChartBuilder::on(&root)
-        .caption("Measured and modelled pressure", ("sans-serif", 24))
+        .caption(title, ("sans-serif", 24))
         .margin(20)
         .x_label_area_size(50)
         .y_label_area_size(64)
@@ -105,7 +124,7 @@ fn draw(
                 .iter()
                 .map(|&p| TriangleMarker::new(p, 6, AFTER_COLOUR.filled())),
         )?
-        .label(AFTER_LABEL)
+        .label(after_label)
         .legend(|(x, y)| TriangleMarker::new((x + 10, y), 6, AFTER_COLOUR.filled()));
     chart
         .configure_series_labels()

@@ -246,3 +246,17 @@ pub fn used_tests_table(run: &RunContext<'_>) -> TextTable {
     }
     table
 }
+
+/// The screening warnings of the tests the fit used, one line each (`TEST: column: reason`): a warning
+/// keeps a test in the fit, flagged for review.
+pub fn warning_lines(run: &RunContext<'_>) -> Vec<String> {
+    run.tests
+        .iter()
+        .zip(run.warnings)
+        .flat_map(|(test, warnings)| {
+            warnings
+                .iter()
+                .map(move |w| format!("{}: {}: {}", test.id, w.column, w.reason))
+        })
+        .collect()
+}

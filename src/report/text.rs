@@ -34,6 +34,9 @@ pub fn text_summary(run: &RunContext<'_>) -> String {
             excluded.test_id, excluded.reason
         );
     }
+    for warning in sections::warning_lines(run) {
+        let _ = writeln!(out, "    warning (kept in the fit) {warning}");
+    }
     let _ = writeln!(out, "  optimizer: {}", sections::optimizer_line(result));
     let _ = writeln!(out);
     let _ = writeln!(out, "Roughness groups (Hazen-Williams C)");

@@ -10,11 +10,12 @@ use std::path::PathBuf;
 use crate::calibrate::{
     CalibrationError, CalibrationOptions, CalibrationResult, CalibrationTest, IterationReport,
 };
-use crate::fieldtest::{ExcludedTest, FieldSheet, SheetColumn};
+use crate::fieldtest::{ExcludedTest, FieldSheet, Finding, SheetColumn, StaticHeads};
 use crate::network::edit::{GroupUpdate, apply_group_c, update_groups};
 use crate::network::file::parse_network;
 use crate::network::{DEFAULT_GROUP_MAX_C, DEFAULT_GROUP_MIN_C, Network};
 use crate::report::{CalibrationOutputs, RunContext};
+use crate::storage::FileStamp;
 
 use super::layout;
 use super::map_model::{MapGeometry, MapShading, Point, pipe_ends, pipe_shades};
@@ -62,6 +63,33 @@ pub struct Session {
     pub scratch_folder: Option<PathBuf>,
     /// Whether the sheet's first state is kept as `SHEET.orig` on the first save.
     pub keep_original: bool,
+    /// What the sheet file on disk was when last read or written, and whether it may be written.
+    pub sheet_file: FileState,
+    /// The same for the network file.
+    pub network_file: FileState,
+    /// The sheet as last read from or written to disk: the common ancestor when another program's
+    /// version has to be merged with ours.
+    pub sheet_base: FieldSheet,
+}
+
+/// What the workbench knows about a file it works on.
+#[derive(Debug, Clone, Default, PartialEq)]
+pub struct FileState {
+    /// The file cannot be written: edits are refused, nothing is ever written to it.
+    pub read_only: bool,
+    /// Size, modification time and hash of the file as last read or written (`None`: not known, e.g.
+    /// a file that does not exist yet).
+    pub stamp: Option<FileStamp>,
+}
+
+impl FileState {
+    /// The state of the file at `path` as it is now.
+    pub fn of(path: &std::path::Path) -> FileState {
+        FileState {
+            read_only: !crate::storage::is_writable(path),
+            stamp: FileStamp::of(path).ok(),
+        }
+    }
 }
 
 /// A cursor movement.
@@ -144,7 +172,29 @@ pub enum SheetEdit {
 pub enum Confirm {
     DeleteRow(usize),
     OverwriteExport(PathBuf),
+    /// Export a fit although the sheet or the groups changed after it.
+    ExportOutOfDate,
+    /// Another program changed the file on disk: y reloads theirs (re-applying ours where rows do not
+    /// conflict), n keeps both (ours goes on in the side file).
+    ExternalChange(SaveTarget),
+    /// Quit with a cell half-typed: y keeps the typing (saved) and quits, n goes back to it.
+    QuitWithTyping,
+    /// Quit with edits that are not on disk: y quits anyway, n stays.
+    QuitUnsaved,
 }
+
+/// A save that found the file on disk changed by someone else, and where our version went instead.
+#[derive(Debug, Clone, PartialEq)]
+pub struct Conflict {
+    /// `SHEET.roughcal-unsaved.csv` (or the network's), with its stamp; `Err` when it could not be
+    /// written either (the edits are then only in memory).
+    pub side_file: Result<(PathBuf, Option<FileStamp>), String>,
+}
+
+/// What the report of an out-of-date export says about it: the question and the answer.
+pub const OUT_OF_DATE_ANSWER: &str = "The sheet or the roughness groups were edited after this fit \
+     ran. Asked whether to export the old fit anyway, the user answered yes: what follows describes the \
+     readings and groups as they were when the fit ran, not the files as they are now.";
 
 /// Readings view state.
 #[derive(Debug, Clone, Default)]
@@ -246,6 +296,8 @@ pub struct FitState {
     pub failure: Option<String>,
     /// The sheet or the groups changed since the outcome was computed.
     pub stale: bool,
+    /// The user said yes to exporting the out-of-date outcome (cleared by the next fit).
+    pub export_out_of_date: bool,
     pub first_row: usize,
 }
 
@@ -295,6 +347,9 @@ pub struct App {
     pub node_index: Vec<(String, String)>,
     /// Junction index by id.
     pub junction_index: HashMap<String, usize>,
+    /// The model's static pressures (one solve per condition, redone when the network changes), for
+    /// the modelled-static warning of every row.
+    pub static_heads: StaticHeads,
     /// The sheet has edits the last save did not write.
     pub unsaved: bool,
     /// The network file has edits the last save did not write.
@@ -303,6 +358,14 @@ pub struct App {
     pub export_folder: Option<PathBuf>,
     /// The folder being typed after Ctrl+E; empty means a new `roughcal-export-N` beside the sheet.
     pub export_prompt: Option<CellEdit>,
+    /// The sheet on disk was changed by another program: saves to it have stopped.
+    pub sheet_conflict: Option<Conflict>,
+    /// The same for the network file.
+    pub network_conflict: Option<Conflict>,
+    /// The last save of the sheet or the network failed (the edits are not on disk).
+    pub save_failed: bool,
+    /// Quit once the pending saves have landed (after "keep the typing and quit").
+    pub quit_after_saves: bool,
     pub quit: bool,
 }
 
@@ -342,10 +405,25 @@ pub enum Action {
     /// The export folder already holds outputs.
     ExportRefused(PathBuf),
     ExportFinished(Result<PathBuf, String>),
+    /// A save is done: the file's new stamp, or why nothing was written.
     SaveFinished {
         target: SaveTarget,
-        result: Result<(), String>,
+        result: Result<Option<FileStamp>, String>,
     },
+    /// A save found the file changed on disk and wrote our version into the side file instead.
+    ExternalChange {
+        target: SaveTarget,
+        side_file: Result<(PathBuf, Option<FileStamp>), String>,
+    },
+    /// The side file was written again (edits while a conflict waits for an answer).
+    SideFileSaved {
+        target: SaveTarget,
+        result: Result<Option<FileStamp>, String>,
+    },
+    /// The sheet as another program left it, read back after "reload theirs".
+    SheetReloaded(Box<Result<(FieldSheet, Option<FileStamp>), String>>),
+    /// The network text as another program left it.
+    NetworkReloaded(Result<(String, Option<FileStamp>), String>),
     ToggleMapShading,
     /// Map: select the next (+1) or previous (-1) test.
     SelectTest(i32),
@@ -369,6 +447,8 @@ pub struct CalibrationJob {
     /// The network file's text the run started from (the calibrated network is written into it).
     pub network_text: String,
     pub tests: Vec<CalibrationTest>,
+    /// The screening warnings of each test (parallel to `tests`).
+    pub warnings: Vec<Vec<Finding>>,
     /// The sheet's tests left out of the fit, and why.
     pub excluded: Vec<ExcludedTest>,
     pub options: CalibrationOptions,
@@ -388,15 +468,26 @@ pub struct ExportJob {
 /// What the runner is asked to do.
 #[derive(Debug, Clone)]
 pub enum Effect {
+    /// Write the sheet, unless the file on disk is no longer `expected` (then the side file).
     SaveSheet {
         path: PathBuf,
         text: String,
         keep_original: bool,
+        expected: Option<FileStamp>,
     },
     SaveNetwork {
         path: PathBuf,
         text: String,
+        expected: Option<FileStamp>,
     },
+    /// Write the side file of unsaved edits (no check: it is ours).
+    SaveSideFile {
+        target: SaveTarget,
+        path: PathBuf,
+        text: String,
+    },
+    ReloadSheet(PathBuf),
+    ReloadNetwork(PathBuf),
     StartCalibration(Box<CalibrationJob>),
     CancelCalibration,
     WriteExport(Box<ExportJob>),
@@ -423,10 +514,15 @@ impl App {
             message: None,
             node_index: Vec::new(),
             junction_index: HashMap::new(),
+            static_heads: StaticHeads::default(),
             unsaved: false,
             network_unsaved: false,
             export_folder: None,
             export_prompt: None,
+            sheet_conflict: None,
+            network_conflict: None,
+            save_failed: false,
+            quit_after_saves: false,
             quit: false,
         };
         app.network_changed();
@@ -459,13 +555,18 @@ impl App {
             .row
             .min(self.groups.rows.len().saturating_sub(1));
         self.map.ends = pipe_ends(net);
+        self.static_heads = StaticHeads::solve(net);
         self.rebuild_map();
     }
 
     /// Reads and screens the whole sheet again (after any change of the sheet or the network: rules
     /// such as a repeated test id span rows).
     fn read_all_rows(&mut self) {
-        self.readings.rows = sheet_reading::read_sheet(&self.session.sheet, &self.session.network);
+        self.readings.rows = sheet_reading::read_sheet(
+            &self.session.sheet,
+            &self.session.network,
+            &self.static_heads,
+        );
     }
 
     /// Number of rows calibration may use.
@@ -604,17 +705,57 @@ impl App {
         }
     }
 
-    /// After a change of the sheet: read it again and save it.
+    /// After a change of the sheet: read it again and save it (into the side file while another
+    /// program's change waits for an answer).
     fn sheet_save(&mut self) -> Effect {
         self.read_all_rows();
         self.unsaved = true;
         self.fit.stale = self.fit.outcome.is_some();
+        self.fit.export_out_of_date = false;
+        let text = self.session.sheet.to_csv_string();
+        if let Some(Conflict {
+            side_file: Ok((side, _)),
+        }) = &self.sheet_conflict
+        {
+            return Effect::SaveSideFile {
+                target: SaveTarget::Sheet,
+                path: side.clone(),
+                text,
+            };
+        }
         let keep_original = std::mem::replace(&mut self.session.keep_original, false);
         Effect::SaveSheet {
             path: self.session.sheet_path.clone(),
-            text: self.session.sheet.to_csv_string(),
+            text,
             keep_original,
+            expected: self.session.sheet_file.stamp,
         }
+    }
+
+    /// Whether edits exist that are not in the file they belong to.
+    pub fn has_unsaved_edits(&self) -> bool {
+        self.unsaved
+            || self.network_unsaved
+            || self.save_failed
+            || self.sheet_conflict.is_some()
+            || self.network_conflict.is_some()
+    }
+
+    /// Refuses an edit of a read-only file with a message; returns whether it was refused.
+    fn refuse_read_only(&mut self, target: SaveTarget) -> bool {
+        let (file, path) = match target {
+            SaveTarget::Sheet => (&self.session.sheet_file, &self.session.sheet_path),
+            SaveTarget::Network => (&self.session.network_file, &self.session.network_path),
+        };
+        if !file.read_only {
+            return false;
+        }
+        let name = path.display().to_string();
+        self.error(format!(
+            "{name} is read-only: edits are refused and nothing is written (make it writable and \
+             open it again to edit)"
+        ));
+        true
     }
 }
 
@@ -672,13 +813,7 @@ pub fn update(app: &mut App, action: Action) -> Vec<Effect> {
             app.scroll_readings();
             app.rebuild_map();
         }
-        Action::Quit => {
-            commit_pending(app, &mut effects);
-            if app.fit.running.is_some() {
-                effects.push(Effect::CancelCalibration);
-            }
-            app.quit = true;
-        }
+        Action::Quit => quit(app, &mut effects),
         Action::ToggleHelp => app.help = !app.help,
         Action::Escape => {
             if app.help {
@@ -736,19 +871,26 @@ pub fn update(app: &mut App, action: Action) -> Vec<Effect> {
             ));
         }
         Action::ExportFinished(Err(message)) => app.error(format!("export failed: {message}")),
-        Action::SaveFinished { target, result } => match (target, result) {
-            (SaveTarget::Sheet, Ok(())) => app.unsaved = false,
-            (SaveTarget::Network, Ok(())) => app.network_unsaved = false,
-            (target, Err(message)) => {
-                let what = match target {
-                    SaveTarget::Sheet => "sheet",
-                    SaveTarget::Network => "network",
-                };
-                app.error(format!(
-                    "NOT SAVED: {message}; the {what} file is as before, the next edit saves again"
-                ));
+        Action::SaveFinished { target, result } => save_finished(app, target, result, &mut effects),
+        Action::ExternalChange { target, side_file } => external_change(app, target, side_file),
+        Action::SideFileSaved { target, result } => {
+            let conflict = match target {
+                SaveTarget::Sheet => &mut app.sheet_conflict,
+                SaveTarget::Network => &mut app.network_conflict,
+            };
+            match (conflict, result) {
+                (
+                    Some(Conflict {
+                        side_file: Ok((_, stamp)),
+                    }),
+                    Ok(new),
+                ) => *stamp = new,
+                (_, Err(message)) => app.error(format!("NOT SAVED, not even aside: {message}")),
+                _ => {}
             }
-        },
+        }
+        Action::SheetReloaded(result) => sheet_reloaded(app, *result, &mut effects),
+        Action::NetworkReloaded(result) => network_reloaded(app, result),
         Action::ToggleMapShading => {
             app.map.shading = match app.map.shading {
                 MapShading::Group => MapShading::FittedChange,
@@ -789,6 +931,275 @@ pub fn update(app: &mut App, action: Action) -> Vec<Effect> {
     effects
 }
 
+/// Ctrl+Q: a half-typed cell or edits not on disk are never left without asking first.
+fn quit(app: &mut App, effects: &mut Vec<Effect>) {
+    if matches!(
+        app.confirm,
+        Some(Confirm::QuitWithTyping | Confirm::QuitUnsaved)
+    ) {
+        return;
+    }
+    app.confirm = None;
+    let typing = app
+        .readings
+        .edit
+        .as_ref()
+        .or(app.groups.edit.as_ref())
+        .map(|e| e.buffer.clone());
+    if let Some(typed) = typing {
+        app.confirm = Some(Confirm::QuitWithTyping);
+        app.error(format!(
+            "a cell is half-typed (`{typed}`): y keeps it (saved) and quits, n goes back to it \
+             (Esc there throws it away)"
+        ));
+        return;
+    }
+    if app.has_unsaved_edits() {
+        let aside = [&app.sheet_conflict, &app.network_conflict]
+            .into_iter()
+            .flatten()
+            .filter_map(|c| c.side_file.as_ref().ok())
+            .map(|(path, _)| path.display().to_string())
+            .collect::<Vec<_>>();
+        let kept = if aside.is_empty() {
+            "they exist only here".to_string()
+        } else {
+            format!("they are kept in {}", aside.join(", "))
+        };
+        app.confirm = Some(Confirm::QuitUnsaved);
+        app.error(format!(
+            "edits are NOT SAVED to the files they belong to ({kept}): quit anyway? (y/n)"
+        ));
+        return;
+    }
+    finish_quit(app, effects);
+}
+
+fn finish_quit(app: &mut App, effects: &mut Vec<Effect>) {
+    if app.fit.running.is_some() {
+        effects.push(Effect::CancelCalibration);
+    }
+    app.quit = true;
+}
+
+fn save_finished(
+    app: &mut App,
+    target: SaveTarget,
+    result: Result<Option<FileStamp>, String>,
+    effects: &mut Vec<Effect>,
+) {
+    match result {
+        Ok(stamp) => {
+            app.save_failed = false;
+            match target {
+                SaveTarget::Sheet => {
+                    app.unsaved = false;
+                    app.session.sheet_file.stamp = stamp;
+                    app.session.sheet_base = app.session.sheet.clone();
+                }
+                SaveTarget::Network => {
+                    app.network_unsaved = false;
+                    app.session.network_file.stamp = stamp;
+                }
+            }
+        }
+        Err(message) => {
+            app.save_failed = true;
+            let what = match target {
+                SaveTarget::Sheet => "sheet",
+                SaveTarget::Network => "network",
+            };
+            app.error(format!(
+                "NOT SAVED: {message}; the {what} file is as before, the next edit saves again"
+            ));
+        }
+    }
+    if std::mem::take(&mut app.quit_after_saves) {
+        quit(app, effects);
+    }
+}
+
+/// A save found the file changed by another program: saving to it stops, our version is in the side
+/// file (or only in memory), and the user is asked what to do.
+fn external_change(
+    app: &mut App,
+    target: SaveTarget,
+    side_file: Result<(PathBuf, Option<FileStamp>), String>,
+) {
+    app.quit_after_saves = false;
+    let path = match target {
+        SaveTarget::Sheet => app.session.sheet_path.display().to_string(),
+        SaveTarget::Network => app.session.network_path.display().to_string(),
+    };
+    let kept = match &side_file {
+        Ok((side, _)) => format!("yours are kept in {}", side.display()),
+        Err(e) => format!("yours are only in memory ({e})"),
+    };
+    let reload = match target {
+        SaveTarget::Sheet => "reload theirs and re-apply yours where rows do not conflict",
+        SaveTarget::Network => "reload theirs (your group edits stay in the side file)",
+    };
+    app.error(format!(
+        "{path} was changed by another program since it was read: NOT SAVED, {kept}. y: {reload}; \
+         n: keep both (you go on in the side file)"
+    ));
+    let conflict = Some(Conflict { side_file });
+    match target {
+        SaveTarget::Sheet => app.sheet_conflict = conflict,
+        SaveTarget::Network => app.network_conflict = conflict,
+    }
+    app.confirm = Some(Confirm::ExternalChange(target));
+}
+
+/// "Keep both": the other program's file stays as it is, the workbench goes on with ours in the side
+/// file.
+fn keep_both(app: &mut App, target: SaveTarget) {
+    let conflict = match target {
+        SaveTarget::Sheet => app.sheet_conflict.take(),
+        SaveTarget::Network => app.network_conflict.take(),
+    };
+    let Some(Conflict {
+        side_file: Ok((side, stamp)),
+    }) = conflict
+    else {
+        // Nothing on disk holds our version: keep asking rather than pretend it is kept.
+        app.error(
+            "your edits could not be written aside: they are only in memory; free the folder and \
+             edit again to retry",
+        );
+        return;
+    };
+    let file = FileState {
+        read_only: false,
+        stamp,
+    };
+    match target {
+        SaveTarget::Sheet => {
+            let theirs = std::mem::replace(&mut app.session.sheet_path, side.clone());
+            app.session.sheet_file = file;
+            app.session.sheet_base = app.session.sheet.clone();
+            app.session.keep_original = false;
+            app.unsaved = false;
+            app.info(format!(
+                "kept both: theirs in {}, yours in {} (edits now save there)",
+                theirs.display(),
+                side.display()
+            ));
+        }
+        SaveTarget::Network => {
+            let theirs = std::mem::replace(&mut app.session.network_path, side.clone());
+            app.session.network_file = file;
+            app.network_unsaved = false;
+            app.info(format!(
+                "kept both: theirs in {}, yours in {} (group edits now save there)",
+                theirs.display(),
+                side.display()
+            ));
+        }
+    }
+}
+
+/// "Reload theirs": their sheet becomes the sheet, with our edited rows re-applied where they did not
+/// touch the same row; the rows both changed keep their version (ours stays in the side file).
+fn sheet_reloaded(
+    app: &mut App,
+    result: Result<(FieldSheet, Option<FileStamp>), String>,
+    effects: &mut Vec<Effect>,
+) {
+    let (theirs, stamp) = match result {
+        Ok(read) => read,
+        Err(message) => {
+            app.error(format!(
+                "cannot read the sheet again ({message}): nothing changed; y/n again"
+            ));
+            app.confirm = Some(Confirm::ExternalChange(SaveTarget::Sheet));
+            return;
+        }
+    };
+    let merged = super::merge::reapply(&app.session.sheet_base, &app.session.sheet, &theirs);
+    let side = app
+        .sheet_conflict
+        .take()
+        .and_then(|c| c.side_file.ok())
+        .map(|(p, _)| p.display().to_string());
+    app.session.sheet = merged.sheet;
+    app.session.sheet_base = theirs;
+    app.session.sheet_file.stamp = stamp;
+    app.readings.undo.clear();
+    app.readings.redo.clear();
+    app.readings.edit = None;
+    app.readings.preview = None;
+    app.unsaved = false;
+    app.scroll_readings();
+    let mut message = format!(
+        "reloaded the other program's sheet; re-applied {} of your row edits",
+        merged.applied
+    );
+    if !merged.conflicts.is_empty() {
+        message.push_str(&format!(
+            "; rows changed on both sides keep theirs: {}{}",
+            merged.conflicts.join(", "),
+            side.map(|s| format!(" (yours are in {s})"))
+                .unwrap_or_default()
+        ));
+    }
+    if merged.applied > 0 {
+        effects.push(app.sheet_save());
+    } else {
+        app.read_all_rows();
+    }
+    if merged.conflicts.is_empty() {
+        app.info(message);
+    } else {
+        app.error(message);
+    }
+}
+
+/// "Reload theirs" for the network: their text becomes the network; our group edits stay in the side
+/// file (a network is not merged row by row).
+fn network_reloaded(app: &mut App, result: Result<(String, Option<FileStamp>), String>) {
+    let (text, stamp) = match result {
+        Ok(read) => read,
+        Err(message) => {
+            app.error(format!(
+                "cannot read the network again ({message}): nothing changed; y/n again"
+            ));
+            app.confirm = Some(Confirm::ExternalChange(SaveTarget::Network));
+            return;
+        }
+    };
+    let name = app.session.network_path.display().to_string();
+    match parse_network(&text, &name) {
+        Ok(loaded) => {
+            let side = app
+                .network_conflict
+                .take()
+                .and_then(|c| c.side_file.ok())
+                .map(|(p, _)| p.display().to_string());
+            app.session.network = loaded.network;
+            app.session.network_text = text;
+            app.session.network_file.stamp = stamp;
+            app.network_unsaved = false;
+            app.groups.undo.clear();
+            app.groups.redo.clear();
+            app.network_changed();
+            app.read_all_rows();
+            app.fit.stale = app.fit.outcome.is_some();
+            app.info(format!(
+                "reloaded {name} as the other program left it{}",
+                side.map(|s| format!("; your group edits are in {s}"))
+                    .unwrap_or_default()
+            ));
+        }
+        Err(e) => {
+            app.error(format!(
+                "their network does not read ({e}); kept yours: y/n again"
+            ));
+            app.confirm = Some(Confirm::ExternalChange(SaveTarget::Network));
+        }
+    }
+}
+
 /// A row index after a vertical move in a list of `count`.
 fn moved(row: usize, count: usize, m: Move, page: usize) -> usize {
     let last = count.saturating_sub(1);
@@ -818,7 +1229,11 @@ fn confirm(app: &mut App, yes: bool, effects: &mut Vec<Effect>) {
         return;
     };
     if !yes {
-        app.info("cancelled");
+        match question {
+            Confirm::ExternalChange(target) => keep_both(app, target),
+            Confirm::QuitWithTyping | Confirm::QuitUnsaved => app.info("not quitting: carry on"),
+            _ => app.info("cancelled"),
+        }
         return;
     }
     match question {
@@ -840,6 +1255,32 @@ fn confirm(app: &mut App, yes: bool, effects: &mut Vec<Effect>) {
             // The question was about this folder: the forced export goes there and nowhere else.
             export(app, true, Some(folder), effects);
         }
+        Confirm::ExportOutOfDate => {
+            app.fit.export_out_of_date = true;
+            ask_export_folder(app);
+        }
+        Confirm::ExternalChange(target) => {
+            let path = match target {
+                SaveTarget::Sheet => app.session.sheet_path.clone(),
+                SaveTarget::Network => app.session.network_path.clone(),
+            };
+            app.info(format!("reading {} again...", path.display()));
+            effects.push(match target {
+                SaveTarget::Sheet => Effect::ReloadSheet(path),
+                SaveTarget::Network => Effect::ReloadNetwork(path),
+            });
+        }
+        Confirm::QuitWithTyping => {
+            let before = effects.len();
+            commit_pending(app, effects);
+            if effects.len() == before {
+                quit(app, effects);
+            } else {
+                // The typing is kept; quitting goes on once its save has landed (or asks again).
+                app.quit_after_saves = true;
+            }
+        }
+        Confirm::QuitUnsaved => finish_quit(app, effects),
     }
 }
 
@@ -920,6 +1361,7 @@ fn update_preview(app: &mut App) {
             header,
             &app.session.sheet,
             &app.session.network,
+            &app.static_heads,
             edit.row,
             edit.column,
             &edit.buffer,
@@ -965,6 +1407,18 @@ fn edit_text(edit: &mut CellEdit, action: &Action) -> bool {
 }
 
 fn readings_action(app: &mut App, action: Action, effects: &mut Vec<Effect>) {
+    if matches!(
+        action,
+        Action::BeginEdit
+            | Action::BeginEditWith(_)
+            | Action::AddRow
+            | Action::DeleteRow
+            | Action::Undo
+            | Action::Redo
+    ) && app.refuse_read_only(SaveTarget::Sheet)
+    {
+        return;
+    }
     if let Some(edit) = &mut app.readings.edit
         && edit_text(edit, &action)
     {
@@ -1125,6 +1579,17 @@ fn readings_action(app: &mut App, action: Action, effects: &mut Vec<Effect>) {
 }
 
 fn groups_action(app: &mut App, action: Action, effects: &mut Vec<Effect>) {
+    if matches!(
+        action,
+        Action::BeginEdit
+            | Action::BeginEditWith(_)
+            | Action::ToggleLock
+            | Action::Undo
+            | Action::Redo
+    ) && app.refuse_read_only(SaveTarget::Network)
+    {
+        return;
+    }
     if let Some(edit) = &mut app.groups.edit
         && edit_text(edit, &action)
     {
@@ -1296,11 +1761,31 @@ fn set_network_text(app: &mut App, text: String, effects: &mut Vec<Effect>) -> b
             app.read_all_rows();
             app.network_unsaved = true;
             app.fit.stale = app.fit.outcome.is_some();
-            app.info(format!("saved to {name}"));
-            effects.push(Effect::SaveNetwork {
-                path: app.session.network_path.clone(),
-                text,
-            });
+            app.fit.export_out_of_date = false;
+            let side = match &app.network_conflict {
+                Some(Conflict {
+                    side_file: Ok((side, _)),
+                }) => Some(side.clone()),
+                _ => None,
+            };
+            match side {
+                Some(side) => {
+                    app.info(format!("kept aside in {}", side.display()));
+                    effects.push(Effect::SaveSideFile {
+                        target: SaveTarget::Network,
+                        path: side,
+                        text,
+                    });
+                }
+                None => {
+                    app.info(format!("saved to {name}"));
+                    effects.push(Effect::SaveNetwork {
+                        path: app.session.network_path.clone(),
+                        text,
+                        expected: app.session.network_file.stamp,
+                    });
+                }
+            }
             true
         }
         Err(e) => {
@@ -1316,16 +1801,18 @@ fn run_calibration(app: &mut App, effects: &mut Vec<Effect>) {
         app.info("a fit is already running (Esc cancels it)");
         return;
     }
-    let (tests, excluded) = sheet_reading::fit_tests(&app.session.sheet, &app.session.network);
-    if tests.is_empty() {
+    let input =
+        sheet_reading::fit_tests(&app.session.sheet, &app.session.network, &app.static_heads);
+    if input.tests.is_empty() {
         app.error("no usable test on the sheet: fix the flagged rows first");
         return;
     }
     let job = CalibrationJob {
         network: app.session.network.clone(),
         network_text: app.session.network_text.clone(),
-        tests,
-        excluded,
+        tests: input.tests,
+        warnings: input.warnings,
+        excluded: input.excluded,
         options: CalibrationOptions::for_units(app.session.network.units),
     };
     app.fit.failure = None;
@@ -1365,6 +1852,7 @@ fn finish_calibration(app: &mut App, result: Result<CalibrationResult, Calibrati
                 by_error,
             });
             app.fit.stale = false;
+            app.fit.export_out_of_date = false;
             app.fit.first_row = 0;
             app.map.selected = 0;
             app.rebuild_map();
@@ -1382,12 +1870,33 @@ fn finish_calibration(app: &mut App, result: Result<CalibrationResult, Calibrati
     }
 }
 
-/// Ctrl+E: asks where to export, offering this session's export folder if there is one.
+/// Ctrl+E: refuses a fit that did not converge, asks first about one the edits since have made out
+/// of date, then asks where to export.
 fn open_export_prompt(app: &mut App) {
-    if app.fit.outcome.is_none() {
+    let Some(outcome) = &app.fit.outcome else {
         app.error("nothing to export yet: run the fit first (Ctrl+R)");
         return;
+    };
+    if !outcome.result.converged {
+        app.error(
+            "the last fit did NOT converge: it is not a fit and is not exported; adjust the bounds or \
+             the sheet and run the fit again (Ctrl+R)",
+        );
+        return;
     }
+    if app.fit.stale && !app.fit.export_out_of_date {
+        app.confirm = Some(Confirm::ExportOutOfDate);
+        app.info(
+            "fit out of date: the sheet or groups changed since it ran. Ctrl+R fits again; export \
+             the old fit anyway (the report says so)? (y/n)",
+        );
+        return;
+    }
+    ask_export_folder(app);
+}
+
+/// Opens the export folder prompt, offering this session's export folder if there is one.
+fn ask_export_folder(app: &mut App) {
     let offered = app
         .export_folder
         .as_ref()
@@ -1433,7 +1942,14 @@ fn export(app: &mut App, force: bool, folder: Option<PathBuf>, effects: &mut Vec
         tests: &job.tests,
         excluded: &job.excluded,
         result: &outcome.result,
+        warnings: &job.warnings,
+        out_of_date: (app.fit.stale && app.fit.export_out_of_date).then_some(OUT_OF_DATE_ANSWER),
     };
+    if !outcome.result.converged || (app.fit.stale && !app.fit.export_out_of_date) {
+        // The prompt was opened before the state changed (a refit finished, an edit came in).
+        app.error("the fit changed while the export was asked for: press Ctrl+E again");
+        return;
+    }
     let outputs = match CalibrationOutputs::build(&run, &job.network_text) {
         Ok(outputs) => outputs,
         Err(e) => {

@@ -3,7 +3,7 @@
 
 use crossterm::event::{KeyCode, KeyEvent, KeyEventKind, KeyModifiers};
 
-use super::app::{Action, After, App, Move, View};
+use super::app::{Action, After, App, Confirm, Move, View};
 
 /// Every key, grouped for the help overlay: (section, [(keys, what they do)]). The first two sections
 /// fill the left column, the rest the right one; each description fits 25 characters.
@@ -64,8 +64,17 @@ pub const KEY_HELP: [(&str, &[(&str, &str)]); 6] = [
 
 /// The few keys that matter now, for the status line.
 pub fn key_hints(app: &App) -> &'static [(&'static str, &'static str)] {
-    if app.confirm.is_some() {
-        return &[("y", "yes"), ("n", "no")];
+    match app.confirm {
+        Some(Confirm::ExternalChange(_)) => {
+            return &[("y", "reload theirs, re-apply mine"), ("n", "keep both")];
+        }
+        Some(Confirm::QuitWithTyping) => {
+            return &[("y", "keep the typing, quit"), ("n", "back to it")];
+        }
+        Some(Confirm::QuitUnsaved) => return &[("y", "quit anyway"), ("n", "stay")],
+        Some(Confirm::ExportOutOfDate) => return &[("y", "export the old fit"), ("n", "cancel")],
+        Some(_) => return &[("y", "yes"), ("n", "no")],
+        None => {}
     }
     if app.help {
         return &[("Esc", "close help")];

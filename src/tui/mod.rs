@@ -10,6 +10,7 @@ pub mod demo;
 pub mod keymap;
 pub mod layout;
 pub mod map_model;
+pub mod merge;
 pub mod run;
 pub mod session;
 pub mod sheet_reading;
@@ -19,5 +20,7 @@ pub mod worker;
 
 pub use app::{Action, App, Effect, View, update};
 pub use run::{Runner, dispatch, run_terminal};
-pub use session::{OpenError, demo_folder, demo_in, new_sheet, open_files};
+pub use session::{
+    DemoCleanup, OpenError, clean_up_demo, demo_folder, demo_in, new_sheet, open_files,
+};
 pub use theme::Theme;

@@ -18,8 +18,9 @@ use super::app::{Action, App, Effect, ExportJob, SaveTarget, update};
 use super::keymap::action_for_key;
 use super::views;
 use super::worker::CalibrationWorker;
+use crate::fieldtest::load_sheet;
 use crate::report::{OutputWriteError, write_outputs};
-use crate::storage::{self, WriteError};
+use crate::storage::{self, FileStamp, WriteError};
 
 /// How files are written: [`storage::write_atomic`] normally; tests pass a failing one.
 pub type WriteFn = Box<dyn FnMut(&Path, &[u8]) -> Result<(), WriteError>>;
@@ -57,7 +58,13 @@ impl Runner {
                 path,
                 text,
                 keep_original,
+                expected,
             } => {
+                if let Some(changed) =
+                    self.changed_on_disk(SaveTarget::Sheet, &path, expected, &text)
+                {
+                    return vec![changed];
+                }
                 let kept = if keep_original {
                     storage::keep_original(&path).map(|_| ())
                 } else {
@@ -65,19 +72,50 @@ impl Runner {
                 };
                 let result = kept
                     .and_then(|()| (self.write)(&path, text.as_bytes()))
+                    .map(|()| FileStamp::of(&path).ok())
                     .map_err(|e| short_write_error(&path, &e));
                 vec![Action::SaveFinished {
                     target: SaveTarget::Sheet,
                     result,
                 }]
             }
-            Effect::SaveNetwork { path, text } => {
-                let result =
-                    (self.write)(&path, text.as_bytes()).map_err(|e| short_write_error(&path, &e));
+            Effect::SaveNetwork {
+                path,
+                text,
+                expected,
+            } => {
+                if let Some(changed) =
+                    self.changed_on_disk(SaveTarget::Network, &path, expected, &text)
+                {
+                    return vec![changed];
+                }
+                let result = (self.write)(&path, text.as_bytes())
+                    .map(|()| FileStamp::of(&path).ok())
+                    .map_err(|e| short_write_error(&path, &e));
                 vec![Action::SaveFinished {
                     target: SaveTarget::Network,
                     result,
                 }]
+            }
+            Effect::SaveSideFile { target, path, text } => {
+                let result = (self.write)(&path, text.as_bytes())
+                    .map(|()| FileStamp::of(&path).ok())
+                    .map_err(|e| short_write_error(&path, &e));
+                vec![Action::SideFileSaved { target, result }]
+            }
+            Effect::ReloadSheet(path) => {
+                let stamp = FileStamp::of(&path).ok();
+                let result = load_sheet(&path)
+                    .map(|sheet| (sheet, stamp))
+                    .map_err(|e| e.to_string());
+                vec![Action::SheetReloaded(Box::new(result))]
+            }
+            Effect::ReloadNetwork(path) => {
+                let stamp = FileStamp::of(&path).ok();
+                let result = std::fs::read_to_string(&path)
+                    .map(|text| (text, stamp))
+                    .map_err(|e| e.to_string());
+                vec![Action::NetworkReloaded(result)]
             }
             Effect::StartCalibration(job) => {
                 self.worker = Some(CalibrationWorker::spawn(*job));
@@ -91,6 +129,29 @@ impl Runner {
             }
             Effect::WriteExport(job) => vec![write_export(&job)],
         }
+    }
+
+    /// Before a save: when the file on disk is no longer the one last read or written (size,
+    /// modification time, hash), our text goes into the side file instead and the change is reported.
+    fn changed_on_disk(
+        &mut self,
+        target: SaveTarget,
+        path: &Path,
+        expected: Option<FileStamp>,
+        text: &str,
+    ) -> Option<Action> {
+        let expected = expected?;
+        if FileStamp::of(path).ok() == Some(expected) {
+            return None;
+        }
+        let side = storage::free_unsaved_copy_path(path);
+        let side_file = (self.write)(&side, text.as_bytes())
+            .map(|()| {
+                storage::copy_mode(path, &side);
+                (side.clone(), FileStamp::of(&side).ok())
+            })
+            .map_err(|e| short_write_error(&side, &e));
+        Some(Action::ExternalChange { target, side_file })
     }
 
     /// Whatever the worker has sent since the last call.
@@ -155,7 +216,7 @@ fn short_write_error(path: &Path, error: &WriteError) -> String {
         WriteError::Temporary { cause: source, .. }
         | WriteError::Write { cause: source, .. }
         | WriteError::Replace { cause: source, .. } => format!("cannot write {name}: {source}"),
-        WriteError::Exists { .. } => error.to_string(),
+        WriteError::Exists { .. } | WriteError::Keep { .. } => error.to_string(),
     }
 }
 

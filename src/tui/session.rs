@@ -3,7 +3,7 @@
 
 use std::path::{Path, PathBuf};
 
-use super::app::Session;
+use super::app::{FileState, Session};
 use crate::fieldtest::{FieldSheet, SheetError, load_sheet};
 use crate::network::file::{NetworkFileError, parse_network};
 use crate::storage::{self, WriteError};
@@ -11,30 +11,32 @@ use crate::storage::{self, WriteError};
 /// Why a session could not be opened.
 #[derive(Debug, thiserror::Error)]
 pub enum OpenError {
-    #[error("cannot read {path}: {source}")]
+    // Io errors are part of the message, not a `source`, and wrapped errors are transparent, so that an
+    // error chain prints each cause once.
+    #[error("cannot read {path}: {cause}")]
     Read {
         path: PathBuf,
-        source: std::io::Error,
+        cause: std::io::Error,
     },
-    #[error("{0}")]
+    #[error(transparent)]
     Network(#[from] NetworkFileError),
-    #[error("{0}")]
+    #[error(transparent)]
     Sheet(#[from] SheetError),
-    #[error("{0}")]
+    #[error(transparent)]
     Write(#[from] WriteError),
     #[error("{path} already exists; `roughcal open` works on an existing sheet")]
     SheetExists { path: PathBuf },
-    #[error("cannot make the demo folder {path}: {source}")]
+    #[error("cannot make the demo folder {path}: {cause}")]
     Scratch {
         path: PathBuf,
-        source: std::io::Error,
+        cause: std::io::Error,
     },
 }
 
 fn read_network(path: &Path) -> Result<(String, crate::network::Network), OpenError> {
-    let text = std::fs::read_to_string(path).map_err(|source| OpenError::Read {
+    let text = std::fs::read_to_string(path).map_err(|cause| OpenError::Read {
         path: path.to_path_buf(),
-        source,
+        cause,
     })?;
     let loaded = parse_network(&text, &path.display().to_string())?;
     Ok((text, loaded.network))
@@ -43,6 +45,9 @@ fn read_network(path: &Path) -> Result<(String, crate::network::Network), OpenEr
 /// Opens an existing network and sheet; the sheet's first state is kept as `SHEET.orig` on the first
 /// edit.
 pub fn open_files(network: &Path, sheet: &Path) -> Result<Session, OpenError> {
+    // Stamped before reading: a change in between makes the first save stop and ask, never overwrite.
+    let network_file = FileState::of(network);
+    let sheet_file = FileState::of(sheet);
     let (network_text, net) = read_network(network)?;
     let sheet_data = load_sheet(sheet)?;
     Ok(Session {
@@ -50,9 +55,12 @@ pub fn open_files(network: &Path, sheet: &Path) -> Result<Session, OpenError> {
         network_text,
         network: net,
         sheet_path: sheet.to_path_buf(),
+        sheet_base: sheet_data.clone(),
         sheet: sheet_data,
         scratch_folder: None,
         keep_original: true,
+        sheet_file,
+        network_file,
     })
 }
 
@@ -63,6 +71,7 @@ pub fn new_sheet(network: &Path, sheet: &Path) -> Result<Session, OpenError> {
             path: sheet.to_path_buf(),
         });
     }
+    let network_file = FileState::of(network);
     let (network_text, net) = read_network(network)?;
     let mut empty = FieldSheet::empty(net.units);
     empty.set_file_name(&sheet.display().to_string());
@@ -72,17 +81,20 @@ pub fn new_sheet(network: &Path, sheet: &Path) -> Result<Session, OpenError> {
         network_text,
         network: net,
         sheet_path: sheet.to_path_buf(),
+        sheet_base: empty.clone(),
         sheet: empty,
         scratch_folder: None,
         keep_original: false,
+        sheet_file: FileState::of(sheet),
+        network_file,
     })
 }
 
 /// The bundled demo, copied into `folder` (created if needed) and opened there.
 pub fn demo_in(folder: &Path) -> Result<Session, OpenError> {
-    std::fs::create_dir_all(folder).map_err(|source| OpenError::Scratch {
+    std::fs::create_dir_all(folder).map_err(|cause| OpenError::Scratch {
         path: folder.to_path_buf(),
-        source,
+        cause,
     })?;
     let network = folder.join(super::demo::NETWORK_FILE_NAME);
     let sheet = folder.join(super::demo::SHEET_FILE_NAME);
@@ -97,4 +109,81 @@ pub fn demo_in(folder: &Path) -> Result<Session, OpenError> {
 /// The demo's scratch folder for this process: `<temp>/roughcal-demo-<pid>`.
 pub fn demo_folder() -> PathBuf {
     std::env::temp_dir().join(format!("roughcal-demo-{}", std::process::id()))
+}
+
+/// What became of the demo's scratch folder when the workbench closed.
+#[derive(Debug)]
+pub enum DemoCleanup {
+    /// It held only the demo's own files and is gone.
+    Removed,
+    /// It holds files the user made there (exports): kept, with their names.
+    Kept { folder: PathBuf, yours: Vec<String> },
+    /// It could not be removed.
+    Failed {
+        folder: PathBuf,
+        cause: std::io::Error,
+    },
+}
+
+impl DemoCleanup {
+    /// The line to print, if any: where the folder is and why it stays.
+    pub fn message(&self) -> Option<String> {
+        match self {
+            Self::Removed => None,
+            Self::Kept { folder, yours } => Some(format!(
+                "the demo copy in {} stays: it holds what you made there ({}); remove the folder when \
+                 you are done with it",
+                folder.display(),
+                yours.join(", ")
+            )),
+            Self::Failed { folder, cause } => Some(format!(
+                "the demo copy in {} could not be removed ({cause}); remove it by hand",
+                folder.display()
+            )),
+        }
+    }
+}
+
+/// Removes the demo's scratch folder unless it holds something the user made (an export, say):
+/// the demo network and sheet, the sheet's kept original and temporary files of a save are the demo's
+/// own, anything else (an export, a side file of unsaved edits) is the user's.
+pub fn clean_up_demo(folder: &Path) -> DemoCleanup {
+    let network = super::demo::NETWORK_FILE_NAME;
+    let sheet = super::demo::SHEET_FILE_NAME;
+    let ours = |name: &str| {
+        [network, sheet].iter().any(|own| {
+            name == *own
+                || name == format!("{own}.orig")
+                || (name.starts_with(&format!(".{own}.")) && name.ends_with(".tmp"))
+        })
+    };
+    let entries = match std::fs::read_dir(folder) {
+        Ok(entries) => entries,
+        Err(cause) if cause.kind() == std::io::ErrorKind::NotFound => return DemoCleanup::Removed,
+        Err(cause) => {
+            return DemoCleanup::Failed {
+                folder: folder.to_path_buf(),
+                cause,
+            };
+        }
+    };
+    let mut yours: Vec<String> = entries
+        .flatten()
+        .map(|e| e.file_name().to_string_lossy().into_owned())
+        .filter(|name| !ours(name))
+        .collect();
+    if !yours.is_empty() {
+        yours.sort();
+        return DemoCleanup::Kept {
+            folder: folder.to_path_buf(),
+            yours,
+        };
+    }
+    match std::fs::remove_dir_all(folder) {
+        Ok(()) => DemoCleanup::Removed,
+        Err(cause) => DemoCleanup::Failed {
+            folder: folder.to_path_buf(),
+            cause,
+        },
+    }
 }

@@ -1,9 +1,9 @@
 //! The sheet as the workbench shows it: each row's findings and flow, from the field-test screening of
 //! [`crate::fieldtest`] (the one place the workbench calls it).
 
-use crate::calibrate::CalibrationTest;
 use crate::fieldtest::{
-    ExcludedTest, FieldSheet, Finding, Severity, SheetReading, calibration_tests, screen_sheet,
+    CalibrationInput, FieldSheet, Finding, Severity, SheetReading, StaticHeads, calibration_input,
+    screen_sheet, with_static_findings,
 };
 use crate::network::Network;
 
@@ -84,9 +84,15 @@ fn row_reading(
     }
 }
 
+/// The sheet screened against `net`, with the modelled-static check from `heads`: the same findings
+/// `roughcal tests` gives.
+fn screened(sheet: &FieldSheet, net: &Network, heads: &StaticHeads) -> SheetReading {
+    with_static_findings(net, screen_sheet(sheet, Some(net)), heads)
+}
+
 /// Every row of `sheet` read and screened against `net`.
-pub fn read_sheet(sheet: &FieldSheet, net: &Network) -> Vec<RowReading> {
-    let reading = screen_sheet(sheet, Some(net));
+pub fn read_sheet(sheet: &FieldSheet, net: &Network, heads: &StaticHeads) -> Vec<RowReading> {
+    let reading = screened(sheet, net, heads);
     (0..sheet.row_count())
         .map(|row| row_reading(sheet, &reading, row, row))
         .collect()
@@ -94,8 +100,8 @@ pub fn read_sheet(sheet: &FieldSheet, net: &Network) -> Vec<RowReading> {
 
 /// The tests of `sheet` calibration may use, resolved against `net`, and the ones left out with their
 /// reasons (when a fit starts: resolving every node id costs more than a key press may).
-pub fn fit_tests(sheet: &FieldSheet, net: &Network) -> (Vec<CalibrationTest>, Vec<ExcludedTest>) {
-    calibration_tests(net, &screen_sheet(sheet, Some(net)))
+pub fn fit_tests(sheet: &FieldSheet, net: &Network, heads: &StaticHeads) -> CalibrationInput {
+    calibration_input(net, &screened(sheet, net, heads))
 }
 
 /// A sheet with `sheet`'s header and no rows, for [`preview_row`].
@@ -113,6 +119,7 @@ pub fn preview_row(
     header: &FieldSheet,
     sheet: &FieldSheet,
     net: &Network,
+    heads: &StaticHeads,
     row: usize,
     column: usize,
     text: &str,
@@ -131,6 +138,6 @@ pub fn preview_row(
     if single.insert_row_cells(0, cells).is_err() {
         return RowReading::default();
     }
-    let reading = screen_sheet(&single, Some(net));
+    let reading = screened(&single, net, heads);
     row_reading(&single, &reading, 0, row)
 }

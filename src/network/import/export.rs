@@ -50,7 +50,7 @@ pub enum ExportError {
     NoPosition(String),
     #[error("pipe `{0}` has no roughness group: every pipe must fall under a rule")]
     NoGroup(String),
-    #[error("the network has pumps ({0}); a GIS export carries pipes and nodes only")]
+    #[error("the network has pumps or valves ({0}); a GIS export carries pipes and nodes only")]
     Pumps(String),
     #[error("the plan gives {given} materials for {groups} groups")]
     Materials { given: usize, groups: usize },
@@ -64,6 +64,10 @@ pub const NODE_ID: &str = "node_no";
 pub fn gis_export(net: &Network, plan: &ExportPlan) -> Result<GisExport, ExportError> {
     if !net.pumps.is_empty() {
         let ids: Vec<&str> = net.pumps.iter().map(|p| p.id.as_str()).collect();
+        return Err(ExportError::Pumps(ids.join(", ")));
+    }
+    if !net.valves.is_empty() {
+        let ids: Vec<&str> = net.valves.iter().map(|v| v.id.as_str()).collect();
         return Err(ExportError::Pumps(ids.join(", ")));
     }
     if plan.materials.len() != net.groups.len() {

@@ -1601,6 +1601,7 @@ impl Builder<'_> {
                 group: Some(*g),
                 closed: pipe.closed,
                 check_valve: false,
+                minor_loss: 0.0,
             });
         }
         for (rule, used) in config.rules.iter().zip(&rule_used) {
@@ -1627,8 +1628,10 @@ impl Builder<'_> {
             fixed_heads,
             pipes: network_pipes,
             pumps: Vec::new(),
+            valves: Vec::new(),
             groups,
             conditions: Vec::new(),
+            hazen_williams_constant: None,
             lonlat_origin: projection.map(|p| p.origin),
         };
         network.conditions = self.conditions(&network, problems);
@@ -1681,6 +1684,8 @@ impl Builder<'_> {
                 heads,
                 closed_pipes,
                 pumps_off: Vec::new(),
+                valve_settings: Vec::new(),
+                closed_valves: Vec::new(),
             });
         }
         conditions

@@ -53,11 +53,34 @@ fn title_bar(app: &App, frame: &mut Frame, area: Rect) {
         (None, Some(_)) => "fit done".to_string(),
         (None, None) => "no fit yet".to_string(),
     };
-    let saved = if app.unsaved || app.network_unsaved {
+    let saved = if app.sheet_conflict.is_some() || app.network_conflict.is_some() {
+        "CHANGED ON DISK, NOT SAVED"
+    } else if app.has_unsaved_edits() {
         "NOT SAVED"
     } else {
         "saved"
     };
+    let read_only = match (
+        app.session.sheet_file.read_only,
+        app.session.network_file.read_only,
+    ) {
+        (true, true) => "read-only | ",
+        (true, false) => "sheet read-only | ",
+        (false, true) => "network read-only | ",
+        (false, false) => "",
+    };
+    let style = if read_only.is_empty() {
+        theme.title()
+    } else {
+        theme.title_current()
+    };
+    if !read_only.is_empty() {
+        // Right after the name, so that a narrow terminal never cuts it off.
+        spans.insert(
+            1,
+            Span::styled(format!(" {} ", read_only.trim_end_matches(" | ")), style),
+        );
+    }
     spans.push(Span::styled(format!(" {saved} | {run} "), theme.title()));
     let used: usize = spans.iter().map(|s| s.content.chars().count()).sum();
     let rest = usize::from(area.width).saturating_sub(used);
