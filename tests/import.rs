@@ -591,6 +591,8 @@ fn import_then_calibrate_gives_a_pipes_csv_equal_to_calibrated_toml_per_pipe() {
         tests: &tests,
         excluded: &excluded,
         result: &result,
+        warnings: &[],
+        out_of_date: None,
     };
     let outputs = CalibrationOutputs::build(&run, &network_text).unwrap();
     let calibrated = parse_network(outputs.get(CALIBRATED_NETWORK).unwrap(), "calibrated.toml")
@@ -645,6 +647,8 @@ fn results_geojson_gives_lonlat_back_for_a_lonlat_import() {
         tests: &[],
         excluded: &[],
         result: &result,
+        warnings: &[],
+        out_of_date: None,
     };
     let text = roughcal::report::results_geojson(&run).unwrap();
     let out: geojson::FeatureCollection = text.parse().unwrap();
