@@ -49,6 +49,7 @@ fn network() -> Network {
             valve_settings: Vec::new(),
             closed_valves: Vec::new(),
         }],
+        lonlat_origin: None,
     }
 }
 

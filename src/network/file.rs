@@ -28,6 +28,7 @@ use std::path::Path;
 use toml::Spanned;
 use toml::de::{DeArray, DeTable, DeValue};
 
+use super::lonlat::LonLat;
 use super::model::{
     Condition, DEFAULT_GROUP_MAX_C, DEFAULT_GROUP_MIN_C, FixedHead, Junction, Network, NodeRef,
     Pipe, Pump, PumpCurve, RoughnessGroup,
@@ -388,6 +389,8 @@ enum Section {
 const ROOT_KEYS: &[&str] = &[
     "title",
     "units",
+    "origin_lon",
+    "origin_lat",
     "junction",
     "fixed_head",
     "pipe",
@@ -1113,6 +1116,7 @@ impl<'t> Reader<'t> {
             valves: Vec::new(),
             hazen_williams_constant: None,
             conditions: Vec::new(),
+            lonlat_origin: self.lonlat_origin(&root_rec),
         };
         let mut sources = SourceMap {
             file: self.file.clone(),
@@ -1336,6 +1340,37 @@ impl<'t> Reader<'t> {
             rec.label
         );
         self.report_at(rec, &span, message, absent);
+        None
+    }
+
+    /// `origin_lon` and `origin_lat` of the top level: both or neither, in range.
+    fn lonlat_origin(&mut self, rec: &Record<'_, '_>) -> Option<LonLat> {
+        let lon = self.finite(rec, "origin_lon", false);
+        let lat = self.finite(rec, "origin_lat", false);
+        let (given, span, absent) = match (lon, lat) {
+            (Got::Value(lon_deg, lon_span), Got::Value(lat_deg, lat_span)) => {
+                if !(-180.0..=180.0).contains(&lon_deg) {
+                    let message = format!(
+                        "`origin_lon` must be a longitude from -180 to 180 degrees, found `{lon_deg}`"
+                    );
+                    self.report(&lon_span, message, None, Some("origin_lon"));
+                    return None;
+                }
+                if !(-90.0..=90.0).contains(&lat_deg) {
+                    let message = format!(
+                        "`origin_lat` must be a latitude from -90 to 90 degrees, found `{lat_deg}`"
+                    );
+                    self.report(&lat_span, message, None, Some("origin_lat"));
+                    return None;
+                }
+                return Some(LonLat { lon_deg, lat_deg });
+            }
+            (Got::Value(_, span), Got::Absent) => ("origin_lon", span, "origin_lat"),
+            (Got::Absent, Got::Value(_, span)) => ("origin_lat", span, "origin_lon"),
+            _ => return None,
+        };
+        let message = format!("`{given}` given without `{absent}`: give both or neither");
+        self.report(&span, message, None, Some(absent));
         None
     }
 
@@ -1777,7 +1812,11 @@ fn list_ids(network: &Network, junctions: &[usize]) -> String {
 /// Which junctions reach a fixed head through links that are open (pipes not closed, pumps not off,
 /// and none of the extra `closed_pipes` / `pumps_off`). Direction is ignored: a check valve still
 /// connects.
-fn reachable(network: &Network, closed_pipes: &[usize], pumps_off: &[usize]) -> Vec<bool> {
+pub(crate) fn reachable(
+    network: &Network,
+    closed_pipes: &[usize],
+    pumps_off: &[usize],
+) -> Vec<bool> {
     let junction_count = network.junctions.len();
     let node_count = junction_count + network.fixed_heads.len();
     let index = |node: NodeRef| match node {

@@ -2,7 +2,10 @@
 
 pub mod edit;
 pub mod file;
+pub mod gis;
 pub mod graph;
+pub mod import;
+pub mod lonlat;
 pub mod model;
 mod pump_curve;
 pub mod suggest;
