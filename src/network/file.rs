@@ -1658,25 +1658,9 @@ impl<'t> Reader<'t> {
         if let Some(found) = self.get(rec, "heads") {
             match found.value {
                 DeValue::Table(table) => {
-                    let within = Record {
-                        label: rec.label,
-                        place: String::new(),
-                        allowed: &[],
-                        table,
-                        offset: rec.offset,
-                        inline: rec.inline || found.kind == "inline table",
-                        header: found.span.clone(),
-                        id: None,
-                    };
-                    // In file order, as the heads are listed.
-                    let mut entries: Vec<_> = table.iter().collect();
-                    entries.sort_by_key(|(key, _)| key.span().start);
-                    for (key_spanned, value) in entries {
-                        let key: &str = key_spanned.get_ref();
-                        let key_span = within.span(key_spanned);
-                        let value_span = self
-                            .found(&within, value.get_ref(), within.span(value), &key_span)
-                            .span;
+                    for (key, key_span, value, value_span) in
+                        self.entries_in_file_order(rec, &found, table)
+                    {
                         let target = match nodes.get(key) {
                             Some(Seen {
                                 target: NodeRef::FixedHead(index),
@@ -1703,7 +1687,7 @@ impl<'t> Reader<'t> {
                                 None
                             }
                         };
-                        match value_number(value.get_ref()) {
+                        match value_number(value) {
                             Some(head) if head.is_finite() => {
                                 if let Some(index) = target {
                                     heads.push((index, units.length_to_m(head)));
@@ -1746,6 +1730,43 @@ impl<'t> Reader<'t> {
             valve_settings,
             closed_valves: closed_valves.iter().map(index).collect(),
         }
+    }
+
+    /// The entries of a `{ id = value }` table found in `rec`, in file order: each key, its place, the
+    /// value and its place.
+    fn entries_in_file_order<'d, 'x>(
+        &self,
+        rec: &Record<'d, 'x>,
+        found: &Found<'d, 'x>,
+        table: &'d DeTable<'x>,
+    ) -> Vec<(&'d str, Span, &'d DeValue<'x>, Span)> {
+        let within = Record {
+            label: rec.label,
+            place: String::new(),
+            allowed: &[],
+            table,
+            offset: rec.offset,
+            inline: rec.inline || found.kind == "inline table",
+            header: found.span.clone(),
+            id: None,
+        };
+        let mut entries: Vec<_> = table.iter().collect();
+        entries.sort_by_key(|(key, _)| key.span().start);
+        entries
+            .into_iter()
+            .map(|(key, value)| {
+                let key_span = within.span(key);
+                let value_span = self
+                    .found(&within, value.get_ref(), within.span(value), &key_span)
+                    .span;
+                (
+                    key.get_ref().as_ref(),
+                    key_span,
+                    value.get_ref(),
+                    value_span,
+                )
+            })
+            .collect()
     }
 
     /// An optional number that must be finite and not negative (a loss coefficient).
@@ -1846,24 +1867,7 @@ impl<'t> Reader<'t> {
             );
             return settings;
         };
-        let within = Record {
-            label: rec.label,
-            place: String::new(),
-            allowed: &[],
-            table,
-            offset: rec.offset,
-            inline: rec.inline || found.kind == "inline table",
-            header: found.span.clone(),
-            id: None,
-        };
-        let mut entries: Vec<_> = table.iter().collect();
-        entries.sort_by_key(|(key, _)| key.span().start);
-        for (key_spanned, value) in entries {
-            let key: &str = key_spanned.get_ref();
-            let key_span = within.span(key_spanned);
-            let value_span = self
-                .found(&within, value.get_ref(), within.span(value), &key_span)
-                .span;
+        for (key, key_span, value, value_span) in self.entries_in_file_order(rec, &found, table) {
             let Some(LinkRef::Valve(index)) = links.get(key).map(|seen| seen.target) else {
                 let message = format!(
                     "condition `valve_settings` names `{key}`, which is not a valve of this file{}",
@@ -1872,7 +1876,7 @@ impl<'t> Reader<'t> {
                 self.report_at(rec, &key_span, message, "valve_settings");
                 continue;
             };
-            match value_number(value.get_ref()) {
+            match value_number(value) {
                 Some(setting) if setting.is_finite() && setting >= 0.0 => {
                     if let Some(valve) = network.valves.get(index) {
                         let internal = valve_setting_to_internal(valve.kind, setting, units);
