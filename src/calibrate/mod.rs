@@ -18,6 +18,7 @@
 mod evaluate;
 pub mod fireflow;
 mod optimizer;
+pub mod plan;
 mod statistics;
 
 use std::sync::atomic::AtomicBool;
