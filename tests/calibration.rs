@@ -399,3 +399,64 @@ fn groups_not_fitted_keep_each_pipes_own_c() {
     assert_eq!(result.pipe_c_after[feeds[0]], 130.0);
     assert_eq!(result.pipe_c_after[feeds[1]], 115.0);
 }
+
+/// Standard normal draws from a fixed-seed linear congruential generator (Knuth's MMIX constants) and
+/// the Box-Muller transform (both from memory): repeatable noise without a random-number crate.
+struct Normal(u64);
+
+impl Normal {
+    fn uniform(&mut self) -> f64 {
+        self.0 = self
+            .0
+            .wrapping_mul(6_364_136_223_846_793_005)
+            .wrapping_add(1_442_695_040_888_963_407);
+        ((self.0 >> 11) as f64 + 0.5) / (1u64 << 53) as f64
+    }
+
+    fn draw(&mut self) -> f64 {
+        let (u1, u2) = (self.uniform(), self.uniform());
+        (-2.0 * u1.ln()).sqrt() * (std::f64::consts::TAU * u2).cos()
+    }
+}
+
+#[test]
+fn fire_flow_interval_covers_the_true_flow_about_95_percent_of_the_time() {
+    // The 95 % interval is first order (the delta method, e.g. Casella and Berger, Statistical
+    // Inference, 5.5.4, from memory) through the fitted C covariance. Readings carry gauge noise of the
+    // assumed 1 psi; the model is exact apart from C, so coverage of the true model flow must be near
+    // 95 %: the band 85-99 % over 150 sheets x 6 tests (900 intervals: a binomial standard
+    // error of 0.7 points at 95 %).
+    use roughcal::calibrate::fireflow::fire_flow_estimates;
+    let truth = grid_network([80.0, 115.0, 100.0]);
+    let model = grid_network([100.0, 100.0, 100.0]);
+    let options = CalibrationOptions::for_units(UnitSystem::Us);
+    let clean = synthetic_readings(&truth, &PLAN, &[], "T");
+    let true_flow: Vec<f64> = fire_flow_estimates(
+        &truth,
+        &clean,
+        &truth.c_factors(),
+        &[],
+        &[],
+        options.target_residual_m,
+    )
+    .unwrap()
+    .iter()
+    .map(|e| e.flow.unwrap())
+    .collect();
+    let mut normal = Normal(20_261_203);
+    let (mut covered, mut total) = (0, 0);
+    for _ in 0..150 {
+        let noise: Vec<f64> = (0..2 * PLAN.len()).map(|_| normal.draw()).collect();
+        let tests = synthetic_readings(&truth, &PLAN, &noise, "T");
+        let result = run(&model, &tests, &options);
+        for (estimate, truth_q) in result.fire_flow.iter().zip(&true_flow) {
+            let (low, high) = estimate.ci95.expect("an interval for every test");
+            total += 1;
+            if (low..=high).contains(truth_q) {
+                covered += 1;
+            }
+        }
+    }
+    let rate = covered as f64 / total as f64;
+    assert!((0.85..=0.99).contains(&rate), "coverage {rate} ({covered} of {total})");
+}
