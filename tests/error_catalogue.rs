@@ -488,7 +488,9 @@ fn library_outcomes(s: &Scratch) -> Vec<Outcome> {
     };
     let us = PlanOptions::for_units(UnitSystem::Us);
     let mut nothing = fitted.clone();
-    nothing.covariance.clear();
+    for group in &mut nothing.groups {
+        group.status = roughcal::calibrate::GroupStatus::Locked;
+    }
     refusal("plan nothing fitted", plan(&nothing, &us));
     refusal(
         "plan no candidate",

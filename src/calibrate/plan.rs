@@ -5,7 +5,8 @@
 //! gauge for the flow to run, and the whitened sensitivities of those readings to each fitted group's C
 //! (the same adjoint rows the fit uses, [`super::TestEvaluation`]). Its value is the D-optimal gain
 //! log det(M + J'J) - log det(M), with M the current information matrix (the inverse of the fitted C
-//! covariance) and J the candidate's rows: the sampling-design criterion of Bush and Uber (1998),
+//! covariance; groups at a bound or not informed enter with a vague prior, [`VAGUE_PRIOR_SHARE_OF_RANGE`])
+//! and J the candidate's rows: the sampling-design criterion of Bush and Uber (1998),
 //! "Sampling design methods for water distribution model calibration", J. Water Resour. Plann. Manage.
 //! 124(6) (from memory). `count` tests are chosen greedily: each next one maximises the gain given M
 //! plus the rows of those already chosen.
@@ -22,7 +23,12 @@ use std::collections::BinaryHeap;
 
 use nalgebra::DMatrix;
 
-use super::{CalibrationOptions, CalibrationResult, FitTarget, INFORMED_C_CHANGE};
+use super::{CalibrationOptions, CalibrationResult, FitTarget, GroupStatus, INFORMED_C_CHANGE};
+
+/// Prior standard deviation of a group the fit could not estimate (at a bound or not informed), as a
+/// share of its bound range: a quarter puts the bounds two standard deviations either side of the
+/// middle (a vague prior; common practice, no source).
+pub const VAGUE_PRIOR_SHARE_OF_RANGE: f64 = 0.25;
 use crate::fieldtest::pitot::{DEFAULT_OUTLET_COEFFICIENT, pitot_flow};
 use crate::hydraulics::{GradientSolver, OperatingState, Solution, SolveError};
 use crate::network::{Network, NodeRef, UnitSystem};
@@ -93,9 +99,10 @@ pub struct PlanCandidate {
 /// A day's plan.
 #[derive(Debug, Clone, PartialEq)]
 pub struct TestPlan {
-    /// The fitted groups the plan informs, in the order of the standard errors.
+    /// The unlocked groups, in the order of the standard errors.
     pub groups: Vec<String>,
-    /// Standard error of each group now.
+    /// Standard error of each group now (for a group at a bound or not informed, the vague prior's,
+    /// [`VAGUE_PRIOR_SHARE_OF_RANGE`] of its bound range).
     pub current_std_error: Vec<f64>,
     /// Candidates meeting the limits, of all examined.
     pub feasible: usize,
@@ -107,9 +114,9 @@ pub struct TestPlan {
 #[derive(Debug, Clone, PartialEq, thiserror::Error)]
 pub enum PlanError {
     #[error(
-        "no group was fitted inside its bounds with a standard error, so there is no information to add to; calibrate with tests that inform the groups first"
+        "every roughness group is locked, so no test can add information; unlock a group first"
     )]
-    NothingFitted,
+    NothingToInform,
     #[error("--flow-hydrants must be 1 or 2, got {0}")]
     FlowHydrants(usize),
     #[error(
@@ -140,20 +147,46 @@ pub fn plan_tests(
     if !(1..=2).contains(&options.flow_hydrants) {
         return Err(PlanError::FlowHydrants(options.flow_hydrants));
     }
-    let p = result.correlation_groups.len();
-    let information = if result.covariance.len() == p && p > 0 {
-        let cov = DMatrix::from_fn(p, p, |a, b| result.covariance[a][b]);
-        cov.try_inverse().ok_or(PlanError::NothingFitted)?
-    } else {
-        return Err(PlanError::NothingFitted);
-    };
-    let group_pipes: Vec<Vec<usize>> = result
-        .correlation_groups
+    // Every unlocked group is planned for: those fitted inside their bounds carry the fit's
+    // information; a group at a bound or not informed enters with a vague prior only.
+    let planned: Vec<&super::GroupFit> = result
+        .groups
         .iter()
-        .map(|name| {
-            let g = net.groups.iter().position(|gr| &gr.name == name);
+        .filter(|g| g.status != GroupStatus::Locked)
+        .collect();
+    let p = planned.len();
+    if p == 0 {
+        return Err(PlanError::NothingToInform);
+    }
+    let mut information = DMatrix::<f64>::zeros(p, p);
+    let fitted_information = (result.covariance.len() == result.correlation_groups.len())
+        .then(|| {
+            let q = result.covariance.len();
+            DMatrix::from_fn(q, q, |a, b| result.covariance[a][b]).try_inverse()
+        })
+        .flatten();
+    let slot_in_fit = |name: &str| result.correlation_groups.iter().position(|n| n == name);
+    for (a, ga) in planned.iter().enumerate() {
+        match (&fitted_information, slot_in_fit(&ga.name)) {
+            (Some(fit), Some(sa)) => {
+                for (b, gb) in planned.iter().enumerate() {
+                    if let Some(sb) = slot_in_fit(&gb.name) {
+                        information[(a, b)] = fit[(sa, sb)];
+                    }
+                }
+            }
+            _ => {
+                let sd = VAGUE_PRIOR_SHARE_OF_RANGE * (ga.max_c - ga.min_c);
+                information[(a, a)] = 1.0 / (sd * sd);
+            }
+        }
+    }
+    let group_names: Vec<String> = planned.iter().map(|g| g.name.clone()).collect();
+    let group_pipes: Vec<Vec<usize>> = planned
+        .iter()
+        .map(|g| {
             (0..net.pipes.len())
-                .filter(|&k| g.is_some() && net.pipes[k].group == g)
+                .filter(|&k| net.pipes[k].group == Some(g.group))
                 .collect()
         })
         .collect();
@@ -291,7 +324,7 @@ pub fn plan_tests(
         let threshold = calibration.informed_response_sd / INFORMED_C_CHANGE;
         let informs = (0..p)
             .filter(|&g| s.rows.iter().any(|row| row[g].abs() >= threshold))
-            .map(|g| result.correlation_groups[g].clone())
+            .map(|g| group_names[g].clone())
             .collect();
         candidates.push(PlanCandidate {
             rank,
@@ -308,7 +341,7 @@ pub fn plan_tests(
         m = after;
     }
     Ok(TestPlan {
-        groups: result.correlation_groups.clone(),
+        groups: group_names,
         current_std_error,
         feasible,
         examined,
