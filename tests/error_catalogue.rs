@@ -451,7 +451,7 @@ fn library_outcomes(s: &Scratch) -> Vec<Outcome> {
         hydrant_flows_m3s: vec![(2, 0.08)],
         ..test(0)
     };
-    refusal("cancelled", fit(&[informing.clone()], true));
+    refusal("cancelled", fit(&[informing], true));
     // Readings the model itself gives, so the fit stays inside the bounds with a standard error.
     let solver = roughcal::hydraulics::GradientSolver::new(&net).unwrap();
     let base = roughcal::hydraulics::OperatingState::base(&net);

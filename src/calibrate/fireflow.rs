@@ -67,7 +67,7 @@ pub fn available_flow_gradient(
         .iter()
         .map(|&(j, q)| per_demand[j] * q / total)
         .sum();
-    if !(dp_dq < 0.0) {
+    if dp_dq.is_nan() || dp_dq >= 0.0 {
         return None;
     }
     Some(

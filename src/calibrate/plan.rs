@@ -450,7 +450,7 @@ fn flow_to_run(
         .iter()
         .map(|&j| statics.pressure_head_m(net, j).map_or(0.0, outlet_m3s))
         .fold(f64::INFINITY, f64::min);
-    if !(per_hydrant > 0.0) {
+    if per_hydrant.is_nan() || per_hydrant <= 0.0 {
         return Ok(None);
     }
     let mut warm = statics.clone();
