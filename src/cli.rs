@@ -62,6 +62,9 @@ pub enum Command {
         /// Iteration limit (loop corrections converge slowly on large grids).
         #[arg(long, default_value_t = 500)]
         iterations: usize,
+        /// Balance the network under this `[[condition]]` of the file.
+        #[arg(long)]
+        condition: Option<String>,
         #[arg(long)]
         json: bool,
     },
@@ -253,8 +256,9 @@ pub fn run(cli: Cli) -> anyhow::Result<ExitCode> {
         Some(Command::Loops {
             network,
             iterations,
+            condition,
             json,
-        }) => loops::run(&network, iterations, json),
+        }) => loops::run(&network, iterations, condition.as_deref(), json),
         Some(Command::Tests {
             network,
             sheet,

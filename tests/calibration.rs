@@ -31,6 +31,7 @@ fn pipe(id: usize, from: NodeRef, to: NodeRef, d_in: f64, c: f64, group: usize) 
         group: Some(group),
         closed: false,
         check_valve: false,
+        minor_loss: 0.0,
     }
 }
 
@@ -135,6 +136,8 @@ fn grid_network(c_by_group: [f64; 3]) -> Network {
         pipes,
         pumps: vec![],
         groups,
+        valves: Vec::new(),
+        hazen_williams_constant: None,
         conditions: vec![],
     }
 }
@@ -317,6 +320,7 @@ fn single_path_matches_the_head_loss_ratio_method() {
                 group: Some(0),
                 closed: false,
                 check_valve: false,
+                minor_loss: 0.0,
             },
             Pipe {
                 id: "M2".into(),
@@ -328,10 +332,13 @@ fn single_path_matches_the_head_loss_ratio_method() {
                 group: Some(0),
                 closed: false,
                 check_valve: false,
+                minor_loss: 0.0,
             },
         ],
         pumps: vec![],
         groups: vec![group("main", 40.0, 150.0)],
+        valves: Vec::new(),
+        hazen_williams_constant: None,
         conditions: vec![],
     };
     let static_psi = 200.0 * 0.4335;

@@ -365,6 +365,11 @@ fn apply_outcomes(s: &Scratch, net: &str) -> Vec<Outcome> {
             "stopped.toml",
             format!("{valid}status = \"not converged\"\n"),
         ),
+        (
+            "set constant without units",
+            "constant.toml",
+            format!("hazen_williams_constant = 10.5\n{valid}"),
+        ),
         ("set empty", "empty.csv", String::new()),
         (
             "set unknown group",
@@ -397,6 +402,22 @@ fn apply_outcomes(s: &Scratch, net: &str) -> Vec<Outcome> {
     let first = s.run("apply", &["apply", net, set, "--out", "applied.toml"]);
     assert!(!first.refused, "{}", first.text);
     out.push(s.run("apply again", &["apply", net, set, "--out", "applied.toml"]));
+    let other_constant = s.file(
+        "other-constant.toml",
+        format!("units = \"si\"\nhazen_williams_constant = 10.5088\n{valid}").as_bytes(),
+    );
+    let warned = s.run(
+        "apply another constant",
+        &[
+            "apply",
+            net,
+            other_constant.to_str().unwrap(),
+            "--out",
+            "other-applied.toml",
+        ],
+    );
+    assert!(!warned.refused, "{}", warned.text);
+    out.push(warned);
     out.push(s.run(
         "apply into a missing folder",
         &["apply", net, set, "--out", "missing/applied.toml"],

@@ -38,12 +38,16 @@ fn network() -> Network {
         pipes: vec![],
         pumps: vec![],
         groups: vec![],
+        valves: Vec::new(),
+        hazen_williams_constant: None,
         conditions: vec![Condition {
             name: "peak".into(),
             demand_factor: 1.5,
             heads: vec![],
             closed_pipes: vec![],
             pumps_off: vec![],
+            valve_settings: Vec::new(),
+            closed_valves: Vec::new(),
         }],
     }
 }

@@ -14,6 +14,8 @@ fn network(junctions: Vec<Junction>, fixed: Vec<FixedHead>, pipes: Vec<Pipe>) ->
         pipes,
         pumps: vec![],
         groups: vec![],
+        valves: Vec::new(),
+        hazen_williams_constant: None,
         conditions: vec![],
     }
 }
@@ -46,6 +48,7 @@ fn pipe(id: &str, from: NodeRef, to: NodeRef, length_m: f64, diameter_m: f64, c:
         group: None,
         closed: false,
         check_valve: false,
+        minor_loss: 0.0,
     }
 }
 

@@ -320,3 +320,52 @@ fn loops_flags_negative_pressure_and_prints_a_checked_balance() {
         "printed {printed}, recomputed {worst}"
     );
 }
+
+#[test]
+fn loops_under_a_condition_agrees_with_the_gradient_solver_and_names_what_it_cannot_model() {
+    let demo = concat!(env!("CARGO_MANIFEST_DIR"), "/demo-network/district.toml");
+    // As written the booster runs: every element the loop method has no law for is named.
+    let out = roughcal(&["loops", demo]);
+    assert!(!out.status.success());
+    let error = text(&out.stderr);
+    assert!(error.contains("pump `BP-1` is running"), "{error}");
+    assert!(error.contains("use `roughcal solve`"), "{error}");
+    let out = roughcal(&["loops", demo, "--condition", "noon"]);
+    assert!(
+        text(&out.stderr).contains("tue-am"),
+        "{}",
+        text(&out.stderr)
+    );
+
+    // Wednesday afternoon the booster is off: two independent methods, one answer (to the loop
+    // method's head tolerance, far below a gauge's resolution).
+    let out = roughcal(&[
+        "loops",
+        demo,
+        "--condition",
+        "wed-pm",
+        "--iterations",
+        "5000",
+        "--json",
+    ]);
+    assert!(out.status.success(), "{}", text(&out.stderr));
+    let loops: Value = serde_json::from_str(&text(&out.stdout)).unwrap();
+    let out = roughcal(&["solve", demo, "--condition", "wed-pm", "--json"]);
+    assert!(out.status.success(), "{}", text(&out.stderr));
+    let solved: Value = serde_json::from_str(&text(&out.stdout)).unwrap();
+    let head_of = |json: &Value, key: &str| -> Vec<(String, f64)> {
+        json[key]
+            .as_array()
+            .unwrap()
+            .iter()
+            .filter_map(|n| Some((n["id"].as_str()?.to_string(), n["head"].as_f64()?)))
+            .collect()
+    };
+    let by_loops = head_of(&loops, "junctions");
+    let by_gradient = head_of(&solved, "nodes");
+    assert!(!by_loops.is_empty() && by_loops.len() <= by_gradient.len());
+    for (id, head) in by_loops {
+        let (_, other) = by_gradient.iter().find(|(g, _)| *g == id).unwrap();
+        assert!((head - other).abs() < 0.05, "{id}: {head} vs {other} ft");
+    }
+}

@@ -176,6 +176,7 @@ mod tests {
             group: None,
             closed: false,
             check_valve: false,
+            minor_loss: 0.0,
         }
     }
 
@@ -201,6 +202,8 @@ mod tests {
                 pipe("B", NodeRef::Junction(0), NodeRef::Junction(1), 600.0, 90.0),
             ],
             pumps: vec![],
+            valves: Vec::new(),
+            hazen_williams_constant: None,
             groups: vec![],
             conditions: vec![],
         }

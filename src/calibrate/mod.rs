@@ -215,6 +215,8 @@ pub struct CalibrationResult {
     /// sum of squared whitened residuals / degrees of freedom at the solution (1 when the gauge accuracy
     /// explains the misfit).
     pub reduced_chi_square: Option<f64>,
+    /// The Hazen-Williams constant the C values belong to (the network's).
+    pub hazen_williams: crate::hydraulics::headloss::HwConstant,
 }
 
 impl CalibrationResult {
@@ -391,6 +393,7 @@ pub fn calibrate(
         ),
     };
     Ok(CalibrationResult {
+        hazen_williams: crate::hydraulics::headloss::HwConstant::of_network(net),
         groups: report.groups,
         correlation_groups: report.correlation_groups,
         correlation: report.correlation,

@@ -519,6 +519,7 @@ mod tests {
             group: Some(g),
             closed: false,
             check_valve: false,
+            minor_loss: 0.0,
         };
         Network {
             title: "line".into(),
@@ -543,6 +544,8 @@ mod tests {
                 pipe(4, NodeRef::Junction(2), 3, 1, c_b),
             ],
             pumps: vec![],
+            valves: Vec::new(),
+            hazen_williams_constant: None,
             groups: vec![group("A"), group("B")],
             conditions: vec![],
         }

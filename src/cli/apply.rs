@@ -28,6 +28,18 @@ pub fn run(
     let set = load_coefficients(coefficients)?;
     set.check_converged()?;
     set.check_against(&loaded.network)?;
+    if let Some((theirs, ours, scale)) = set.constant_mismatch(&loaded.network) {
+        eprintln!(
+            "roughcal: warning: {} was fitted with the Hazen-Williams constant {} ({}), {} uses {} ({}): \
+             the same losses would need every C multiplied by {scale:.4}; applied as written",
+            coefficients.display(),
+            theirs.k,
+            theirs.units.key(),
+            network.display(),
+            ours.k,
+            ours.units.key()
+        );
+    }
     let updated = apply_group_c(&text, &set.c_by_group()).with_context(|| {
         format!(
             "cannot apply {} to {}",

@@ -6,7 +6,7 @@ use std::path::Path;
 use std::process::ExitCode;
 
 use anyhow::Context as _;
-use roughcal::hydraulics::gradient::MASS_BALANCE_TOLERANCE;
+use roughcal::hydraulics::gradient::{MASS_BALANCE_TOLERANCE, named_condition};
 use roughcal::hydraulics::loops::{LoopError, LoopKind, LoopOptions, LoopSolution, solve_loops};
 use roughcal::network::file::load_network_file;
 use roughcal::network::{Network, NodeRef};
@@ -21,11 +21,22 @@ const REVIEW_NOTE: &str = "Results are an aid: have them reviewed by a licensed 
 /// Loop corrections printed on one line of the iteration table.
 const CORRECTIONS_PER_LINE: usize = 6;
 
-pub fn run(network: &Path, iterations: usize, json: bool) -> anyhow::Result<ExitCode> {
+pub fn run(
+    network: &Path,
+    iterations: usize,
+    condition: Option<&str>,
+    json: bool,
+) -> anyhow::Result<ExitCode> {
     let Some(loaded) = load_network_or_report(network, load_network_file)? else {
         return Ok(ExitCode::from(1));
     };
-    let net = loaded.network;
+    let mut net = loaded.network;
+    if let Some(name) = condition {
+        let found =
+            named_condition(&net, name).with_context(|| format!("{}", network.display()))?;
+        net = net.under_condition(found);
+        net.title = format!("{} under condition `{name}`", net.title);
+    }
     let options = LoopOptions {
         max_iterations: iterations,
         ..LoopOptions::default()

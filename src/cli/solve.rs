@@ -163,6 +163,7 @@ pub fn warning_lines(net: &Network, solution: &Solution) -> Vec<String> {
                 match link {
                     LinkRef::Pipe(k) => format!("pipe {}", net.pipes[*k].id),
                     LinkRef::Pump(k) => format!("pump {}", net.pumps[*k].id),
+                    LinkRef::Valve(k) => format!("valve {}", net.valves[*k].id),
                 }
             ),
         })

@@ -123,14 +123,13 @@ impl LoopSolution {
 /// Why the loop solver gave no answer.
 #[derive(Debug, Clone, PartialEq, Error)]
 pub enum LoopError {
+    /// Elements the loop method has no law for, every one of them listed.
     #[error(
-        "pump `{id}` is running: the loop method here supports pipes only (use the gradient solver)"
+        "the loop method here balances plain pipes only, and this network has {} element(s) it cannot model: {}; use `roughcal solve` (the gradient solver), or close or switch them off in a condition",
+        elements.len(),
+        elements.iter().map(|e| e.to_string()).collect::<Vec<_>>().join("; ")
     )]
-    Pump { id: String },
-    #[error(
-        "pipe `{id}` has a check valve: the loop method here supports plain pipes only (use the gradient solver)"
-    )]
-    CheckValve { id: String },
+    Unsupported { elements: Vec<UnsupportedElement> },
     #[error("{given} C-factors given for {pipes} pipes")]
     CFactorCount { given: usize, pipes: usize },
     #[error("pipe `{id}`: {field} must be positive and finite, not {value}")]
@@ -154,6 +153,21 @@ pub enum LoopError {
     },
 }
 
+/// One element of a network the loop method cannot model, and why.
+#[derive(Debug, Clone, PartialEq, Error)]
+pub enum UnsupportedElement {
+    #[error("pump `{id}` is running (a loop correction has no pump curve)")]
+    RunningPump { id: String },
+    #[error("pipe `{id}` has a check valve (the loop method cannot switch a pipe's status)")]
+    CheckValve { id: String },
+    #[error("valve `{id}` ({kind}) is in service (the loop method has no law for control valves)")]
+    ControlValve { id: String, kind: &'static str },
+    #[error(
+        "pipe `{id}` has a minor loss K = {k} (a loop correction assumes the single exponent 1.852)"
+    )]
+    MinorLoss { id: String, k: f64 },
+}
+
 /// The loops as flat lists, for the sweeps.
 struct LoopSet {
     loops: Vec<Loop>,
@@ -169,7 +183,7 @@ pub fn solve_loops(
     options: LoopOptions,
 ) -> Result<LoopSolution, LoopError> {
     check_supported(net, c_factors)?;
-    let law = HazenWilliams::for_units(net.units);
+    let law = HazenWilliams::for_network(net);
     let resistance: Vec<f64> = net
         .pipes
         .iter()
@@ -227,15 +241,39 @@ pub fn solve_loops(
 }
 
 fn check_supported(net: &Network, c_factors: &[f64]) -> Result<(), LoopError> {
-    if let Some(pump) = net.pumps.iter().find(|p| !p.off) {
-        return Err(LoopError::Pump {
-            id: pump.id.clone(),
+    let pumps = net
+        .pumps
+        .iter()
+        .filter(|p| !p.off)
+        .map(|p| UnsupportedElement::RunningPump { id: p.id.clone() });
+    let check_valves = net
+        .pipes
+        .iter()
+        .filter(|p| p.check_valve && !p.closed)
+        .map(|p| UnsupportedElement::CheckValve { id: p.id.clone() });
+    let valves =
+        net.valves
+            .iter()
+            .filter(|v| !v.closed)
+            .map(|v| UnsupportedElement::ControlValve {
+                id: v.id.clone(),
+                kind: v.kind.keyword(),
+            });
+    let minor_losses = net
+        .pipes
+        .iter()
+        .filter(|p| p.minor_loss != 0.0 && !p.closed)
+        .map(|p| UnsupportedElement::MinorLoss {
+            id: p.id.clone(),
+            k: p.minor_loss,
         });
-    }
-    if let Some(pipe) = net.pipes.iter().find(|p| p.check_valve && !p.closed) {
-        return Err(LoopError::CheckValve {
-            id: pipe.id.clone(),
-        });
+    let elements: Vec<UnsupportedElement> = pumps
+        .chain(check_valves)
+        .chain(valves)
+        .chain(minor_losses)
+        .collect();
+    if !elements.is_empty() {
+        return Err(LoopError::Unsupported { elements });
     }
     if c_factors.len() != net.pipes.len() {
         return Err(LoopError::CFactorCount {
@@ -466,6 +504,7 @@ mod tests {
             group: None,
             closed: false,
             check_valve: false,
+            minor_loss: 0.0,
         }
     }
 
@@ -478,6 +517,8 @@ mod tests {
             pipes,
             pumps: Vec::new(),
             groups: Vec::new(),
+            valves: Vec::new(),
+            hazen_williams_constant: None,
             conditions: Vec::new(),
         }
     }
@@ -667,10 +708,12 @@ mod tests {
         let mut net = synthetic::grid(2, 2, 1);
         net.pipes[0].check_valve = true;
         let c = net.c_factors();
-        assert!(matches!(
+        assert_eq!(
             solve_loops(&net, &c, LoopOptions::default()),
-            Err(LoopError::CheckValve { id }) if id == "P1"
-        ));
+            Err(LoopError::Unsupported {
+                elements: vec![UnsupportedElement::CheckValve { id: "P1".into() }]
+            })
+        );
         net.pipes[0].check_valve = false;
         net.pumps.push(Pump {
             id: "PU1".into(),
@@ -684,10 +727,25 @@ mod tests {
             },
             off: false,
         });
-        assert!(matches!(
-            solve_loops(&net, &c, LoopOptions::default()),
-            Err(LoopError::Pump { .. })
-        ));
+        net.pipes[1].minor_loss = 2.5;
+        net.pipes[2].check_valve = true;
+        // Every element it cannot model is named, not only the first.
+        match solve_loops(&net, &c, LoopOptions::default()) {
+            Err(LoopError::Unsupported { elements }) => assert_eq!(
+                elements,
+                vec![
+                    UnsupportedElement::RunningPump { id: "PU1".into() },
+                    UnsupportedElement::CheckValve { id: "P3".into() },
+                    UnsupportedElement::MinorLoss {
+                        id: "P2".into(),
+                        k: 2.5
+                    },
+                ]
+            ),
+            other => panic!("{other:?}"),
+        }
+        net.pipes[1].minor_loss = 0.0;
+        net.pipes[2].check_valve = false;
         net.pumps[0].off = true;
         assert!(solve_loops(&net, &c, LoopOptions::default()).is_ok());
         assert!(matches!(

@@ -703,6 +703,8 @@ impl<'t> Reader<'t> {
             pipes: Vec::new(),
             pumps: Vec::new(),
             groups: Vec::new(),
+            valves: Vec::new(),
+            hazen_williams_constant: None,
             conditions: Vec::new(),
         };
         let mut sources = SourceMap {
@@ -799,6 +801,7 @@ impl<'t> Reader<'t> {
                 group,
                 closed,
                 check_valve,
+                minor_loss: 0.0,
             });
         }
 
@@ -1188,6 +1191,8 @@ impl<'t> Reader<'t> {
             heads,
             closed_pipes,
             pumps_off,
+            valve_settings: Vec::new(),
+            closed_valves: Vec::new(),
         }
     }
 

@@ -20,6 +20,11 @@ pub struct Network {
     pub pumps: Vec<Pump>,
     pub groups: Vec<RoughnessGroup>,
     pub conditions: Vec<Condition>,
+    /// Control valves (pressure reducing, pressure sustaining, flow control, throttle).
+    pub valves: Vec<Valve>,
+    /// The Hazen-Williams constant K of the file, in the formula of its unit system (see
+    /// [`crate::hydraulics::headloss`]); `None` for the default of the unit system (10.44 us, 10.67 si).
+    pub hazen_williams_constant: Option<f64>,
 }
 
 /// A node whose head is unknown: a pipe joint, hydrant or service point.
@@ -49,6 +54,16 @@ pub enum NodeRef {
     FixedHead(usize),
 }
 
+impl NodeRef {
+    /// The junction index, if this is a junction.
+    pub fn junction(self) -> Option<usize> {
+        match self {
+            NodeRef::Junction(i) => Some(i),
+            NodeRef::FixedHead(_) => None,
+        }
+    }
+}
+
 /// A pipe with Hazen-Williams roughness.
 #[derive(Debug, Clone, PartialEq)]
 pub struct Pipe {
@@ -64,6 +79,62 @@ pub struct Pipe {
     pub closed: bool,
     /// Flow allowed only from `from` to `to`.
     pub check_valve: bool,
+    /// Minor-loss coefficient K of the fittings along the pipe: an extra head loss K v^2 / 2g (0 for none).
+    pub minor_loss: f64,
+}
+
+/// What a control valve regulates.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum ValveKind {
+    /// Pressure reducing: holds the pressure at its `to` end at the setting while the upstream head allows.
+    PressureReducing,
+    /// Pressure sustaining: holds the pressure at its `from` end at the setting.
+    PressureSustaining,
+    /// Flow control: lets at most the setting through, from `from` to `to`.
+    FlowControl,
+    /// Throttle: a fixed loss coefficient, the setting.
+    Throttle,
+}
+
+impl ValveKind {
+    /// The word of the network file (`kind = "prv"`).
+    pub fn keyword(self) -> &'static str {
+        match self {
+            Self::PressureReducing => "prv",
+            Self::PressureSustaining => "psv",
+            Self::FlowControl => "fcv",
+            Self::Throttle => "tcv",
+        }
+    }
+
+    /// The kind for a network-file word.
+    pub fn from_keyword(word: &str) -> Option<Self> {
+        [
+            Self::PressureReducing,
+            Self::PressureSustaining,
+            Self::FlowControl,
+            Self::Throttle,
+        ]
+        .into_iter()
+        .find(|k| k.keyword() == word)
+    }
+}
+
+/// A control valve between two nodes. Its head loss is set by its kind and setting, not by a length.
+#[derive(Debug, Clone, PartialEq)]
+pub struct Valve {
+    pub id: String,
+    pub from: NodeRef,
+    pub to: NodeRef,
+    pub diameter_m: f64,
+    pub kind: ValveKind,
+    /// In internal units: a pressure head (m of water above the controlled end's elevation) for
+    /// [`ValveKind::PressureReducing`] and [`ValveKind::PressureSustaining`], a flow (m^3/s) for
+    /// [`ValveKind::FlowControl`], the loss coefficient K for [`ValveKind::Throttle`].
+    pub setting: f64,
+    /// Loss coefficient K of the valve when fully open (0 for none).
+    pub minor_loss: f64,
+    pub closed: bool,
 }
 
 /// A pump adding head from `from` to `to` along a fitted quadratic curve.
@@ -140,6 +211,10 @@ pub struct Condition {
     pub closed_pipes: Vec<usize>,
     /// Indices of pumps off in this condition.
     pub pumps_off: Vec<usize>,
+    /// Valve setting overrides: (index into [`Network::valves`], setting in internal units).
+    pub valve_settings: Vec<(usize, f64)>,
+    /// Indices of valves closed in this condition.
+    pub closed_valves: Vec<usize>,
 }
 
 impl Network {
@@ -175,6 +250,44 @@ impl Network {
     /// Finds a group index by name.
     pub fn find_group(&self, name: &str) -> Option<usize> {
         self.groups.iter().position(|g| g.name == name)
+    }
+
+    /// This network as it stands under `condition`: base demands scaled, fixed-head grades overridden,
+    /// the condition's pipes and valves closed, its pumps off and its valve settings in force. For
+    /// methods that read a network as written (the loop method); the gradient solver takes the same
+    /// condition as an operating state instead.
+    pub fn under_condition(&self, condition: &Condition) -> Network {
+        let mut net = self.clone();
+        for junction in &mut net.junctions {
+            junction.demand_m3s *= condition.demand_factor;
+        }
+        for &(fixed, head_m) in &condition.heads {
+            if let Some(f) = net.fixed_heads.get_mut(fixed) {
+                f.head_m = head_m;
+            }
+        }
+        for &pipe in &condition.closed_pipes {
+            if let Some(p) = net.pipes.get_mut(pipe) {
+                p.closed = true;
+            }
+        }
+        for &pump in &condition.pumps_off {
+            if let Some(p) = net.pumps.get_mut(pump) {
+                p.off = true;
+            }
+        }
+        for &(valve, setting) in &condition.valve_settings {
+            if let Some(v) = net.valves.get_mut(valve) {
+                v.setting = setting;
+            }
+        }
+        for &valve in &condition.closed_valves {
+            if let Some(v) = net.valves.get_mut(valve) {
+                v.closed = true;
+            }
+        }
+        net.conditions.clear();
+        net
     }
 
     /// Current C-factor of every pipe, in pipe order.

@@ -489,6 +489,7 @@ impl Draft {
                 group: Some(band),
                 closed: false,
                 check_valve: false,
+                minor_loss: 0.0,
             });
         }
 
@@ -507,6 +508,8 @@ impl Draft {
                     locked: false,
                 })
                 .collect(),
+            valves: Vec::new(),
+            hazen_williams_constant: None,
             conditions: Vec::new(),
         };
         net.fixed_heads = self

@@ -277,6 +277,8 @@ mod tests {
                 heads: vec![(0, net.fixed_heads[0].head_m - 2.0)],
                 closed_pipes: vec![7, 9],
                 pumps_off: Vec::new(),
+                valve_settings: Vec::new(),
+                closed_valves: Vec::new(),
             });
             assert_same(&net, &network_toml(&net));
         }

@@ -12,7 +12,8 @@ use std::path::Path;
 use toml_edit::{ArrayOfTables, Document, DocumentMut, Item, Table, TableLike, Value};
 
 use crate::calibrate::{CAUTION, CalibrationResult, GroupStatus};
-use crate::network::Network;
+use crate::hydraulics::headloss::HwConstant;
+use crate::network::{Network, UnitSystem};
 
 /// Header of `coefficients.csv`, in order.
 pub const CSV_HEADER: [&str; 8] = [
@@ -94,6 +95,9 @@ pub struct CoefficientSet {
     /// Display name of the file, used in errors.
     pub file: String,
     pub entries: Vec<CoefficientEntry>,
+    /// The Hazen-Williams constant the C values belong to, when the set says (`coefficients.toml`
+    /// written since the constant was recorded; a CSV set does not say).
+    pub hazen_williams: Option<HwConstant>,
 }
 
 impl CoefficientSet {
@@ -123,6 +127,15 @@ impl CoefficientSet {
             }),
             None => Ok(()),
         }
+    }
+
+    /// When the set's C values belong to another Hazen-Williams constant than `net`'s, the factor they
+    /// would need (see [`HwConstant::c_scale_to`]); `None` when they agree or the set does not say.
+    pub fn constant_mismatch(&self, net: &Network) -> Option<(HwConstant, HwConstant, f64)> {
+        let ours = self.hazen_williams?;
+        let theirs = HwConstant::of_network(net);
+        let scale = ours.c_scale_to(theirs);
+        ((scale - 1.0).abs() > 1e-9).then_some((ours, theirs, scale))
     }
 
     /// Refuses a set whose status says the fit that made it did not converge: its C values are where
@@ -185,6 +198,10 @@ impl fmt::Display for CoefficientError {
 pub enum CoefficientErrorKind {
     #[error("cannot read the file: {0}")]
     Unreadable(String),
+    #[error(
+        "`units` and `hazen_williams_constant` go together: the constant means nothing without the unit system of its formula"
+    )]
+    ConstantWithoutUnits,
     #[error("a coefficient set is a .toml or a .csv file")]
     UnknownExtension,
     #[error("not valid {format}: {message}")]
@@ -285,18 +302,19 @@ pub fn parse_coefficients_toml(text: &str, file: &str) -> Result<CoefficientSet,
     })?;
     let root = document.as_table();
     for (key, item) in root.iter() {
-        if key != "group" {
+        if !TOML_TOP_KEYS.contains(&key) {
             let span = root.key(key).and_then(|k| k.span()).or_else(|| item.span());
             let line = place.line_of(span.map_or(0, |s| s.start));
             return Err(place.error(
                 line,
                 key,
                 CoefficientErrorKind::UnknownKey {
-                    allowed: vec!["group"],
+                    allowed: TOML_TOP_KEYS.to_vec(),
                 },
             ));
         }
     }
+    let hazen_williams = toml_constant(&place, root)?;
     let tables: Vec<(&dyn TableLike, usize)> = match root.get("group") {
         None => Vec::new(),
         Some(Item::ArrayOfTables(tables)) => tables
@@ -336,7 +354,65 @@ pub fn parse_coefficients_toml(text: &str, file: &str) -> Result<CoefficientSet,
     for (table, start) in tables {
         entries.push(toml_entry(&place, table, place.line_of(start))?);
     }
-    finish(&place, entries)
+    let mut set = finish(&place, entries)?;
+    set.hazen_williams = hazen_williams;
+    Ok(set)
+}
+
+/// Top-level keys of `coefficients.toml`.
+pub const TOML_TOP_KEYS: [&str; 3] = ["group", "units", "hazen_williams_constant"];
+
+/// `units` and `hazen_williams_constant` of a set: both or neither.
+fn toml_constant(
+    place: &Place<'_>,
+    root: &toml_edit::Table,
+) -> Result<Option<HwConstant>, CoefficientError> {
+    let line_of =
+        |key: &str| place.line_of(root.key(key).and_then(|k| k.span()).map_or(0, |s| s.start));
+    let units = match root.get("units").and_then(Item::as_value) {
+        None => None,
+        Some(value) => match value.as_str().and_then(UnitSystem::parse) {
+            Some(units) => Some(units),
+            None => {
+                return Err(place.error(
+                    line_of("units"),
+                    "units",
+                    wrong_type("\"us\" or \"si\"", value),
+                ));
+            }
+        },
+    };
+    let k = match root.get("hazen_williams_constant").and_then(Item::as_value) {
+        None => None,
+        Some(value) => match value
+            .as_float()
+            .or_else(|| value.as_integer().map(|i| i as f64))
+            .filter(|k| k.is_finite() && *k > 0.0)
+        {
+            Some(k) => Some(k),
+            None => {
+                return Err(place.error(
+                    line_of("hazen_williams_constant"),
+                    "hazen_williams_constant",
+                    wrong_type("a positive number", value),
+                ));
+            }
+        },
+    };
+    match (units, k) {
+        (Some(units), Some(k)) => Ok(Some(HwConstant { units, k })),
+        (None, None) => Ok(None),
+        (None, Some(_)) => Err(place.error(
+            line_of("hazen_williams_constant"),
+            "units",
+            CoefficientErrorKind::ConstantWithoutUnits,
+        )),
+        (Some(_), None) => Err(place.error(
+            line_of("units"),
+            "hazen_williams_constant",
+            CoefficientErrorKind::ConstantWithoutUnits,
+        )),
+    }
 }
 
 fn wrong_type(expected: &'static str, value: &Value) -> CoefficientErrorKind {
@@ -526,6 +602,7 @@ fn finish(
     Ok(CoefficientSet {
         file: place.file.to_string(),
         entries,
+        hazen_williams: None,
     })
 }
 
@@ -707,6 +784,13 @@ pub fn coefficients_toml(result: &CalibrationResult, network_file: &str) -> Stri
         groups.push(table);
     }
     let mut document = DocumentMut::new();
+    // The C values belong to this constant (C scales with K^(1/1.852)); `apply` compares it with the
+    // target network's.
+    document.insert("units", toml_edit::value(result.hazen_williams.units.key()));
+    document.insert(
+        "hazen_williams_constant",
+        toml_edit::value(result.hazen_williams.k),
+    );
     document.insert("group", Item::ArrayOfTables(groups));
     let mut out = String::new();
     out.push_str(&format!(
@@ -900,7 +984,7 @@ mod tests {
         );
         assert_eq!(
             toml_error("title = \"x\"\n[[group]]\nname = \"ci\"\nc = 80\n"),
-            "set.toml:1: title: unknown key; expected one of group"
+            "set.toml:1: title: unknown key; expected one of group, units, hazen_williams_constant"
         );
         assert!(
             toml_error("[[group]]\nname = \"ci\nc = 80\n")
@@ -983,6 +1067,8 @@ mod tests {
                 max_c: 140.0,
                 locked: false,
             }],
+            valves: Vec::new(),
+            hazen_williams_constant: None,
             conditions: vec![],
         };
         let set = parse_coefficients_toml(
@@ -999,5 +1085,51 @@ mod tests {
             csv.check_against(&net).unwrap_err().to_string(),
             "set.csv:2: group: the network has no group `pvc` (its groups: ci)"
         );
+    }
+
+    #[test]
+    fn a_set_says_which_constant_its_c_values_belong_to() {
+        use crate::network::{Network, UnitSystem};
+        let net = |units, k| Network {
+            title: String::new(),
+            units,
+            junctions: vec![],
+            fixed_heads: vec![],
+            pipes: vec![],
+            pumps: vec![],
+            groups: vec![],
+            valves: Vec::new(),
+            hazen_williams_constant: k,
+            conditions: vec![],
+        };
+        let set = parse_coefficients_toml(
+            "units = \"si\"\nhazen_williams_constant = 10.5088\n[[group]]\nname = \"ci\"\nc = 80\n",
+            "set.toml",
+        )
+        .unwrap();
+        assert_eq!(
+            set.hazen_williams,
+            Some(HwConstant {
+                units: UnitSystem::Si,
+                k: 10.5088
+            })
+        );
+        assert_eq!(
+            set.constant_mismatch(&net(UnitSystem::Si, Some(10.5088))),
+            None
+        );
+        // C scales with K^(1/1.852): the law is K / C^1.852.
+        let (_, _, scale) = set
+            .constant_mismatch(&net(UnitSystem::Si, None))
+            .expect("10.5088 against the default 10.67");
+        assert!((scale - (10.67f64 / 10.5088).powf(1.0 / 1.852)).abs() < 1e-12);
+        assert_eq!(
+            toml_error("units = \"si\"\n[[group]]\nname = \"ci\"\nc = 80\n"),
+            "set.toml:1: hazen_williams_constant: `units` and `hazen_williams_constant` go together: \
+             the constant means nothing without the unit system of its formula"
+        );
+        let old =
+            parse_coefficients_toml("[[group]]\nname = \"ci\"\nc = 80\n", "set.toml").unwrap();
+        assert_eq!(old.constant_mismatch(&net(UnitSystem::Us, None)), None);
     }
 }

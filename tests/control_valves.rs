@@ -1,0 +1,384 @@
+//! Control valves, minor losses and the Hazen-Williams constant against closed-form answers: each
+//! network here is small enough that the expected heads follow from the Hazen-Williams law and
+//! h = K v^2 / 2g by hand (any hydraulics handbook), so the solver is checked against arithmetic, not
+//! against itself.
+
+use roughcal::hydraulics::{GradientSolver, HazenWilliams, LinkStatus, OperatingState, Solution};
+use roughcal::network::{
+    FixedHead, Junction, Network, NodeRef, Pipe, UnitSystem, Valve, ValveKind,
+};
+
+const J: fn(usize) -> NodeRef = NodeRef::Junction;
+const F: fn(usize) -> NodeRef = NodeRef::FixedHead;
+
+/// A network in SI from (id, elevation m, demand m^3/s) junctions, (id, head m) fixed heads and
+/// (from, to, length m, diameter m, C) pipes.
+fn network(
+    junctions: &[(&str, f64, f64)],
+    fixed: &[(&str, f64)],
+    pipes: &[(NodeRef, NodeRef, f64, f64, f64)],
+) -> Network {
+    Network {
+        title: "valve check".into(),
+        units: UnitSystem::Si,
+        junctions: junctions
+            .iter()
+            .map(|&(id, elevation_m, demand_m3s)| Junction {
+                id: id.into(),
+                elevation_m,
+                demand_m3s,
+                position: None,
+            })
+            .collect(),
+        fixed_heads: fixed
+            .iter()
+            .map(|&(id, head_m)| FixedHead {
+                id: id.into(),
+                head_m,
+                position: None,
+            })
+            .collect(),
+        pipes: pipes
+            .iter()
+            .enumerate()
+            .map(|(k, &(from, to, length_m, diameter_m, c_factor))| Pipe {
+                id: format!("P{k}"),
+                from,
+                to,
+                length_m,
+                diameter_m,
+                c_factor,
+                group: None,
+                closed: false,
+                check_valve: false,
+                minor_loss: 0.0,
+            })
+            .collect(),
+        pumps: vec![],
+        groups: vec![],
+        conditions: vec![],
+        valves: vec![],
+        hazen_williams_constant: None,
+    }
+}
+
+fn valve(kind: ValveKind, from: NodeRef, to: NodeRef, setting: f64) -> Valve {
+    Valve {
+        id: format!("V-{}", kind.keyword()),
+        from,
+        to,
+        diameter_m: 0.2,
+        kind,
+        setting,
+        minor_loss: 0.0,
+        closed: false,
+    }
+}
+
+fn solve(net: &Network) -> Solution {
+    let solver = GradientSolver::new(net).expect("a fixed head");
+    solver
+        .solve(net, &OperatingState::base(net), &net.c_factors(), None)
+        .expect("converges")
+}
+
+/// Hazen-Williams loss (m) of pipe `k` of `net` at `q` m^3/s, with the SI constant 10.67.
+fn hw_loss(net: &Network, k: usize, q: f64) -> f64 {
+    let p = &net.pipes[k];
+    let r =
+        HazenWilliams::for_units(UnitSystem::Si).resistance(p.length_m, p.diameter_m, p.c_factor);
+    HazenWilliams::head_loss_m(r, q)
+}
+
+fn close(a: f64, b: f64, tolerance: f64) -> bool {
+    (a - b).abs() <= tolerance
+}
+
+/// Reservoir R at 100 m -> P0 (1,000 m, 300 mm) -> J1 (elevation 0, 10 L/s) -> PRV -> J2 (elevation 10)
+/// -> P1 (500 m, 200 mm) -> J3 (elevation 5, 20 L/s): a dead-end branch below a reducing valve.
+fn branch_below_a_prv(setting_m: f64) -> Network {
+    let mut net = network(
+        &[("J1", 0.0, 0.010), ("J2", 10.0, 0.0), ("J3", 5.0, 0.020)],
+        &[("R", 100.0)],
+        &[
+            (F(0), J(0), 1000.0, 0.3, 120.0),
+            (J(1), J(2), 500.0, 0.2, 110.0),
+        ],
+    );
+    net.valves
+        .push(valve(ValveKind::PressureReducing, J(0), J(1), setting_m));
+    net
+}
+
+#[test]
+fn a_prv_feeding_a_dead_end_holds_its_setting_and_upstream_sees_the_branch_as_a_demand() {
+    let net = branch_below_a_prv(40.0);
+    let s = solve(&net);
+    assert_eq!(s.valve_status[0], LinkStatus::Active);
+    // Downstream head = elevation 10 m + 40 m set pressure, exactly (the junction is pinned).
+    assert!(close(s.head_m[1], 50.0, 1e-9), "{}", s.head_m[1]);
+    assert!(close(s.pressure_head_m(&net, 1).unwrap(), 40.0, 1e-9));
+    // The valve carries the whole branch demand, and the branch loses the HW loss of 20 L/s in P1.
+    assert!(
+        close(s.valve_flow_m3s[0], 0.020, 1e-9),
+        "{}",
+        s.valve_flow_m3s[0]
+    );
+    assert!(close(s.head_m[2], 50.0 - hw_loss(&net, 1, 0.020), 1e-6));
+    // Upstream: J1 = 100 - loss of the 30 L/s through P0; the same as the network without the branch
+    // and 30 L/s drawn at J1.
+    let expected_j1 = 100.0 - hw_loss(&net, 0, 0.030);
+    assert!(
+        close(s.head_m[0], expected_j1, 1e-6),
+        "{} vs {expected_j1}",
+        s.head_m[0]
+    );
+    let plain = network(
+        &[("J1", 0.0, 0.030)],
+        &[("R", 100.0)],
+        &[(F(0), J(0), 1000.0, 0.3, 120.0)],
+    );
+    assert!(close(solve(&plain).head_m[0], s.head_m[0], 1e-6));
+    assert!(close(s.valve_head_loss_m[0], s.head_m[0] - 50.0, 1e-9));
+}
+
+#[test]
+fn a_prv_that_cannot_reach_its_setting_opens_fully() {
+    // Set to 95 m of pressure at 10 m elevation: a 105 m grade, above the 100 m reservoir.
+    let net = branch_below_a_prv(95.0);
+    let s = solve(&net);
+    assert_eq!(s.valve_status[0], LinkStatus::Open);
+    // Fully open with no loss coefficient: no head lost across it.
+    assert!(
+        close(s.head_m[1], s.head_m[0], 1e-5),
+        "{} vs {}",
+        s.head_m[1],
+        s.head_m[0]
+    );
+    assert!(close(s.valve_flow_m3s[0], 0.020, 1e-9));
+    assert!(close(s.head_m[0], 100.0 - hw_loss(&net, 0, 0.030), 1e-6));
+}
+
+#[test]
+fn reverse_flow_closes_a_prv() {
+    // A second, higher source on the low side: the valve would have to pass flow backwards.
+    let mut net = branch_below_a_prv(40.0);
+    net.fixed_heads.push(FixedHead {
+        id: "R-HIGH".into(),
+        head_m: 130.0,
+        position: None,
+    });
+    net.pipes.push(Pipe {
+        id: "P-HIGH".into(),
+        from: F(1),
+        to: J(2),
+        length_m: 800.0,
+        diameter_m: 0.25,
+        c_factor: 120.0,
+        group: None,
+        closed: false,
+        check_valve: false,
+        minor_loss: 0.0,
+    });
+    let s = solve(&net);
+    assert_eq!(s.valve_status[0], LinkStatus::ControlClosed);
+    assert_eq!(s.valve_flow_m3s[0], 0.0);
+    // Each side is then its own single-source branch.
+    assert!(close(s.head_m[0], 100.0 - hw_loss(&net, 0, 0.010), 1e-6));
+    assert!(close(s.head_m[2], 130.0 - hw_loss(&net, 2, 0.020), 1e-6));
+}
+
+/// R1 (100 m) -> P0 (1,000 m, 300 mm) -> J1 -> FCV -> J2 -> P1 (1,000 m, 300 mm) -> R2 (60 m).
+fn transfer_with_an_fcv(setting_m3s: f64) -> Network {
+    let mut net = network(
+        &[("J1", 0.0, 0.0), ("J2", 0.0, 0.0)],
+        &[("R1", 100.0), ("R2", 60.0)],
+        &[
+            (F(0), J(0), 1000.0, 0.3, 120.0),
+            (J(1), F(1), 1000.0, 0.3, 120.0),
+        ],
+    );
+    net.valves
+        .push(valve(ValveKind::FlowControl, J(0), J(1), setting_m3s));
+    net
+}
+
+#[test]
+fn an_fcv_caps_the_flow_at_its_setting() {
+    let net = transfer_with_an_fcv(0.015);
+    let s = solve(&net);
+    assert_eq!(s.valve_status[0], LinkStatus::Active);
+    assert!(close(s.valve_flow_m3s[0], 0.015, 1e-12));
+    assert!(close(s.head_m[0], 100.0 - hw_loss(&net, 0, 0.015), 1e-6));
+    assert!(close(s.head_m[1], 60.0 + hw_loss(&net, 1, 0.015), 1e-6));
+}
+
+#[test]
+fn an_fcv_set_above_the_natural_flow_stays_open() {
+    // Two equal pipes share the 40 m: the natural flow loses 20 m in each.
+    let net = transfer_with_an_fcv(10.0);
+    let s = solve(&net);
+    assert_eq!(s.valve_status[0], LinkStatus::Open);
+    let p = &net.pipes[0];
+    let r =
+        HazenWilliams::for_units(UnitSystem::Si).resistance(p.length_m, p.diameter_m, p.c_factor);
+    let natural = HazenWilliams::flow_for_head_loss(r, 20.0);
+    assert!(
+        close(s.valve_flow_m3s[0], natural, 1e-6 * natural),
+        "{} vs {natural}",
+        s.valve_flow_m3s[0]
+    );
+}
+
+#[test]
+fn a_psv_holds_its_upstream_pressure() {
+    // R1 (100 m) -> long P0 -> J1 (5 L/s) -> PSV -> J2 -> short P1 -> R2, a low tank at 20 m. Unregulated
+    // the tank would pull J1 down near its own level; the valve keeps J1 at 75 m of pressure.
+    let mut net = network(
+        &[("J1", 0.0, 0.005), ("J2", 0.0, 0.0)],
+        &[("R1", 100.0), ("R2", 20.0)],
+        &[
+            (F(0), J(0), 3000.0, 0.3, 120.0),
+            (J(1), F(1), 300.0, 0.3, 120.0),
+        ],
+    );
+    net.valves
+        .push(valve(ValveKind::PressureSustaining, J(0), J(1), 75.0));
+    let s = solve(&net);
+    assert_eq!(s.valve_status[0], LinkStatus::Active);
+    assert!(close(s.head_m[0], 75.0, 1e-9));
+    // What reaches J1 through P0 at a 25 m loss, less J1's own demand, passes the valve to the tank.
+    let p = &net.pipes[0];
+    let r =
+        HazenWilliams::for_units(UnitSystem::Si).resistance(p.length_m, p.diameter_m, p.c_factor);
+    let passed = HazenWilliams::flow_for_head_loss(r, 25.0) - 0.005;
+    assert!(
+        close(s.valve_flow_m3s[0], passed, 1e-7),
+        "{} vs {passed}",
+        s.valve_flow_m3s[0]
+    );
+    assert!(close(s.head_m[1], 20.0 + hw_loss(&net, 1, passed), 1e-6));
+}
+
+#[test]
+fn a_throttle_valve_equals_a_pipe_with_the_same_minor_loss() {
+    // J1 -> TCV (K = 6, 200 mm) -> J2 -> P1 (200 mm) against P1 itself carrying minor_loss = 6.
+    let mut with_valve = network(
+        &[("J1", 0.0, 0.0), ("J2", 0.0, 0.0), ("J3", 0.0, 0.025)],
+        &[("R", 80.0)],
+        &[
+            (F(0), J(0), 600.0, 0.3, 120.0),
+            (J(1), J(2), 400.0, 0.2, 120.0),
+        ],
+    );
+    with_valve
+        .valves
+        .push(valve(ValveKind::Throttle, J(0), J(1), 6.0));
+    let mut with_fittings = network(
+        &[("J1", 0.0, 0.0), ("J3", 0.0, 0.025)],
+        &[("R", 80.0)],
+        &[
+            (F(0), J(0), 600.0, 0.3, 120.0),
+            (J(0), J(1), 400.0, 0.2, 120.0),
+        ],
+    );
+    with_fittings.pipes[1].minor_loss = 6.0;
+    let a = solve(&with_valve);
+    let b = solve(&with_fittings);
+    assert!(
+        close(a.head_m[2], b.head_m[1], 1e-6),
+        "{} vs {}",
+        a.head_m[2],
+        b.head_m[1]
+    );
+    // And both against the formula: v = Q / A, h = 6 v^2 / 2g.
+    let area = std::f64::consts::PI * 0.2 * 0.2 / 4.0;
+    let v = 0.025 / area;
+    let minor = 6.0 * v * v / (2.0 * 9.80665);
+    let expected =
+        80.0 - hw_loss(&with_fittings, 0, 0.025) - hw_loss(&with_fittings, 1, 0.025) - minor;
+    assert!(
+        close(b.head_m[1], expected, 1e-6),
+        "{} vs {expected}",
+        b.head_m[1]
+    );
+    assert!(close(a.valve_head_loss_m[0], minor, 1e-6));
+}
+
+#[test]
+fn a_condition_changes_a_valve_setting_and_closes_a_valve() {
+    let net = branch_below_a_prv(40.0);
+    let solver = GradientSolver::new(&net).unwrap();
+    let mut state = OperatingState::base(&net);
+    state.valve_setting[0] = 30.0;
+    let s = solver.solve(&net, &state, &net.c_factors(), None).unwrap();
+    assert!(close(s.head_m[1], 40.0, 1e-9));
+    state.valve_closed[0] = true;
+    let s = solver.solve(&net, &state, &net.c_factors(), None).unwrap();
+    assert_eq!(s.valve_status[0], LinkStatus::Closed);
+    // The branch is cut off from every source.
+    assert!(s.isolated[1] && s.isolated[2]);
+}
+
+#[test]
+fn c_sensitivities_below_an_active_prv_match_finite_differences() {
+    // Below the valve the grade is set by the valve, so the upstream pipe's C cannot move J3; the
+    // branch pipe's C moves J3 by the derivative of its HW loss; J2 (pinned) moves with nothing.
+    let net = branch_below_a_prv(40.0);
+    let solver = GradientSolver::new(&net).unwrap();
+    let state = OperatingState::base(&net);
+    let c = net.c_factors();
+    let s = solver.solve(&net, &state, &c, None).unwrap();
+    for junction in [0, 1, 2] {
+        let analytic = s.head_sensitivity_to_c(&net, &c, junction).unwrap();
+        for k in 0..net.pipes.len() {
+            let h = 1e-4;
+            let mut up = c.clone();
+            up[k] += h;
+            let mut down = c.clone();
+            down[k] -= h;
+            let head = |cf: &[f64]| solver.solve(&net, &state, cf, None).unwrap().head_m[junction];
+            let numeric = (head(&up) - head(&down)) / (2.0 * h);
+            assert!(
+                close(analytic[k], numeric, 1e-6 + 1e-4 * numeric.abs()),
+                "junction {junction}, pipe {k}: {} vs {numeric}",
+                analytic[k]
+            );
+        }
+    }
+}
+
+#[test]
+fn minor_loss_sensitivities_leave_out_the_part_c_does_not_touch() {
+    // R -> P0 with fittings K = 10 -> J1 (30 L/s): dH/dC = 1.852 h_HW / C, not the whole loss.
+    let mut net = network(
+        &[("J1", 0.0, 0.030)],
+        &[("R", 100.0)],
+        &[(F(0), J(0), 1000.0, 0.2, 100.0)],
+    );
+    net.pipes[0].minor_loss = 10.0;
+    let s = solve(&net);
+    let analytic = s.head_sensitivity_to_c(&net, &net.c_factors(), 0).unwrap()[0];
+    let expected = 1.852 * hw_loss(&net, 0, 0.030) / 100.0;
+    assert!(
+        close(analytic, expected, 1e-6 * expected),
+        "{analytic} vs {expected}"
+    );
+}
+
+#[test]
+fn a_network_constant_changes_every_solve_as_the_law_says() {
+    // C under K = 10.5088 equals C (10.67 / 10.5088)^(1/1.852)... seen from the other side: a network
+    // whose file names K = 10.5088 solves like the default network with C scaled by
+    // (10.67 / 10.5088)^(1/1.852) (the law depends on K / C^1.852 only).
+    let mut own = network(
+        &[("J1", 0.0, 0.030)],
+        &[("R", 100.0)],
+        &[(F(0), J(0), 1000.0, 0.2, 100.0)],
+    );
+    own.hazen_williams_constant = Some(10.5088);
+    let mut scaled = own.clone();
+    scaled.hazen_williams_constant = None;
+    scaled.pipes[0].c_factor = HazenWilliams::equivalent_c(100.0, 10.5088, 10.67);
+    assert!(close(solve(&own).head_m[0], solve(&scaled).head_m[0], 1e-9));
+}
