@@ -10,6 +10,7 @@ mod apply;
 mod calibrate;
 mod check;
 mod fireflow;
+mod import;
 mod loops;
 mod plan;
 mod solve;
@@ -42,6 +43,13 @@ pub enum Command {
     Check {
         /// Network file (TOML).
         network: PathBuf,
+        /// Machine-readable output: the summary, or every defect with its place, on stdout.
+        #[arg(long, conflicts_with = "quiet")]
+        json: bool,
+        /// Print nothing for a good file (for scripts: the exit status says it); defects still go to
+        /// stderr.
+        #[arg(long, short = 'q')]
+        quiet: bool,
     },
     /// Solve the steady state of a network (global gradient algorithm).
     Solve {
@@ -148,6 +156,27 @@ pub enum Command {
         #[arg(long)]
         force: bool,
     },
+    /// Build a network file from a GIS export (GeoJSON or CSV pipes and nodes) and an import mapping.
+    Import {
+        /// The import mapping (IMPORT.toml): attribute names, units, snapping, group rules.
+        #[arg(long)]
+        config: PathBuf,
+        /// Pipes: a GeoJSON FeatureCollection of lines, or a CSV table with from/to node ids.
+        #[arg(long)]
+        pipes: PathBuf,
+        /// Nodes: a GeoJSON FeatureCollection of points, or a CSV table.
+        #[arg(long)]
+        nodes: PathBuf,
+        /// The network file to write.
+        #[arg(long)]
+        out: PathBuf,
+        /// Overwrite OUT if it exists.
+        #[arg(long)]
+        force: bool,
+        /// Print the summary as JSON.
+        #[arg(long)]
+        json: bool,
+    },
     /// Open the terminal workbench on a network and a field sheet (edits are saved to SHEET).
     Open { network: PathBuf, sheet: PathBuf },
     /// Start a new, empty field sheet from the template and open the workbench on it.
@@ -205,6 +234,19 @@ fn make_demo(root: &std::path::Path) -> anyhow::Result<ExitCode> {
         (root.join("demo-network/true-c.toml"), demo::true_c_toml()),
         (root.join("field-sheets/demo.csv"), demo::demo_sheet_csv()?),
     ];
+    let gis = demo::gis_district()?;
+    std::fs::create_dir_all(root.join("demo-network/gis"))?;
+    let files = files.into_iter().chain([
+        (
+            root.join("demo-network/gis/pipes.geojson"),
+            gis.pipes_geojson,
+        ),
+        (
+            root.join("demo-network/gis/nodes.geojson"),
+            gis.nodes_geojson,
+        ),
+        (root.join("demo-network/gis/IMPORT.toml"), gis.import_toml),
+    ]);
     for (path, text) in files {
         roughcal::storage::write_atomic(&path, text.as_bytes())?;
         println!("wrote {}", path.display());
@@ -246,7 +288,18 @@ pub fn load_network_or_report(
 pub fn run(cli: Cli) -> anyhow::Result<ExitCode> {
     match cli.command {
         None => ui::run_demo(),
-        Some(Command::Check { network }) => check::run(&network),
+        Some(Command::Check {
+            network,
+            json,
+            quiet,
+        }) => check::run(
+            &network,
+            match (json, quiet) {
+                (true, _) => check::Output::Json,
+                (false, true) => check::Output::Quiet,
+                (false, false) => check::Output::Text,
+            },
+        ),
         Some(Command::Solve {
             network,
             condition,
@@ -318,6 +371,21 @@ pub fn run(cli: Cli) -> anyhow::Result<ExitCode> {
             out,
             force,
         }) => apply::run(&network, &coefficients, &out, force),
+        Some(Command::Import {
+            config,
+            pipes,
+            nodes,
+            out,
+            force,
+            json,
+        }) => import::run(import::Args {
+            config: &config,
+            pipes: &pipes,
+            nodes: &nodes,
+            out: &out,
+            force,
+            json,
+        }),
         Some(Command::Open { network, sheet }) => ui::run_open(&network, &sheet),
         Some(Command::New { network, sheet }) => ui::run_new(&network, &sheet),
         Some(Command::MakeDemo { root }) => make_demo(&root),

@@ -605,6 +605,179 @@ pub fn demo_sheet_csv() -> Result<String, DemoError> {
     Ok(out)
 }
 
+/// The demo district as its (invented) GIS would export it, for `demo-network/gis/`: pipes and nodes
+/// as GeoJSON in the district's own plan feet, and the IMPORT.toml that reads them.
+///
+/// A GIS holds pipes and nodes, not pump curves, so the plant booster is exported the way a GIS
+/// skeleton usually carries a pump station: its discharge node `J-DISCH` becomes a fixed head at the
+/// grade the booster holds there (solved on the demo network at its start C, per test-day condition),
+/// and the plant, the suction node, the suction pipe and the pump are left out. On `wed-pm`, when the
+/// booster was off, the discharge main `P-003` is closed instead.
+pub fn gis_district() -> Result<crate::network::import::export::GisExport, DemoError> {
+    use crate::hydraulics::{GradientSolver, OperatingState};
+    use crate::network::import::Coordinates;
+    use crate::network::import::export::{ExportPlan, gis_export};
+    use crate::network::lonlat::LonLat;
+    use crate::network::{FixedHead, NodeRef};
+
+    let text = district_network_toml();
+    let net = crate::network::file::parse_network(&text, "district.toml")
+        .map_err(|e| DemoError::Network(e.to_string()))?
+        .network;
+    let missing = |what: &str| DemoError::Network(format!("the demo has no {what}"));
+    let discharge = net
+        .find_junction("J-DISCH")
+        .ok_or_else(|| missing("J-DISCH"))?;
+    let suction = net
+        .find_junction("J-SUCT")
+        .ok_or_else(|| missing("J-SUCT"))?;
+    let plant = match net.find_node("R-PLANT") {
+        Some(NodeRef::FixedHead(f)) => f,
+        _ => return Err(missing("R-PLANT")),
+    };
+    let solver = GradientSolver::new(&net)?;
+    let grade_m = |state: &OperatingState| -> Result<f64, DemoError> {
+        let solution = solver.solve(&net, state, &net.c_factors(), None)?;
+        Ok(solution.node_head_m(state, NodeRef::Junction(discharge)))
+    };
+    let base_grade_m = grade_m(&OperatingState::base(&net))?;
+
+    // Node lists without the suction node and the plant; the discharge node becomes a fixed head.
+    let mut gis = net.clone();
+    gis.pumps.clear();
+    let junction_map: Vec<Option<usize>> = {
+        let mut next = 0;
+        (0..net.junctions.len())
+            .map(|j| {
+                (j != discharge && j != suction).then(|| {
+                    next += 1;
+                    next - 1
+                })
+            })
+            .collect()
+    };
+    gis.junctions = net
+        .junctions
+        .iter()
+        .enumerate()
+        .filter(|(j, _)| junction_map.get(*j).copied().flatten().is_some())
+        .map(|(_, junction)| junction.clone())
+        .collect();
+    let discharge_junction = net
+        .junctions
+        .get(discharge)
+        .ok_or_else(|| missing("J-DISCH"))?;
+    let mut heads: Vec<FixedHead> = net
+        .fixed_heads
+        .iter()
+        .enumerate()
+        .filter(|(f, _)| *f != plant)
+        .map(|(_, head)| head.clone())
+        .collect();
+    let discharge_head = heads.len();
+    heads.push(FixedHead {
+        id: discharge_junction.id.clone(),
+        head_m: base_grade_m,
+        position: discharge_junction.position,
+    });
+    gis.fixed_heads = heads;
+    let head_map =
+        |f: usize| -> Option<usize> { (f != plant).then(|| if f > plant { f - 1 } else { f }) };
+    let remap = |node: NodeRef| -> Option<NodeRef> {
+        match node {
+            NodeRef::Junction(j) if j == discharge => Some(NodeRef::FixedHead(discharge_head)),
+            NodeRef::Junction(j) => junction_map
+                .get(j)
+                .copied()
+                .flatten()
+                .map(NodeRef::Junction),
+            NodeRef::FixedHead(f) => head_map(f).map(NodeRef::FixedHead),
+        }
+    };
+    let mut pipe_map = Vec::with_capacity(net.pipes.len());
+    gis.pipes.clear();
+    for pipe in &net.pipes {
+        match (remap(pipe.from), remap(pipe.to)) {
+            (Some(from), Some(to)) => {
+                pipe_map.push(Some(gis.pipes.len()));
+                gis.pipes.push(crate::network::Pipe {
+                    from,
+                    to,
+                    ..pipe.clone()
+                });
+            }
+            _ => pipe_map.push(None),
+        }
+    }
+    let discharge_main = gis
+        .pipes
+        .iter()
+        .position(|p| p.id == "P-003")
+        .ok_or_else(|| missing("P-003"))?;
+    gis.conditions.clear();
+    for condition in &net.conditions {
+        let state = OperatingState::for_condition(&net, condition);
+        let mut heads: Vec<(usize, f64)> = condition
+            .heads
+            .iter()
+            .filter_map(|&(f, h)| head_map(f).map(|g| (g, h)))
+            .collect();
+        let mut closed_pipes: Vec<usize> = condition
+            .closed_pipes
+            .iter()
+            .filter_map(|&k| pipe_map.get(k).copied().flatten())
+            .collect();
+        if condition.pumps_off.is_empty() {
+            heads.push((discharge_head, grade_m(&state)?));
+        } else {
+            closed_pipes.push(discharge_main);
+        }
+        gis.conditions.push(crate::network::Condition {
+            heads,
+            closed_pipes,
+            pumps_off: Vec::new(),
+            ..condition.clone()
+        });
+    }
+    // Grades to the file's 0.1 ft, as a GIS attribute would hold them.
+    let round_ft = |head_m: f64| {
+        net.units
+            .length_to_m((net.units.length_from_m(head_m) * 10.0).round() / 10.0)
+    };
+    for head in &mut gis.fixed_heads {
+        head.head_m = round_ft(head.head_m);
+    }
+    for condition in &mut gis.conditions {
+        for (_, head_m) in &mut condition.heads {
+            *head_m = round_ft(*head_m);
+        }
+    }
+
+    let plan = ExportPlan {
+        coordinates: Coordinates::Projected,
+        origin: LonLat {
+            lon_deg: 0.0,
+            lat_deg: 0.0,
+        },
+        snap: 2.0,
+        bend_every: 9,
+        offset_every: 4,
+        materials: vec![
+            ("CI".into(), 1925),
+            ("CICL".into(), 1958),
+            ("DI".into(), 1984),
+            ("PVC".into(), 2006),
+            ("DI".into(), 1992),
+        ],
+        header: "Alder Flats (invented demo district) as its GIS exports it: roughcal's import mapping.\n\
+                 Pipes: pipes.geojson (LineStrings, plan feet); nodes: nodes.geojson (Points).\n\
+                 Generated by `roughcal make-demo`; edit the generator, not this file.\n\
+                 roughcal import --config IMPORT.toml --pipes pipes.geojson --nodes nodes.geojson --out district.toml"
+            .into(),
+    };
+    gis_export(&gis, &plan).map_err(|e| DemoError::Network(e.to_string()))
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;

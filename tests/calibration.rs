@@ -139,6 +139,7 @@ fn grid_network(c_by_group: [f64; 3]) -> Network {
         valves: Vec::new(),
         hazen_williams_constant: None,
         conditions: vec![],
+        lonlat_origin: None,
     }
 }
 
@@ -340,6 +341,7 @@ fn single_path_matches_the_head_loss_ratio_method() {
         valves: Vec::new(),
         hazen_williams_constant: None,
         conditions: vec![],
+        lonlat_origin: None,
     };
     let static_psi = 200.0 * 0.4335;
     let test = CalibrationTest {

@@ -570,6 +570,7 @@ fn every_catalogued_error_happens_and_every_refusal_is_catalogued() {
     };
     let mut outcomes = cli_outcomes(&scratch);
     outcomes.extend(library_outcomes(&scratch));
+    outcomes.extend(import_outcomes(&scratch));
 
     let missing: Vec<&String> = phrases
         .iter()
@@ -590,6 +591,293 @@ fn every_catalogued_error_happens_and_every_refusal_is_catalogued() {
             outcome.text
         );
     }
+}
+
+const IMPORT_CONFIG: &str = r#"units = "us"
+snap = 0.5
+[pipe_fields]
+id = "pipe_no"
+diameter = "dia"
+length = "len"
+c = "hw_c"
+material = "mat"
+year = "yr"
+from = "from_node"
+to = "to_node"
+[node_fields]
+id = "node_no"
+elevation = "elev"
+head = "hgl"
+[[rule]]
+group = "ci"
+material = ["CI"]
+year_from = 1900
+year_to = 1949
+c = 85
+[[rule]]
+group = "pvc"
+material = ["PVC"]
+c = 140
+"#;
+
+const IMPORT_NODES: &str = r#"{"type": "FeatureCollection", "features": [
+{"type": "Feature", "geometry": {"type": "Point", "coordinates": [0, 0]}, "properties": {"node_no": "T", "hgl": 300}},
+{"type": "Feature", "geometry": {"type": "Point", "coordinates": [100, 0]}, "properties": {"node_no": "A", "elev": 100}},
+{"type": "Feature", "geometry": {"type": "Point", "coordinates": [200, 0]}, "properties": {"node_no": "B", "elev": 90}}
+]}"#;
+
+fn import_pipe(id: &str, line: &str, props: &str) -> String {
+    format!(
+        r#"{{"type": "Feature", "geometry": {{"type": "LineString", "coordinates": {line}}}, "properties": {{"pipe_no": "{id}", {props}}}}}"#
+    )
+}
+
+fn import_pipes(extra: &[String]) -> String {
+    let mut features = vec![
+        import_pipe(
+            "P-1",
+            "[[0, 0], [100, 0]]",
+            r#""dia": 8, "mat": "CI", "yr": 1925"#,
+        ),
+        import_pipe(
+            "P-2",
+            "[[100, 0], [200, 0]]",
+            r#""dia": 8, "mat": "CI", "yr": 1925"#,
+        ),
+    ];
+    features.extend(extra.iter().cloned());
+    format!(
+        "{{\"type\": \"FeatureCollection\", \"features\": [{}]}}",
+        features.join(",\n")
+    )
+}
+
+/// Every import refusal and warning, through the library (and the command for its own messages).
+fn import_outcomes(s: &Scratch) -> Vec<Outcome> {
+    use roughcal::network::import::{ImportInput, Source, SourceFormat, import_network};
+    let mut out = Vec::new();
+    let mut import = |label: &str,
+                      config: &str,
+                      pipes: &str,
+                      pipes_format: SourceFormat,
+                      nodes: &str,
+                      nodes_format: SourceFormat| {
+        let input = ImportInput {
+            config_file: "IMPORT.toml",
+            config_text: config,
+            pipes: Source {
+                file: "pipes.geojson",
+                text: pipes,
+                format: pipes_format,
+            },
+            nodes: Source {
+                file: "nodes.geojson",
+                text: nodes,
+                format: nodes_format,
+            },
+        };
+        let outcome = match import_network(&input).and_then(|imported| {
+            imported.network_toml(&input, "2026-12-03")?;
+            Ok(imported)
+        }) {
+            Ok(imported) => Outcome {
+                label: label.into(),
+                refused: false,
+                text: imported
+                    .warnings
+                    .iter()
+                    .map(|w| w.to_string())
+                    .collect::<Vec<_>>()
+                    .join("\n"),
+            },
+            Err(error) => Outcome {
+                label: label.into(),
+                refused: true,
+                text: error.to_string(),
+            },
+        };
+        out.push(outcome);
+    };
+    let geo = SourceFormat::GeoJson;
+    let csv = SourceFormat::Csv;
+    let cfg = |from: &str, to: &str| {
+        assert!(IMPORT_CONFIG.contains(from), "{from}");
+        IMPORT_CONFIG.replacen(from, to, 1)
+    };
+    let pipes = import_pipes(&[]);
+    let with = |props: &str| import_pipes(&[import_pipe("P-9", "[[100, 0], [200, 0]]", props)]);
+    let ci = r#""dia": 8, "mat": "CI", "yr": 1925"#;
+    let configs = [
+        ("unknown key", cfg("snap = 0.5", "snapp = 0.5")),
+        ("negative snap", cfg("snap = 0.5", "snap = -1")),
+        (
+            "no rule",
+            IMPORT_CONFIG.split("[[rule]]").next().unwrap().to_string(),
+        ),
+        ("bounds", cfg("c = 85", "c = 85\nmin = 130\nmax = 30")),
+        ("years", cfg("year_from = 1900", "year_from = 1950")),
+        ("no year field", cfg("year = \"yr\"\n", "")),
+        (
+            "rules disagree",
+            format!("{IMPORT_CONFIG}[[rule]]\ngroup = \"ci\"\nc = 90\n"),
+        ),
+        (
+            "condition head",
+            format!(
+                "{IMPORT_CONFIG}[[condition]]\nname = \"tue-am\"\nheads = {{ \"T-9\" = 290 }}\n"
+            ),
+        ),
+        (
+            "condition pipe",
+            format!("{IMPORT_CONFIG}[[condition]]\nname = \"tue-am\"\nclosed = [\"P-99\"]\n"),
+        ),
+    ];
+    for (label, config) in &configs {
+        import(label, config, &pipes, geo, IMPORT_NODES, geo);
+    }
+    let point = r#"{"type": "Point", "coordinates": [0, 0]}"#;
+    import(
+        "not a collection",
+        IMPORT_CONFIG,
+        point,
+        geo,
+        IMPORT_NODES,
+        geo,
+    );
+    import(
+        "cut short",
+        IMPORT_CONFIG,
+        "{\"type\": \"FeatureCollection\", \"features\": [\n",
+        geo,
+        IMPORT_NODES,
+        geo,
+    );
+    import(
+        "no column",
+        IMPORT_CONFIG,
+        "pipe_no,from_node,to_node,diameter\nP-1,T,A,8\n",
+        csv,
+        IMPORT_NODES,
+        geo,
+    );
+    import(
+        "empty",
+        IMPORT_CONFIG,
+        &pipes,
+        geo,
+        r#"{"type": "FeatureCollection", "features": []}"#,
+        geo,
+    );
+    let cases = [
+        ("no id", import_pipes(&[import_pipe("", "[[100, 0], [200, 0]]", ci)])),
+        ("duplicate", import_pipes(&[import_pipe("P-1", "[[100, 0], [200, 0]]", ci)])),
+        ("no diameter", with(r#""mat": "CI", "yr": 1925"#)),
+        ("not a number", with(r#""dia": "eight", "mat": "CI", "yr": 1925"#)),
+        ("negative", with(r#""dia": -8, "mat": "CI", "yr": 1925"#)),
+        ("mixed units", with(r#""dia": "200 mm", "mat": "CI", "yr": 1925"#)),
+        (
+            "point pipe",
+            import_pipes(&[r#"{"type": "Feature", "geometry": {"type": "Point", "coordinates": [1, 2]}, "properties": {"pipe_no": "P-9", "dia": 8}}"#.to_string()]),
+        ),
+        (
+            "no geometry",
+            import_pipes(&[r#"{"type": "Feature", "geometry": null, "properties": {"pipe_no": "P-9", "dia": 8}}"#.to_string()]),
+        ),
+        ("one position", import_pipes(&[import_pipe("P-9", "[[100, 0]]", ci)])),
+        ("far end", import_pipes(&[import_pipe("P-9", "[[100, 0], [200, 9]]", ci)])),
+        ("loop", import_pipes(&[import_pipe("P-9", "[[100, 0], [150, 20], [100.2, 0]]", ci)])),
+        ("zero length", with(r#""dia": 8, "len": 0, "mat": "CI", "yr": 1925"#)),
+        ("no rule matches", with(r#""dia": 8, "mat": "PE", "yr": 1990"#)),
+    ];
+    for (label, pipes) in &cases {
+        import(label, IMPORT_CONFIG, pipes, geo, IMPORT_NODES, geo);
+    }
+    let two = import_pipes(&[])
+        .replace(r#",
+{"type": "Feature", "geometry": {"type": "LineString", "coordinates": [[100, 0], [200, 0]]}, "properties": {"pipe_no": "P-2", "dia": 8, "mat": "CI", "yr": 1925}}"#, "");
+    import("unreached", IMPORT_CONFIG, &two, geo, IMPORT_NODES, geo);
+    import(
+        "lonlat",
+        &cfg("snap = 0.5", "snap = 0.5\ncoordinates = \"lonlat\""),
+        &pipes.replace("200, 0", "20, 0"),
+        geo,
+        &IMPORT_NODES.replace("200, 0", "200, 95"),
+        geo,
+    );
+    import(
+        "unknown csv node",
+        IMPORT_CONFIG,
+        "pipe_no,from_node,to_node,dia,len,mat,yr\nP-1,T,A,8,100,CI,1925\nP-2,A,X,8,100,CI,1925\n",
+        csv,
+        IMPORT_NODES,
+        geo,
+    );
+    import(
+        "no source",
+        IMPORT_CONFIG,
+        &pipes,
+        geo,
+        &IMPORT_NODES.replace(r#""hgl": 300"#, r#""elev": 120"#),
+        geo,
+    );
+    let new_junctions = cfg("snap = 0.5", "snap = 0.5\nnew_junctions = true");
+    import(
+        "island of new junctions",
+        &new_junctions,
+        &import_pipes(&[import_pipe("P-9", "[[500, 0], [600, 0]]", ci)]),
+        geo,
+        IMPORT_NODES,
+        geo,
+    );
+    import(
+        "warnings",
+        &new_junctions,
+        &import_pipes(&[import_pipe(
+            "P-7",
+            "[[200, 0], [200.5, 30]]",
+            r#""dia": 150, "mat": "CI", "yr": 1925, "hw_c": 160, "len": 0.5"#,
+        )]),
+        geo,
+        IMPORT_NODES,
+        geo,
+    );
+
+    let gis = Path::new(env!("CARGO_MANIFEST_DIR")).join("demo-network/gis");
+    let gis = gis.to_str().unwrap();
+    let existing = s.file("imported.toml", b"kept");
+    let args = |config: &str, pipes: &str, out: &str| -> Vec<String> {
+        ["import", "--config", config, "--pipes", pipes, "--nodes"]
+            .iter()
+            .map(|a| a.to_string())
+            .chain([format!("{gis}/nodes.geojson"), "--out".into(), out.into()])
+            .collect()
+    };
+    let run = |label: &str, a: Vec<String>| {
+        s.run(label, &a.iter().map(String::as_str).collect::<Vec<_>>())
+    };
+    let pipes_file = format!("{gis}/pipes.geojson");
+    let config_file = format!("{gis}/IMPORT.toml");
+    out.push(run(
+        "no config",
+        args("no-such-import.toml", &pipes_file, "never-written.toml"),
+    ));
+    out.push(run(
+        "shapefile",
+        args(&config_file, "mains.shp", "never-written.toml"),
+    ));
+    out.push(run(
+        "existing out",
+        args(&config_file, &pipes_file, existing.to_str().unwrap()),
+    ));
+    for outcome in &out {
+        let expected_refusal = !matches!(outcome.label.as_str(), "warnings");
+        assert_eq!(
+            outcome.refused, expected_refusal,
+            "{}: {}",
+            outcome.label, outcome.text
+        );
+    }
+    out
 }
 
 /// The severity each row of "Findings of single rows" gives in its example (`: error:` or

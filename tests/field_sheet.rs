@@ -49,6 +49,7 @@ fn network() -> Network {
             valve_settings: Vec::new(),
             closed_valves: Vec::new(),
         }],
+        lonlat_origin: None,
     }
 }
 
@@ -677,7 +678,7 @@ fn fireflow_json() {
     );
     let json: serde_json::Value = serde_json::from_slice(&out.stdout).unwrap();
     assert_eq!(json["target"], 20.0);
-    assert_eq!(json["units"], "us");
+    assert_eq!(json["units"]["system"], "us");
     let tests = json["tests"].as_array().unwrap();
     assert_eq!(tests.len(), 4);
     let number = |v: &serde_json::Value| v.as_f64().unwrap();

@@ -17,6 +17,7 @@ fn network(junctions: Vec<Junction>, fixed: Vec<FixedHead>, pipes: Vec<Pipe>) ->
         valves: Vec::new(),
         hazen_williams_constant: None,
         conditions: vec![],
+        lonlat_origin: None,
     }
 }
 

@@ -19,7 +19,7 @@ use roughcal::network::edit::apply_group_c;
 use roughcal::network::file::parse_network;
 use roughcal::report::{
     CALIBRATED_NETWORK, COEFFICIENTS_CSV, COEFFICIENTS_TOML, CalibrationOutputs, ExcludedTest,
-    FIT_SVG, OUTPUT_FILES, OutputWriteError, REPORT_MD, RunContext, json_summary,
+    FIT_SVG, OUTPUT_FILES, OutputWriteError, REPORT_MD, RESULTS_GEOJSON, RunContext, json_summary,
     parse_coefficients_csv, parse_coefficients_toml, text_summary, write_outputs,
 };
 
@@ -470,8 +470,10 @@ fn outputs_are_not_overwritten_without_force() {
     let dir = tempfile::tempdir().unwrap();
     let folder = dir.path().join("run-1");
     let written = write_outputs(&folder, &outputs, false).unwrap();
-    assert_eq!(written.len(), OUTPUT_FILES.len());
-    for name in OUTPUT_FILES {
+    // Every output but results.geojson: the fixture's network has no plan coordinates.
+    assert_eq!(written.len(), OUTPUT_FILES.len() - 1);
+    assert!(!folder.join(RESULTS_GEOJSON).exists());
+    for (name, _) in &outputs.files {
         assert_eq!(
             std::fs::read_to_string(folder.join(name)).unwrap(),
             outputs.get(name).unwrap()
@@ -487,7 +489,8 @@ fn outputs_are_not_overwritten_without_force() {
                     "coefficients.csv",
                     "coefficients.toml",
                     "calibrated.toml",
-                    "report.md"
+                    "report.md",
+                    "pipes.csv"
                 ]
             );
         }

@@ -204,6 +204,7 @@ mod tests {
             pumps: vec![],
             valves: Vec::new(),
             hazen_williams_constant: None,
+            lonlat_origin: None,
             groups: vec![],
             conditions: vec![],
         }

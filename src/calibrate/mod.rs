@@ -31,7 +31,7 @@ use crate::hydraulics::SolveError;
 use crate::network::{DEFAULT_GROUP_MAX_C, DEFAULT_GROUP_MIN_C, Network};
 
 /// The caution every calibration output carries.
-pub const CAUTION: &str = "The fitted C-factors are a model-fitting aid. A licensed engineer reviews them before they are used for fire-flow, design or operational decisions; local codes and the fire authority's requirements govern.";
+pub const CAUTION: &str = "roughcal's results (fitted C-factors, modelled pressures, available fire flow) are a model-fitting and screening aid. A licensed engineer reviews them before they are used for fire-flow, design or operational decisions; local codes and the fire authority govern.";
 
 /// What the fit compares.
 #[derive(Debug, Clone, Copy, PartialEq, Eq, Default)]

@@ -546,6 +546,7 @@ mod tests {
             pumps: vec![],
             valves: Vec::new(),
             hazen_williams_constant: None,
+            lonlat_origin: None,
             groups: vec![group("A"), group("B")],
             conditions: vec![],
         }

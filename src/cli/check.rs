@@ -1,23 +1,87 @@
-//! `roughcal check NETWORK`: load a network file, print a summary or every defect with its place.
+//! `roughcal check NETWORK [--json | --quiet]`: load a network file, print a summary or every defect
+//! with its place.
 
 use std::fmt::Write as _;
+use std::io::Write as _;
 use std::path::Path;
 use std::process::ExitCode;
 
-use roughcal::network::file::{NetworkFileError, load_network_file};
+use roughcal::calibrate::CAUTION;
+use roughcal::network::UnitLabels;
+use roughcal::network::file::{Diagnostic, NetworkFileError, load_network_file};
 use roughcal::network::summary::NetworkSummary;
 use roughcal::report::table::{Align, TextTable};
+use serde::Serialize;
 
-pub fn run(network: &Path) -> anyhow::Result<ExitCode> {
-    match load_network_file(network) {
+/// What `check` prints.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum Output {
+    /// The summary, or every defect on stderr.
+    Text,
+    /// One JSON report on stdout, whatever the verdict.
+    Json,
+    /// Nothing on a good file (the exit status says it); the defects on stderr otherwise.
+    Quiet,
+}
+
+pub fn run(network: &Path, output: Output) -> anyhow::Result<ExitCode> {
+    let loaded = match load_network_file(network) {
+        Ok(loaded) => Ok(loaded),
+        Err(NetworkFileError::Invalid { diagnostics }) => Err(diagnostics),
+        Err(error @ NetworkFileError::Unreadable { .. }) => return Err(error.into()),
+    };
+    if output == Output::Json {
+        let summary = loaded
+            .as_ref()
+            .ok()
+            .map(|loaded| NetworkSummary::of(&loaded.network));
+        let report = match (&loaded, &summary) {
+            (Ok(loaded), Some(summary)) => JsonReport {
+                caution: CAUTION,
+                file: &loaded.sources.file,
+                problems: Vec::new(),
+                summary: Some(JsonSummary::of(summary)),
+                units: Some(summary.units.labels()),
+                valid: true,
+            },
+            (Err(diagnostics), _) => JsonReport {
+                caution: CAUTION,
+                file: diagnostics.first().map_or("", |d| d.file.as_str()),
+                problems: diagnostics.iter().map(JsonProblem::of).collect(),
+                summary: None,
+                units: None,
+                valid: false,
+            },
+            (Ok(loaded), None) => JsonReport {
+                caution: CAUTION,
+                file: &loaded.sources.file,
+                problems: Vec::new(),
+                summary: None,
+                units: None,
+                valid: true,
+            },
+        };
+        let mut out = std::io::BufWriter::new(std::io::stdout().lock());
+        serde_json::to_writer_pretty(&mut out, &report)?;
+        writeln!(out)?;
+        out.flush()?;
+        return Ok(if loaded.is_ok() {
+            ExitCode::SUCCESS
+        } else {
+            ExitCode::from(1)
+        });
+    }
+    match loaded {
         Ok(loaded) => {
-            print!(
-                "{}",
-                render(&NetworkSummary::of(&loaded.network), &loaded.sources.file)
-            );
+            if output == Output::Text {
+                print!(
+                    "{}",
+                    render(&NetworkSummary::of(&loaded.network), &loaded.sources.file)
+                );
+            }
             Ok(ExitCode::SUCCESS)
         }
-        Err(NetworkFileError::Invalid { diagnostics }) => {
+        Err(diagnostics) => {
             for diagnostic in &diagnostics {
                 eprintln!("roughcal: {diagnostic}");
             }
@@ -28,7 +92,104 @@ pub fn run(network: &Path) -> anyhow::Result<ExitCode> {
             );
             Ok(ExitCode::from(1))
         }
-        Err(error @ NetworkFileError::Unreadable { .. }) => Err(error.into()),
+    }
+}
+
+/// `check --json`: keys in alphabetical order, like every JSON report of roughcal. A file with
+/// problems has no `summary` and no `units` (nothing was read to count or to measure).
+#[derive(Serialize)]
+struct JsonReport<'a> {
+    caution: &'static str,
+    file: &'a str,
+    /// Every defect, in file order.
+    problems: Vec<JsonProblem<'a>>,
+    #[serde(skip_serializing_if = "Option::is_none")]
+    summary: Option<JsonSummary<'a>>,
+    #[serde(skip_serializing_if = "Option::is_none")]
+    units: Option<UnitLabels>,
+    valid: bool,
+}
+
+#[derive(Serialize)]
+struct JsonProblem<'a> {
+    column: usize,
+    field: Option<&'a str>,
+    id: Option<&'a str>,
+    line: usize,
+    message: &'a str,
+}
+
+impl<'a> JsonProblem<'a> {
+    fn of(diagnostic: &'a Diagnostic) -> Self {
+        Self {
+            column: diagnostic.column,
+            field: diagnostic.field.as_deref(),
+            id: diagnostic.id.as_deref(),
+            line: diagnostic.line,
+            message: &diagnostic.message,
+        }
+    }
+}
+
+/// The summary's counts, lengths (`units.length`), heads (`units.length`) and demand (`units.flow`).
+#[derive(Serialize)]
+struct JsonSummary<'a> {
+    closed_pipes: usize,
+    conditions: usize,
+    fixed_heads: usize,
+    groups: Vec<JsonGroupLength<'a>>,
+    junctions: usize,
+    pipes: usize,
+    pumps: usize,
+    sources: Vec<JsonSource<'a>>,
+    title: &'a str,
+    total_base_demand: f64,
+    total_length: f64,
+    /// Pipes in no group (also counted in `pipes`).
+    ungrouped: JsonGroupLength<'a>,
+}
+
+#[derive(Serialize)]
+struct JsonGroupLength<'a> {
+    length: f64,
+    name: &'a str,
+    pipes: usize,
+}
+
+#[derive(Serialize)]
+struct JsonSource<'a> {
+    head: f64,
+    id: &'a str,
+}
+
+impl<'a> JsonSummary<'a> {
+    fn of(summary: &'a NetworkSummary) -> Self {
+        let group = |g: &'a roughcal::network::summary::GroupLength| JsonGroupLength {
+            length: g.length,
+            name: &g.group,
+            pipes: g.pipes,
+        };
+        Self {
+            closed_pipes: summary.closed_pipes,
+            conditions: summary.conditions,
+            fixed_heads: summary.fixed_heads,
+            groups: summary.length_by_group.iter().map(group).collect(),
+            junctions: summary.junctions,
+            pipes: summary.pipes,
+            pumps: summary.pumps,
+            sources: summary
+                .sources
+                .iter()
+                .map(|s| JsonSource {
+                    head: s.head,
+                    id: &s.id,
+                })
+                .collect(),
+            title: &summary.title,
+            total_base_demand: summary.total_base_demand,
+            total_length: summary.total_length(),
+            ungrouped: group(&summary.ungrouped),
+        }
     }
 }
 

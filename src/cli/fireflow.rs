@@ -7,13 +7,11 @@ use std::process::ExitCode;
 use anyhow::bail;
 use serde_json::{Value, json};
 
+use roughcal::calibrate::CAUTION;
 use roughcal::fieldtest::{
     AvailableFlow, FieldSheet, Severity, SheetReading, default_target, load_sheet, screen_sheet,
 };
 use roughcal::network::UnitSystem;
-
-pub(super) const CAUTION: &str = "Caution: results are an aid, to be reviewed by a licensed engineer; local codes \
-                       and the fire authority govern.";
 
 pub fn run(sheet_path: &Path, target: Option<f64>, json: bool) -> anyhow::Result<ExitCode> {
     let sheet = match load_sheet(sheet_path) {
@@ -110,9 +108,7 @@ fn to_json(sheet: &FieldSheet, reading: &SheetReading, target: f64) -> Value {
         .collect();
     json!({
         "target": target,
-        "units": units.key(),
-        "flow_unit": units.flow_label(),
-        "pressure_unit": units.pressure_label(),
+        "units": units.labels(),
         "caution": CAUTION,
         "tests": tests,
     })
@@ -230,8 +226,6 @@ fn table(sheet: &FieldSheet, reading: &SheetReading, target: f64) -> String {
             out.push_str(&format!("  line {} {}: {note}\n", r.line, r.test));
         }
     }
-    out.push('\n');
-    out.push_str(CAUTION);
-    out.push('\n');
+    out.push_str(&format!("\nCaution: {CAUTION}\n"));
     out
 }

@@ -6,6 +6,7 @@ use std::path::Path;
 use std::process::ExitCode;
 
 use anyhow::Context as _;
+use roughcal::calibrate::CAUTION;
 use roughcal::hydraulics::gradient::{MASS_BALANCE_TOLERANCE, named_condition};
 use roughcal::hydraulics::loops::{LoopError, LoopKind, LoopOptions, LoopSolution, solve_loops};
 use roughcal::network::file::load_network_file;
@@ -15,9 +16,6 @@ use serde_json::{Value, json};
 
 use super::load_network_or_report;
 
-/// Advisory printed under every result that may inform design or fire flow.
-const REVIEW_NOTE: &str = "Results are an aid: have them reviewed by a licensed engineer; local codes \
-                           and the fire authority govern.";
 /// Loop corrections printed on one line of the iteration table.
 const CORRECTIONS_PER_LINE: usize = 6;
 
@@ -245,7 +243,7 @@ pub fn render_text(
             negative.join(", ")
         );
     }
-    let _ = writeln!(out, "\n{REVIEW_NOTE}");
+    let _ = writeln!(out, "\nCaution: {CAUTION}");
     out
 }
 
@@ -266,7 +264,7 @@ pub fn render_json(net: &Network, solution: &LoopSolution, converged: bool) -> V
             json!({
                 "iteration": record.iteration,
                 "corrections": corrections,
-                "max_imbalance": units.length_from_m(record.max_imbalance_m),
+                "max_loop_head_imbalance": units.length_from_m(record.max_imbalance_m),
             })
         })
         .collect();
@@ -328,18 +326,14 @@ pub fn render_json(net: &Network, solution: &LoopSolution, converged: bool) -> V
         .collect();
     let mut report = json!({
         "converged": converged,
-        "units": {
-            "flow": units.flow_label(),
-            "head": units.length_label(),
-            "pressure": units.pressure_label(),
-        },
+        "units": units.labels(),
+        "caution": CAUTION,
         "iterations": iterations,
         "loops": loops,
     });
     if converged {
         report["pipes"] = json!(pipes);
         report["junctions"] = json!(junctions);
-        report["note"] = json!(REVIEW_NOTE);
     }
     report
 }

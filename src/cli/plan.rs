@@ -142,9 +142,7 @@ fn plan_json(net: &Network, plan: &TestPlan) -> serde_json::Value {
         "current_std_error": current,
         "candidates_examined": plan.examined,
         "candidates_feasible": plan.feasible,
-        "units": units.key(),
-        "pressure_unit": units.pressure_label(),
-        "flow_unit": units.flow_label(),
+        "units": units.labels(),
         "caution": CAUTION,
     })
 }

@@ -1,15 +1,18 @@
 //! `roughcal solve NETWORK [--condition NAME] [--demand NODE=FLOW ...] [--json]`.
 
 use std::fmt::Write as _;
+use std::io::Write as _;
 use std::path::Path;
 use std::process::ExitCode;
 
 use anyhow::{Context, bail};
+use roughcal::calibrate::CAUTION;
 use roughcal::hydraulics::{GradientSolver, LinkRef, OperatingState, Solution, SolveWarning};
-use roughcal::network::Network;
 use roughcal::network::file::load_network_file;
+use roughcal::network::{Network, UnitLabels};
 use roughcal::report::table::{Align, TextTable};
-use serde_json::json;
+use serde::Serialize;
+use serde::ser::Serializer;
 
 use super::load_network_or_report;
 
@@ -34,10 +37,11 @@ pub fn run(
         .solve(net, &state, &net.c_factors(), None)
         .with_context(|| format!("solving {}", network_path.display()))?;
     if json {
-        println!(
-            "{}",
-            serde_json::to_string_pretty(&to_json(net, &state, &solution))?
-        );
+        // Streamed: a city's quarter of a million rows never sit in memory as one JSON value.
+        let mut out = std::io::BufWriter::with_capacity(1 << 16, std::io::stdout().lock());
+        serde_json::to_writer_pretty(&mut out, &Report::new(net, &state, &solution))?;
+        writeln!(out)?;
+        out.flush()?;
     } else {
         print!("{}", render(net, &state, &solution, condition));
     }
@@ -68,71 +72,151 @@ fn parse_demand(net: &Network, text: &str) -> anyhow::Result<(usize, f64)> {
     Ok((junction, net.units.flow_to_m3s(value)))
 }
 
-fn to_json(net: &Network, state: &OperatingState, solution: &Solution) -> serde_json::Value {
-    let units = net.units;
-    let mut nodes: Vec<serde_json::Value> = net
-        .junctions
-        .iter()
-        .enumerate()
-        .map(|(j, junction)| {
-            let pressure = solution
-                .pressure_head_m(net, j)
-                .map(|p| units.pressure_from_head_m(p));
-            json!({
-                "id": junction.id,
-                "kind": "junction",
-                "head": solution.pressure_head_m(net, j).map(|_| units.length_from_m(solution.head_m[j])),
-                "pressure": pressure,
-                "demand": units.flow_from_m3s(state.demand_m3s(net, j)),
-                "isolated": solution.isolated[j],
-                "negative_pressure": pressure.is_some_and(|p| p < 0.0),
-            })
-        })
-        .collect();
-    nodes.extend(net.fixed_heads.iter().enumerate().map(|(f, fixed)| {
-        json!({
-            "id": fixed.id,
-            "kind": "fixed_head",
-            "head": units.length_from_m(state.fixed_head_m[f]),
-            "pressure": null,
-        })
-    }));
-    let pipes: Vec<serde_json::Value> = net
-        .pipes
-        .iter()
-        .enumerate()
-        .map(|(k, pipe)| {
-            json!({
-                "id": pipe.id,
-                "flow": units.flow_from_m3s(solution.pipe_flow_m3s[k]),
-                "headloss": units.length_from_m(solution.pipe_headloss_m[k]),
-                "status": solution.pipe_status[k].label(),
-            })
-        })
-        .collect();
-    let pumps: Vec<serde_json::Value> = net
-        .pumps
-        .iter()
-        .enumerate()
-        .map(|(k, pump)| {
-            json!({
-                "id": pump.id,
-                "flow": units.flow_from_m3s(solution.pump_flow_m3s[k]),
-                "head_gain": units.length_from_m(solution.pump_head_gain_m[k]),
-                "status": solution.pump_status[k].label(),
-            })
-        })
-        .collect();
-    json!({
-        "converged": true,
-        "iterations": solution.iterations,
-        "units": units.key(),
-        "max_imbalance": units.flow_from_m3s(solution.max_imbalance_m3s),
-        "nodes": nodes,
-        "pipes": pipes,
-        "pumps": pumps,
-        "warnings": warning_lines(net, solution),
-    })
+/// The `--json` report. Keys in alphabetical order (the order every report of roughcal prints them in),
+/// rows serialized as they are written.
+#[derive(Serialize)]
+struct Report<'a> {
+    caution: &'static str,
+    converged: bool,
+    iterations: usize,
+    /// Largest junction continuity imbalance, in `units.flow`.
+    max_imbalance: f64,
+    nodes: Nodes<'a>,
+    pipes: Pipes<'a>,
+    pumps: Pumps<'a>,
+    units: UnitLabels,
+    warnings: Vec<String>,
+}
+
+impl<'a> Report<'a> {
+    fn new(net: &'a Network, state: &'a OperatingState, solution: &'a Solution) -> Self {
+        let context = Solved {
+            net,
+            state,
+            solution,
+        };
+        Self {
+            caution: CAUTION,
+            converged: true,
+            iterations: solution.iterations,
+            max_imbalance: net.units.flow_from_m3s(solution.max_imbalance_m3s),
+            nodes: Nodes(context),
+            pipes: Pipes(context),
+            pumps: Pumps(context),
+            units: net.units.labels(),
+            warnings: warning_lines(net, solution),
+        }
+    }
+}
+
+/// What every row is made from.
+#[derive(Clone, Copy)]
+struct Solved<'a> {
+    net: &'a Network,
+    state: &'a OperatingState,
+    solution: &'a Solution,
+}
+
+/// The junctions, then the fixed heads, each row built as it is written.
+struct Nodes<'a>(Solved<'a>);
+/// The pipes, each row built as it is written.
+struct Pipes<'a>(Solved<'a>);
+/// The pumps, each row built as it is written.
+struct Pumps<'a>(Solved<'a>);
+
+#[derive(Serialize)]
+struct JunctionRow<'a> {
+    demand: f64,
+    /// Absent (null) for an isolated junction.
+    head: Option<f64>,
+    id: &'a str,
+    isolated: bool,
+    kind: &'static str,
+    negative_pressure: bool,
+    pressure: Option<f64>,
+}
+
+#[derive(Serialize)]
+struct FixedHeadRow<'a> {
+    head: f64,
+    id: &'a str,
+    kind: &'static str,
+    pressure: Option<f64>,
+}
+
+#[derive(Serialize)]
+struct LinkRow<'a> {
+    flow: f64,
+    #[serde(skip_serializing_if = "Option::is_none")]
+    head_gain: Option<f64>,
+    #[serde(skip_serializing_if = "Option::is_none")]
+    headloss: Option<f64>,
+    id: &'a str,
+    status: &'static str,
+}
+
+impl Serialize for Nodes<'_> {
+    fn serialize<S: Serializer>(&self, serializer: S) -> Result<S::Ok, S::Error> {
+        use serde::ser::SerializeSeq;
+        let Solved {
+            net,
+            state,
+            solution,
+        } = self.0;
+        let units = net.units;
+        let mut seq =
+            serializer.serialize_seq(Some(net.junctions.len() + net.fixed_heads.len()))?;
+        for (j, junction) in net.junctions.iter().enumerate() {
+            let pressure_head_m = solution.pressure_head_m(net, j);
+            let pressure = pressure_head_m.map(|p| units.pressure_from_head_m(p));
+            seq.serialize_element(&JunctionRow {
+                demand: units.flow_from_m3s(state.demand_m3s(net, j)),
+                head: pressure_head_m.map(|_| units.length_from_m(solution.head_m[j])),
+                id: &junction.id,
+                isolated: solution.isolated[j],
+                kind: "junction",
+                negative_pressure: pressure.is_some_and(|p| p < 0.0),
+                pressure,
+            })?;
+        }
+        for (f, fixed) in net.fixed_heads.iter().enumerate() {
+            seq.serialize_element(&FixedHeadRow {
+                head: units.length_from_m(state.fixed_head_m[f]),
+                id: &fixed.id,
+                kind: "fixed_head",
+                pressure: None,
+            })?;
+        }
+        seq.end()
+    }
+}
+
+impl Serialize for Pipes<'_> {
+    fn serialize<S: Serializer>(&self, serializer: S) -> Result<S::Ok, S::Error> {
+        let Solved { net, solution, .. } = self.0;
+        let units = net.units;
+        serializer.collect_seq(net.pipes.iter().enumerate().map(|(k, pipe)| LinkRow {
+            flow: units.flow_from_m3s(solution.pipe_flow_m3s[k]),
+            head_gain: None,
+            headloss: Some(units.length_from_m(solution.pipe_headloss_m[k])),
+            id: &pipe.id,
+            status: solution.pipe_status[k].label(),
+        }))
+    }
+}
+
+impl Serialize for Pumps<'_> {
+    fn serialize<S: Serializer>(&self, serializer: S) -> Result<S::Ok, S::Error> {
+        let Solved { net, solution, .. } = self.0;
+        let units = net.units;
+        serializer.collect_seq(net.pumps.iter().enumerate().map(|(k, pump)| LinkRow {
+            flow: units.flow_from_m3s(solution.pump_flow_m3s[k]),
+            head_gain: Some(units.length_from_m(solution.pump_head_gain_m[k])),
+            headloss: None,
+            id: &pump.id,
+            status: solution.pump_status[k].label(),
+        }))
+    }
 }
 
 /// Every warning of a solution in words.

@@ -13,8 +13,9 @@ use roughcal::network::file::load_network_file;
 use roughcal::report::table::{Align, TextTable};
 use serde_json::json;
 
-use super::fireflow::{CAUTION, finding_json};
+use super::fireflow::finding_json;
 use super::load_network_or_report;
+use roughcal::calibrate::CAUTION;
 
 pub fn run(
     network_path: &Path,
@@ -69,9 +70,7 @@ pub fn run(
             .collect();
         let out = json!({
             "target": target,
-            "units": units.key(),
-            "pressure_unit": units.pressure_label(),
-            "flow_unit": units.flow_label(),
+            "units": units.labels(),
             "caution": CAUTION,
             "tests": tests,
         });
@@ -171,7 +170,7 @@ fn table(rows: &[ModelComparison], target: f64, pressure: &str, flow: &str) -> S
     let _ = write!(out, "{}", table.text(""));
     let _ = writeln!(
         out,
-        "\nS static, R residual, d = measured - modelled, Q fld = NFPA 291 extrapolation of the field\nreadings, Q mod = the model's flow at the target.\n{CAUTION}"
+        "\nS static, R residual, d = measured - modelled, Q fld = NFPA 291 extrapolation of the field\nreadings, Q mod = the model's flow at the target.\nCaution: {CAUTION}"
     );
     out
 }

@@ -520,6 +520,7 @@ mod tests {
             valves: Vec::new(),
             hazen_williams_constant: None,
             conditions: Vec::new(),
+            lonlat_origin: None,
         }
     }
 

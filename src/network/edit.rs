@@ -12,7 +12,6 @@ use std::ops::Range;
 
 use toml_edit::{Document, InlineTable, Item, Table, TableLike, Value};
 
-use super::file::value_number;
 use super::model::{DEFAULT_GROUP_MAX_C, DEFAULT_GROUP_MIN_C};
 
 /// Why an edit of a network file could not be made. Nothing is written when any edit fails.
@@ -376,4 +375,13 @@ fn set_number(
     editor.set(section, index, key, float_text(number), |old| {
         value_number(old) == Some(number)
     })
+}
+
+/// A TOML number (integer or float) as f64.
+fn value_number(value: &Value) -> Option<f64> {
+    match value {
+        Value::Integer(i) => Some(*i.value() as f64),
+        Value::Float(f) => Some(*f.value()),
+        _ => None,
+    }
 }

@@ -5,17 +5,30 @@
 //! every problem (unknown keys, wrong types, bad values, dangling references, isolated junctions)
 //! instead of stopping at the first. It does no I/O: [`parse_network`] takes the text and a display
 //! name; [`load_network_file`] is the thin helper that reads a file first.
+//!
+//! The text is read with the `toml` crate's borrowing, spanned parser ([`DeTable`]). A city-sized
+//! file is not parsed as one document: the parser keeps every token and event of the text it is given
+//! (tens of bytes for every few bytes of text), so a 28 MB file would cost well over 1 GB. The file is
+//! cut before each line that starts a `[[section]]`; the top level is parsed alone and the entries in
+//! runs of at most [`RUN_BYTES`], each walked and dropped before the next is parsed. TOML defines that
+//! as the same document whenever every piece parses on its own, every `[[...]]` names a section and
+//! every table below an entry is inline, which [`parse_piece`] checks. Any other file, and any file
+//! with a TOML error, is read as one document, with `toml_edit` wording the syntax error so that every
+//! message stays as it was.
 
 // Network files are edited by hand: no indexing that could panic on what they hold.
 #![cfg_attr(not(test), deny(clippy::indexing_slicing))]
 
 use std::collections::HashMap;
 use std::fmt;
+use std::hash::{BuildHasherDefault, Hasher};
 use std::ops::Range;
 use std::path::Path;
 
-use toml_edit::{Document, Item, Table, TableLike, Value};
+use toml::Spanned;
+use toml::de::{DeArray, DeTable, DeValue};
 
+use super::lonlat::LonLat;
 use super::model::{
     Condition, DEFAULT_GROUP_MAX_C, DEFAULT_GROUP_MIN_C, FixedHead, Junction, Network, NodeRef,
     Pipe, Pump, PumpCurve, RoughnessGroup,
@@ -156,20 +169,209 @@ pub fn load_network_file(path: &Path) -> Result<LoadedNetwork, NetworkFileError>
 /// index. On failure the error lists every defect found, sorted by position.
 pub fn parse_network(text: &str, file_name: &str) -> Result<LoadedNetwork, NetworkFileError> {
     let mut reader = Reader::new(text, file_name);
-    let document = match Document::parse(text) {
-        Ok(document) => document,
+    if let Some(layout) = Layout::of(text) {
+        let root_text = text.get(..layout.root_end).unwrap_or("");
+        if let Some(root) = parse_piece(root_text, None) {
+            let root = root.into_inner();
+            if !layout.conflicts_with(&root) {
+                let loaded = reader.build_parsing_ahead(&root, &layout);
+                if !reader.abandoned {
+                    return reader.finish(loaded);
+                }
+            }
+        }
+        // The runs hold something only the whole document can say (a TOML error, a number too large):
+        // start again on the whole text.
+        reader = Reader::new(text, file_name);
+    }
+    if let Err(error) = toml_edit::Document::parse(text) {
+        let span = error.span().unwrap_or(0..0);
+        let message = error.message().trim().replace('\n', "; ");
+        reader.report(&span, format!("TOML syntax error: {message}"), None, None);
+        return Err(reader.into_error());
+    }
+    let root = match DeTable::parse(text) {
+        Ok(root) => root.into_inner(),
         Err(error) => {
+            // Not expected: both parsers read TOML 1.1 the same way. Said in the same words.
             let span = error.span().unwrap_or(0..0);
             let message = error.message().trim().replace('\n', "; ");
             reader.report(&span, format!("TOML syntax error: {message}"), None, None);
             return Err(reader.into_error());
         }
     };
-    let loaded = reader.build(document.as_table());
-    if reader.diagnostics.is_empty() {
-        Ok(loaded)
-    } else {
-        Err(reader.into_error())
+    let loaded = reader.build(&root, &Layout::document());
+    reader.finish(loaded)
+}
+
+/// Upper bound, in bytes of text, of one run of entries parsed at once: small enough that the parser's
+/// tokens and events stay a few tens of MB, large enough that a city file is a few dozen parses.
+pub const RUN_BYTES: usize = 1 << 20;
+
+/// Parses a piece of the file on its own: the top level (`section` `None`) or one run of `section`
+/// entries. `None` unless it is TOML whose every number is in range (as `toml_edit` requires) and
+/// whose tables below the entries are all written inline, and unless a run holds only its entries:
+/// anything else (a `[table]` header, a dotted key) is left to the reading of the whole document.
+fn parse_piece(text: &str, section: Option<Section>) -> Option<Spanned<DeTable<'_>>> {
+    let table = DeTable::parse(text).ok()?;
+    let plain = match section {
+        None => plain_values(table.get_ref(), text),
+        Some(section) => {
+            let mut keys = table.get_ref().iter();
+            match (keys.next(), keys.next()) {
+                (Some((key, entries)), None) if key.get_ref() == section.key() => {
+                    match entries.get_ref() {
+                        DeValue::Array(entries) => {
+                            entries.iter().all(|entry| match entry.get_ref() {
+                                DeValue::Table(entry) => plain_values(entry, text),
+                                _ => false,
+                            })
+                        }
+                        _ => false,
+                    }
+                }
+                _ => false,
+            }
+        }
+    };
+    plain.then_some(table)
+}
+
+fn plain_values(table: &DeTable<'_>, text: &str) -> bool {
+    table.values().all(|value| plain_value(value, text))
+}
+
+/// See [`parse_piece`]. An integer of up to 18 digits and a float without an exponent of up to 300
+/// characters cannot be out of range, which spares parsing nearly every number twice.
+fn plain_value(value: &Spanned<DeValue<'_>>, text: &str) -> bool {
+    match value.get_ref() {
+        DeValue::Integer(integer) => {
+            let digits = integer.as_str();
+            (digits.len() <= 18 && integer.radix() == 10)
+                || i64::from_str_radix(digits, integer.radix()).is_ok()
+        }
+        DeValue::Float(float) => {
+            let written = float.as_str();
+            (written.len() <= 300 && !written.contains(['e', 'E', 'i', 'n']))
+                || written.parse::<f64>().is_ok_and(|number| {
+                    number.is_finite()
+                        || written
+                            .trim_start_matches(['+', '-'])
+                            .chars()
+                            .all(|c| c.is_ascii_alphabetic())
+                })
+        }
+        DeValue::Array(array) => array.iter().all(|element| plain_value(element, text)),
+        DeValue::Table(table) => {
+            text.get(value.span().start..)
+                .is_some_and(|rest| rest.starts_with('{'))
+                && plain_values(table, text)
+        }
+        DeValue::String(_) | DeValue::Boolean(_) | DeValue::Datetime(_) => true,
+    }
+}
+
+/// How the entries of a file are reached.
+struct Layout {
+    /// End of the top level (the first header).
+    root_end: usize,
+    /// Runs of consecutive `[[section]]` entries of one kind, in file order; empty for one document.
+    runs: Vec<Run>,
+}
+
+/// A run of consecutive entries of one section: the byte range of their text, headers included.
+struct Run {
+    section: Section,
+    text: Span,
+}
+
+/// Where the entries of one section are, one parse at a time.
+#[derive(Clone)]
+enum Batch {
+    /// The top-level table (an inline array `pipe = [{ ... }]`, or every entry of a whole document).
+    Root,
+    /// One run (its index in [`Layout::runs`]), parsed when it is reached.
+    Run(usize, Section, Span),
+}
+
+impl Layout {
+    fn document() -> Self {
+        Self {
+            root_end: 0,
+            runs: Vec::new(),
+        }
+    }
+
+    /// The runs of `text`, cut before every line that starts with `[[` and names a section of this
+    /// schema; `None` when such a line names anything else. A cut that falls inside a multi-line
+    /// string or array leaves the piece before it unterminated, which its own parse then refuses, so
+    /// a wrong cut only costs the reading of the whole document.
+    fn of(text: &str) -> Option<Self> {
+        let mut headers: Vec<(usize, Section)> = Vec::new();
+        let mut line_start = 0;
+        for line in text.split_inclusive('\n') {
+            if let Some(rest) = line.strip_prefix("[[") {
+                let name = rest
+                    .split("]]")
+                    .next()
+                    .unwrap_or("")
+                    .trim_matches([' ', '\t']);
+                headers.push((line_start, Section::from_key(name)?));
+            }
+            line_start += line.len();
+        }
+        let root_end = headers.first().map_or(text.len(), |&(start, _)| start);
+        let mut runs: Vec<Run> = Vec::new();
+        for (index, &(start, section)) in headers.iter().enumerate() {
+            let end = headers.get(index + 1).map_or(text.len(), |&(next, _)| next);
+            match runs.last_mut() {
+                Some(run) if run.section == section && end - run.text.start <= RUN_BYTES => {
+                    run.text.end = end;
+                }
+                _ => runs.push(Run {
+                    section,
+                    text: start..end,
+                }),
+            }
+        }
+        Some(Self { root_end, runs })
+    }
+
+    /// Whether the top level also holds a key that names a section with `[[...]]` entries (a
+    /// duplicate key only the whole document reports).
+    fn conflicts_with(&self, root: &DeTable<'_>) -> bool {
+        self.runs
+            .iter()
+            .any(|run| root.contains_key(run.section.key()))
+    }
+
+    /// The places that hold entries of `section`, in file order.
+    fn batches(&self, section: Section) -> Vec<Batch> {
+        std::iter::once(Batch::Root)
+            .chain(
+                self.runs
+                    .iter()
+                    .enumerate()
+                    .filter(|(_, run)| run.section == section)
+                    .map(|(index, run)| Batch::Run(index, section, run.text.clone())),
+            )
+            .collect()
+    }
+
+    /// Every run in the order the walk opens them: section by section as [`Reader::build`] reads
+    /// them, each section's runs in file order.
+    fn walk_order(&self) -> Vec<(usize, Section, Span)> {
+        Section::WALK_ORDER
+            .into_iter()
+            .flat_map(|section| {
+                self.batches(section)
+                    .into_iter()
+                    .filter_map(|batch| match batch {
+                        Batch::Run(index, section, span) => Some((index, section, span)),
+                        Batch::Root => None,
+                    })
+            })
+            .collect()
     }
 }
 
@@ -187,6 +389,8 @@ enum Section {
 const ROOT_KEYS: &[&str] = &[
     "title",
     "units",
+    "origin_lon",
+    "origin_lat",
     "junction",
     "fixed_head",
     "pipe",
@@ -196,6 +400,23 @@ const ROOT_KEYS: &[&str] = &[
 ];
 
 impl Section {
+    /// Every section, in the order [`Reader::build`] reads them (nodes before the links that name
+    /// them, groups before the pipes).
+    const WALK_ORDER: [Self; 6] = [
+        Self::Junction,
+        Self::FixedHead,
+        Self::Group,
+        Self::Pipe,
+        Self::Pump,
+        Self::Condition,
+    ];
+
+    fn from_key(key: &str) -> Option<Self> {
+        Self::WALK_ORDER
+            .into_iter()
+            .find(|section| section.key() == key)
+    }
+
     fn key(self) -> &'static str {
         match self {
             Self::Junction => "junction",
@@ -245,17 +466,38 @@ impl Section {
 }
 
 /// One table of the file being read: the root, or one `[[...]]` entry.
-struct Record<'d> {
+struct Record<'d, 't> {
     /// How messages name the entry ("pipe"); empty for the root.
     label: &'static str,
     /// `[[pipe]]` or "the top level", for unknown-key messages.
     place: String,
     allowed: &'static [&'static str],
-    table: &'d dyn TableLike,
+    table: &'d DeTable<'t>,
+    /// Where the text the table was parsed from starts in the file (its spans count from there).
+    offset: usize,
+    /// Whether the table is written inline (`{ ... }`), and so every table in it too.
+    inline: bool,
     /// The header (or inline table) of the entry: where missing keys are reported.
     header: Span,
     /// The entry's id once read, to label later messages.
     id: Option<String>,
+}
+
+impl Record<'_, '_> {
+    /// The place of a parsed piece of this table in the file.
+    fn span<T>(&self, spanned: &Spanned<T>) -> Span {
+        let span = spanned.span();
+        span.start + self.offset..span.end + self.offset
+    }
+}
+
+/// A value of a table with where it and its key are.
+struct Found<'d, 't> {
+    value: &'d DeValue<'t>,
+    /// The value's span (for an array of tables, from its first header to its last).
+    span: Span,
+    /// What the value is, in the words of messages ("float", "inline table", "array of tables").
+    kind: &'static str,
 }
 
 /// Result of reading one key.
@@ -290,10 +532,49 @@ struct Seen<T> {
     line: usize,
 }
 
+/// A fast hash for ids (the multiply-rotate hash of the Rust compiler, "FxHash"): a city file looks up
+/// half a million ids, and the default hash, built to resist crafted keys from a network, is several
+/// times slower on short keys. The ids come from the user's own file.
+#[derive(Default)]
+struct IdHasher(u64);
+
+impl IdHasher {
+    const SEED: u64 = 0x51_7c_c1_b7_27_22_0a_95;
+
+    fn add(&mut self, word: u64) {
+        self.0 = (self.0.rotate_left(5) ^ word).wrapping_mul(Self::SEED);
+    }
+}
+
+impl Hasher for IdHasher {
+    fn write(&mut self, bytes: &[u8]) {
+        let mut chunks = bytes.chunks_exact(8);
+        for chunk in &mut chunks {
+            let mut word = [0u8; 8];
+            word.copy_from_slice(chunk);
+            self.add(u64::from_le_bytes(word));
+        }
+        let mut word = [0u8; 8];
+        let rest = chunks.remainder();
+        if let Some(target) = word.get_mut(..rest.len()) {
+            target.copy_from_slice(rest);
+        }
+        self.add(u64::from_le_bytes(word));
+    }
+
+    fn write_u8(&mut self, byte: u8) {
+        self.add(u64::from(byte));
+    }
+
+    fn finish(&self) -> u64 {
+        self.0
+    }
+}
+
 /// The ids of one namespace (node ids, link ids, group names or condition names).
 struct Namespace<T> {
     name: &'static str,
-    seen: HashMap<String, Seen<T>>,
+    seen: HashMap<String, Seen<T>, BuildHasherDefault<IdHasher>>,
     /// Ids in file order, for suggestions.
     order: Vec<String>,
 }
@@ -302,7 +583,7 @@ impl<T: Copy> Namespace<T> {
     fn new(name: &'static str) -> Self {
         Self {
             name,
-            seen: HashMap::new(),
+            seen: HashMap::default(),
             order: Vec::new(),
         }
     }
@@ -358,7 +639,15 @@ struct Reader<'t> {
     file: String,
     line_starts: Vec<usize>,
     diagnostics: Vec<Diagnostic>,
+    /// A run of entries turned out not to be TOML on its own: the file must be read as one document.
+    abandoned: bool,
+    /// Runs parsed on a second thread while this one walks the previous runs, in walk order.
+    ahead: Option<std::sync::mpsc::Receiver<ParsedRun<'t>>>,
 }
+
+/// A run parsed ahead of the walk: its index in [`Layout::runs`] and its table (`None` when it is not
+/// plain TOML on its own).
+type ParsedRun<'t> = (usize, Option<Spanned<DeTable<'t>>>);
 
 impl<'t> Reader<'t> {
     fn new(text: &'t str, file: &str) -> Self {
@@ -370,6 +659,82 @@ impl<'t> Reader<'t> {
             file: file.to_string(),
             line_starts,
             diagnostics: Vec::new(),
+            abandoned: false,
+            ahead: None,
+        }
+    }
+
+    /// [`Self::build`] with the runs parsed on a second thread, one or two runs ahead of the walk, so
+    /// that parsing and walking share the two cores of a field laptop. Falls back to parsing on this
+    /// thread when no thread can be started.
+    fn build_parsing_ahead(&mut self, root: &DeTable<'t>, layout: &Layout) -> LoadedNetwork {
+        let text: &'t str = self.text;
+        std::thread::scope(|scope| {
+            let (sender, receiver) = std::sync::mpsc::sync_channel::<ParsedRun<'t>>(2);
+            let order = layout.walk_order();
+            let parser = std::thread::Builder::new()
+                .name("network-parse".to_string())
+                .spawn_scoped(scope, move || {
+                    for (index, section, span) in order {
+                        let parsed = text
+                            .get(span)
+                            .and_then(|piece| parse_piece(piece, Some(section)));
+                        let failed = parsed.is_none();
+                        // A closed channel means the walk stopped: nothing more is wanted.
+                        if sender.send((index, parsed)).is_err() || failed {
+                            break;
+                        }
+                    }
+                });
+            if parser.is_ok() {
+                self.ahead = Some(receiver);
+            }
+            let loaded = self.build(root, layout);
+            // Closing the channel releases a parser still waiting to hand over a run.
+            self.ahead = None;
+            loaded
+        })
+    }
+
+    fn finish(self, loaded: LoadedNetwork) -> Result<LoadedNetwork, NetworkFileError> {
+        if self.diagnostics.is_empty() {
+            Ok(loaded)
+        } else {
+            Err(self.into_error())
+        }
+    }
+
+    /// The table that holds the entries of one batch, and where its text starts; `None` (and the
+    /// reading abandoned) for a run that does not parse on its own.
+    fn open<'a>(
+        &mut self,
+        root: &'a DeTable<'t>,
+        batch: &Batch,
+    ) -> Option<(std::borrow::Cow<'a, DeTable<'t>>, usize)> {
+        if self.abandoned {
+            return None;
+        }
+        match batch {
+            Batch::Root => Some((std::borrow::Cow::Borrowed(root), 0)),
+            Batch::Run(index, section, span) => {
+                let text: &'t str = self.text;
+                let parsed = match &self.ahead {
+                    Some(ahead) => match ahead.recv() {
+                        Ok((parsed_index, parsed)) if parsed_index == *index => parsed,
+                        _ => None,
+                    },
+                    None => text
+                        .get(span.clone())
+                        .and_then(|piece| parse_piece(piece, Some(*section))),
+                };
+                match parsed {
+                    Some(table) => Some((std::borrow::Cow::Owned(table.into_inner()), span.start)),
+                    None => {
+                        self.abandoned = true;
+                        None
+                    }
+                }
+            }
         }
     }
 
@@ -411,7 +776,7 @@ impl<'t> Reader<'t> {
         });
     }
 
-    fn report_at(&mut self, rec: &Record<'_>, span: &Span, message: String, field: &str) {
+    fn report_at(&mut self, rec: &Record<'_, '_>, span: &Span, message: String, field: &str) {
         let id = rec.id.clone();
         self.report(span, message, id.as_deref(), Some(field));
     }
@@ -431,7 +796,7 @@ impl<'t> Reader<'t> {
     // ---- reading keys ----
 
     /// `pipe `length`` or `` `units` `` for the root.
-    fn what(rec: &Record<'_>, key: &str) -> String {
+    fn what(rec: &Record<'_, '_>, key: &str) -> String {
         if rec.label.is_empty() {
             format!("`{key}`")
         } else {
@@ -439,19 +804,47 @@ impl<'t> Reader<'t> {
         }
     }
 
-    fn get<'d>(&self, rec: &Record<'d>, key: &str) -> Option<(&'d Item, Span)> {
-        let item = rec.table.get(key)?;
-        if item.is_none() {
-            return None;
-        }
-        let span = item
-            .span()
-            .or_else(|| rec.table.key(key).and_then(|k| k.span()))
-            .unwrap_or_else(|| rec.header.clone());
-        Some((item, span))
+    fn get<'d, 'x>(&self, rec: &Record<'d, 'x>, key: &str) -> Option<Found<'d, 'x>> {
+        let (key_spanned, value) = rec.table.get_key_value(key)?;
+        let key_span = rec.span(key_spanned);
+        let span = rec.span(value);
+        Some(self.found(rec, value.get_ref(), span, &key_span))
     }
 
-    fn missing(&mut self, rec: &Record<'_>, key: &str) {
+    /// A value of a table, named the way `toml_edit` names it: in a table that is not inline, a
+    /// table whose span holds its key is a `[header]` or dotted-key table, and an array whose span
+    /// holds its key is an array of tables (its span then runs from its first header to its last).
+    fn found<'d, 'x>(
+        &self,
+        rec: &Record<'d, 'x>,
+        value: &'d DeValue<'x>,
+        span: Span,
+        key_span: &Span,
+    ) -> Found<'d, 'x> {
+        let holds_key = !rec.inline && span.start <= key_span.start;
+        match value {
+            DeValue::Array(array) if holds_key => {
+                let end = array.last().map_or(span.end, |last| rec.span(last).end);
+                Found {
+                    value,
+                    span: span.start..end,
+                    kind: "array of tables",
+                }
+            }
+            DeValue::Table(_) if holds_key => Found {
+                value,
+                span,
+                kind: "table",
+            },
+            _ => Found {
+                value,
+                span,
+                kind: value_type_name(value),
+            },
+        }
+    }
+
+    fn missing(&mut self, rec: &Record<'_, '_>, key: &str) {
         let message = if rec.label.is_empty() {
             format!("missing required key `{key}`")
         } else {
@@ -463,70 +856,78 @@ impl<'t> Reader<'t> {
 
     fn wrong_type(
         &mut self,
-        rec: &Record<'_>,
+        rec: &Record<'_, '_>,
         key: &str,
-        item: &Item,
-        span: &Span,
+        found: &Found<'_, '_>,
         expected: &str,
     ) {
         let message = format!(
             "{} must be {expected}, found {} `{}`",
             Self::what(rec, key),
-            type_name(item),
-            self.raw(span)
+            found.kind,
+            self.raw(&found.span)
         );
-        self.report_at(rec, span, message, key);
+        self.report_at(rec, &found.span, message, key);
     }
 
-    fn string(&mut self, rec: &Record<'_>, key: &str, required: bool) -> Got<String> {
-        let Some((item, span)) = self.get(rec, key) else {
+    fn string(&mut self, rec: &Record<'_, '_>, key: &str, required: bool) -> Got<String> {
+        match self.text_value(rec, key, required) {
+            Got::Value(text, span) => Got::Value(text.to_string(), span),
+            Got::Absent => Got::Absent,
+            Got::Invalid => Got::Invalid,
+        }
+    }
+
+    /// A string value, borrowed from the parsed table.
+    fn text_value<'d>(&mut self, rec: &Record<'d, '_>, key: &str, required: bool) -> Got<&'d str> {
+        let Some(found) = self.get(rec, key) else {
             if required {
                 self.missing(rec, key);
                 return Got::Invalid;
             }
             return Got::Absent;
         };
-        match item.as_str() {
-            Some(text) => Got::Value(text.to_string(), span),
+        match found.value.as_str() {
+            Some(text) => Got::Value(text, found.span),
             None => {
-                self.wrong_type(rec, key, item, &span, "a string");
+                self.wrong_type(rec, key, &found, "a string");
                 Got::Invalid
             }
         }
     }
 
-    fn number(&mut self, rec: &Record<'_>, key: &str, required: bool) -> Got<f64> {
-        let Some((item, span)) = self.get(rec, key) else {
+    fn number(&mut self, rec: &Record<'_, '_>, key: &str, required: bool) -> Got<f64> {
+        let Some(found) = self.get(rec, key) else {
             if required {
                 self.missing(rec, key);
                 return Got::Invalid;
             }
             return Got::Absent;
         };
-        match item.as_value().and_then(value_number) {
-            Some(number) => Got::Value(number, span),
+        match value_number(found.value) {
+            Some(number) => Got::Value(number, found.span),
             None => {
-                self.wrong_type(rec, key, item, &span, "a number");
+                self.wrong_type(rec, key, &found, "a number");
                 Got::Invalid
             }
         }
     }
 
-    fn boolean(&mut self, rec: &Record<'_>, key: &str) -> Got<bool> {
-        let Some((item, span)) = self.get(rec, key) else {
+    fn boolean(&mut self, rec: &Record<'_, '_>, key: &str) -> Got<bool> {
+        let Some(found) = self.get(rec, key) else {
             return Got::Absent;
         };
-        match item.as_bool() {
-            Some(flag) => Got::Value(flag, span),
+        match found.value.as_bool() {
+            Some(flag) => Got::Value(flag, found.span),
             None => {
-                self.wrong_type(rec, key, item, &span, "true or false");
+                self.wrong_type(rec, key, &found, "true or false");
                 Got::Invalid
             }
         }
     }
 
     /// A number that must be finite (any sign).
-    fn finite(&mut self, rec: &Record<'_>, key: &str, required: bool) -> Got<f64> {
+    fn finite(&mut self, rec: &Record<'_, '_>, key: &str, required: bool) -> Got<f64> {
         match self.number(rec, key, required) {
             Got::Value(value, span) if !value.is_finite() => {
                 let message = format!(
@@ -542,7 +943,7 @@ impl<'t> Reader<'t> {
     }
 
     /// A number that must be positive and finite.
-    fn positive(&mut self, rec: &Record<'_>, key: &str, required: bool) -> Got<f64> {
+    fn positive(&mut self, rec: &Record<'_, '_>, key: &str, required: bool) -> Got<f64> {
         match self.number(rec, key, required) {
             Got::Value(value, span) if !(value.is_finite() && value > 0.0) => {
                 let message = format!(
@@ -558,20 +959,12 @@ impl<'t> Reader<'t> {
     }
 
     /// Reports every key of the table that the schema does not know, suggesting the intended one.
-    fn check_keys(&mut self, rec: &Record<'_>) {
+    fn check_keys(&mut self, rec: &Record<'_, '_>) {
         let unknown: Vec<(String, Span)> = rec
             .table
             .iter()
-            .filter(|(key, _)| !rec.allowed.contains(key))
-            .map(|(key, item)| {
-                let span = rec
-                    .table
-                    .key(key)
-                    .and_then(|k| k.span())
-                    .or_else(|| item.span())
-                    .unwrap_or_else(|| rec.header.clone());
-                (key.to_string(), span)
-            })
+            .filter(|(key, _)| !rec.allowed.contains(&key.get_ref().as_ref()))
+            .map(|(key, _)| (key.get_ref().to_string(), rec.span(key)))
             .collect();
         for (key, span) in unknown {
             let hint = match did_you_mean(&key, rec.allowed.iter().copied()) {
@@ -586,7 +979,7 @@ impl<'t> Reader<'t> {
     }
 
     /// Reads the id (or name) of an entry, reporting it missing or empty, and labels the record.
-    fn read_id(&mut self, rec: &mut Record<'_>, section: Section) -> Option<(String, Span)> {
+    fn read_id(&mut self, rec: &mut Record<'_, '_>, section: Section) -> Option<(String, Span)> {
         let key = section.id_key();
         match self.string(rec, key, true) {
             Got::Value(id, span) => {
@@ -613,33 +1006,53 @@ impl<'t> Reader<'t> {
         }
     }
 
-    /// The `[[section]]` entries of the root, each as a record. Accepts the usual array of tables and
-    /// also an inline array of inline tables (`pipe = [{ ... }]`), which TOML treats as the same data.
-    fn records<'d>(&mut self, root: &'d Table, section: Section) -> Vec<Record<'d>> {
+    /// The `[[section]]` entries of a parsed table (the root, or one run), each as a record. Accepts
+    /// the usual array of tables and also an inline array of inline tables (`pipe = [{ ... }]`), which
+    /// TOML treats as the same data.
+    fn records<'d>(
+        &mut self,
+        table: &'d DeTable<'t>,
+        offset: usize,
+        section: Section,
+    ) -> Vec<Record<'d, 't>> {
         let key = section.key();
         let mut records = Vec::new();
-        let Some(item) = root.get(key) else {
+        let holder = Record {
+            label: "",
+            place: String::new(),
+            allowed: &[],
+            table,
+            offset,
+            inline: false,
+            header: 0..0,
+            id: None,
+        };
+        let Some(found) = self.get(&holder, key) else {
             return records;
         };
-        let make = |table: &'d dyn TableLike, header: Span| Record {
+        let make = |table: &'d DeTable<'t>, header: Span, inline: bool| Record {
             label: section.label(),
             place: format!("[[{key}]]"),
             allowed: section.allowed_keys(),
             table,
+            offset,
+            inline,
             header,
             id: None,
         };
-        match item {
-            Item::ArrayOfTables(tables) => {
-                for table in tables.iter() {
-                    records.push(make(table, table.span().unwrap_or(0..0)));
+        match (found.value, found.kind) {
+            (DeValue::Array(tables), "array of tables") => {
+                for entry in tables.iter() {
+                    if let DeValue::Table(table) = entry.get_ref() {
+                        records.push(make(table, holder.span(entry), false));
+                    }
                 }
             }
-            Item::Value(Value::Array(array)) => {
+            (DeValue::Array(array), _) => {
                 for element in array.iter() {
-                    let span = element.span().unwrap_or(0..0);
-                    match element {
-                        Value::InlineTable(table) => records.push(make(table, span)),
+                    let span = holder.span(element);
+                    match element.get_ref() {
+                        DeValue::Table(table) => records.push(make(table, span, true)),
                         other => {
                             let message = format!(
                                 "each `{key}` entry must be a table, found {} `{}`",
@@ -651,16 +1064,11 @@ impl<'t> Reader<'t> {
                     }
                 }
             }
-            other => {
-                let span = other
-                    .span()
-                    .or_else(|| root.key(key).and_then(|k| k.span()))
-                    .unwrap_or(0..0);
+            (_, kind) => {
                 let message = format!(
-                    "`{key}` must be an array of tables: write `[[{key}]]` above each entry, found {}",
-                    type_name(other)
+                    "`{key}` must be an array of tables: write `[[{key}]]` above each entry, found {kind}"
                 );
-                self.report(&span, message, None, Some(key));
+                self.report(&found.span, message, None, Some(key));
             }
         }
         records
@@ -668,12 +1076,14 @@ impl<'t> Reader<'t> {
 
     // ---- the whole file ----
 
-    fn build(&mut self, root: &Table) -> LoadedNetwork {
+    fn build(&mut self, root: &DeTable<'t>, layout: &Layout) -> LoadedNetwork {
         let root_rec = Record {
             label: "",
             place: "the top level".to_string(),
             allowed: ROOT_KEYS,
             table: root,
+            offset: 0,
+            inline: false,
             header: 0..0,
             id: None,
         };
@@ -706,6 +1116,7 @@ impl<'t> Reader<'t> {
             valves: Vec::new(),
             hazen_williams_constant: None,
             conditions: Vec::new(),
+            lonlat_origin: self.lonlat_origin(&root_rec),
         };
         let mut sources = SourceMap {
             file: self.file.clone(),
@@ -715,144 +1126,176 @@ impl<'t> Reader<'t> {
         let mut pending_nodes: Vec<((String, Span), NodeRef, &'static str)> = Vec::new();
         let mut junction_spans: Vec<Span> = Vec::new();
 
-        for mut rec in self.records(root, Section::Junction) {
-            sources.junctions.push(self.location(rec.header.start));
-            let id = self.read_id(&mut rec, Section::Junction);
-            self.check_keys(&rec);
-            let elevation = self.finite(&rec, "elevation", true).value();
-            let demand = self.finite(&rec, "demand", false).value();
-            let position = self.position(&rec);
-            let index = network.junctions.len();
-            let id_span = id.as_ref().map_or(rec.header.clone(), |(_, s)| s.clone());
-            if let Some(id) = &id {
-                pending_nodes.push((id.clone(), NodeRef::Junction(index), "junction"));
+        for batch in layout.batches(Section::Junction) {
+            let Some((table, offset)) = self.open(root, &batch) else {
+                break;
+            };
+            for mut rec in self.records(&table, offset, Section::Junction) {
+                sources.junctions.push(self.location(rec.header.start));
+                let id = self.read_id(&mut rec, Section::Junction);
+                self.check_keys(&rec);
+                let elevation = self.finite(&rec, "elevation", true).value();
+                let demand = self.finite(&rec, "demand", false).value();
+                let position = self.position(&rec);
+                let index = network.junctions.len();
+                let id_span = id.as_ref().map_or(rec.header.clone(), |(_, s)| s.clone());
+                if let Some(id) = &id {
+                    pending_nodes.push((id.clone(), NodeRef::Junction(index), "junction"));
+                }
+                junction_spans.push(id_span);
+                network.junctions.push(Junction {
+                    id: id.map(|(id, _)| id).unwrap_or_default(),
+                    elevation_m: units_or_us.length_to_m(elevation.unwrap_or(f64::NAN)),
+                    demand_m3s: units_or_us.flow_to_m3s(demand.unwrap_or(0.0)),
+                    position,
+                });
             }
-            junction_spans.push(id_span);
-            network.junctions.push(Junction {
-                id: id.map(|(id, _)| id).unwrap_or_default(),
-                elevation_m: units_or_us.length_to_m(elevation.unwrap_or(f64::NAN)),
-                demand_m3s: units_or_us.flow_to_m3s(demand.unwrap_or(0.0)),
-                position,
-            });
         }
 
-        let fixed_head_records = self.records(root, Section::FixedHead);
-        let any_fixed_head = !fixed_head_records.is_empty();
-        for mut rec in fixed_head_records {
-            sources.fixed_heads.push(self.location(rec.header.start));
-            let id = self.read_id(&mut rec, Section::FixedHead);
-            self.check_keys(&rec);
-            let head = self.finite(&rec, "head", true).value();
-            let position = self.position(&rec);
-            let index = network.fixed_heads.len();
-            if let Some(id) = &id {
-                pending_nodes.push((id.clone(), NodeRef::FixedHead(index), "fixed head"));
+        let mut any_fixed_head = false;
+        for batch in layout.batches(Section::FixedHead) {
+            let Some((table, offset)) = self.open(root, &batch) else {
+                break;
+            };
+            for mut rec in self.records(&table, offset, Section::FixedHead) {
+                any_fixed_head = true;
+                sources.fixed_heads.push(self.location(rec.header.start));
+                let id = self.read_id(&mut rec, Section::FixedHead);
+                self.check_keys(&rec);
+                let head = self.finite(&rec, "head", true).value();
+                let position = self.position(&rec);
+                let index = network.fixed_heads.len();
+                if let Some(id) = &id {
+                    pending_nodes.push((id.clone(), NodeRef::FixedHead(index), "fixed head"));
+                }
+                network.fixed_heads.push(FixedHead {
+                    id: id.map(|(id, _)| id).unwrap_or_default(),
+                    head_m: units_or_us.length_to_m(head.unwrap_or(f64::NAN)),
+                    position,
+                });
             }
-            network.fixed_heads.push(FixedHead {
-                id: id.map(|(id, _)| id).unwrap_or_default(),
-                head_m: units_or_us.length_to_m(head.unwrap_or(f64::NAN)),
-                position,
-            });
         }
 
         let nodes = Namespace::in_file_order(self, "node id", pending_nodes);
 
         let mut groups: Namespace<usize> = Namespace::new("group name");
-        for mut rec in self.records(root, Section::Group) {
-            sources.groups.push(self.location(rec.header.start));
-            let name = self.read_id(&mut rec, Section::Group);
-            self.check_keys(&rec);
-            let group = self.group(&rec);
-            if let Some(name) = &name {
-                groups.register(self, "group", name, network.groups.len(), "name");
+        for batch in layout.batches(Section::Group) {
+            let Some((table, offset)) = self.open(root, &batch) else {
+                break;
+            };
+            for mut rec in self.records(&table, offset, Section::Group) {
+                sources.groups.push(self.location(rec.header.start));
+                let name = self.read_id(&mut rec, Section::Group);
+                self.check_keys(&rec);
+                let group = self.group(&rec);
+                if let Some(name) = &name {
+                    groups.register(self, "group", name, network.groups.len(), "name");
+                }
+                network.groups.push(RoughnessGroup {
+                    name: name.map(|(name, _)| name).unwrap_or_default(),
+                    ..group
+                });
             }
-            network.groups.push(RoughnessGroup {
-                name: name.map(|(name, _)| name).unwrap_or_default(),
-                ..group
-            });
         }
 
         let mut pending_links: Vec<((String, Span), LinkRef, &'static str)> = Vec::new();
         let mut all_links_resolved = true;
-        for mut rec in self.records(root, Section::Pipe) {
-            sources.pipes.push(self.location(rec.header.start));
-            let id = self.read_id(&mut rec, Section::Pipe);
-            self.check_keys(&rec);
-            let ends = self.ends(&rec, &nodes);
-            let length = self.positive(&rec, "length", true).value();
-            let diameter = self.positive(&rec, "diameter", true).value();
-            let c_factor = self.positive(&rec, "c", true).value();
-            let group = self.pipe_group(&rec, &groups);
-            let closed = self.boolean(&rec, "closed").value().unwrap_or(false);
-            let check_valve = self.boolean(&rec, "check_valve").value().unwrap_or(false);
-            let index = network.pipes.len();
-            if let Some(id) = &id {
-                pending_links.push((id.clone(), LinkRef::Pipe(index), "pipe"));
+        for batch in layout.batches(Section::Pipe) {
+            let Some((table, offset)) = self.open(root, &batch) else {
+                break;
+            };
+            for mut rec in self.records(&table, offset, Section::Pipe) {
+                sources.pipes.push(self.location(rec.header.start));
+                let id = self.read_id(&mut rec, Section::Pipe);
+                self.check_keys(&rec);
+                let ends = self.ends(&rec, &nodes);
+                let length = self.positive(&rec, "length", true).value();
+                let diameter = self.positive(&rec, "diameter", true).value();
+                let c_factor = self.positive(&rec, "c", true).value();
+                let group = self.pipe_group(&rec, &groups);
+                let closed = self.boolean(&rec, "closed").value().unwrap_or(false);
+                let check_valve = self.boolean(&rec, "check_valve").value().unwrap_or(false);
+                let index = network.pipes.len();
+                if let Some(id) = &id {
+                    pending_links.push((id.clone(), LinkRef::Pipe(index), "pipe"));
+                }
+                all_links_resolved &= ends.is_some();
+                let (from, to) = ends.unwrap_or((NodeRef::Junction(0), NodeRef::Junction(0)));
+                network.pipes.push(Pipe {
+                    id: id.map(|(id, _)| id).unwrap_or_default(),
+                    from,
+                    to,
+                    length_m: units_or_us.length_to_m(length.unwrap_or(f64::NAN)),
+                    diameter_m: units_or_us.diameter_to_m(diameter.unwrap_or(f64::NAN)),
+                    c_factor: c_factor.unwrap_or(f64::NAN),
+                    group,
+                    closed,
+                    check_valve,
+                    minor_loss: 0.0,
+                });
             }
-            all_links_resolved &= ends.is_some();
-            let (from, to) = ends.unwrap_or((NodeRef::Junction(0), NodeRef::Junction(0)));
-            network.pipes.push(Pipe {
-                id: id.map(|(id, _)| id).unwrap_or_default(),
-                from,
-                to,
-                length_m: units_or_us.length_to_m(length.unwrap_or(f64::NAN)),
-                diameter_m: units_or_us.diameter_to_m(diameter.unwrap_or(f64::NAN)),
-                c_factor: c_factor.unwrap_or(f64::NAN),
-                group,
-                closed,
-                check_valve,
-                minor_loss: 0.0,
-            });
         }
 
-        for mut rec in self.records(root, Section::Pump) {
-            sources.pumps.push(self.location(rec.header.start));
-            let id = self.read_id(&mut rec, Section::Pump);
-            self.check_keys(&rec);
-            let ends = self.ends(&rec, &nodes);
-            let curve = self.pump_curve(&rec, units_or_us);
-            let off = self.boolean(&rec, "off").value().unwrap_or(false);
-            let index = network.pumps.len();
-            if let Some(id) = &id {
-                pending_links.push((id.clone(), LinkRef::Pump(index), "pump"));
+        for batch in layout.batches(Section::Pump) {
+            let Some((table, offset)) = self.open(root, &batch) else {
+                break;
+            };
+            for mut rec in self.records(&table, offset, Section::Pump) {
+                sources.pumps.push(self.location(rec.header.start));
+                let id = self.read_id(&mut rec, Section::Pump);
+                self.check_keys(&rec);
+                let ends = self.ends(&rec, &nodes);
+                let curve = self.pump_curve(&rec, units_or_us);
+                let off = self.boolean(&rec, "off").value().unwrap_or(false);
+                let index = network.pumps.len();
+                if let Some(id) = &id {
+                    pending_links.push((id.clone(), LinkRef::Pump(index), "pump"));
+                }
+                all_links_resolved &= ends.is_some();
+                let (from, to) = ends.unwrap_or((NodeRef::Junction(0), NodeRef::Junction(0)));
+                network.pumps.push(Pump {
+                    id: id.map(|(id, _)| id).unwrap_or_default(),
+                    from,
+                    to,
+                    curve: curve.unwrap_or(PumpCurve {
+                        points: Vec::new(),
+                        a: f64::NAN,
+                        b: f64::NAN,
+                        c: f64::NAN,
+                    }),
+                    off,
+                });
             }
-            all_links_resolved &= ends.is_some();
-            let (from, to) = ends.unwrap_or((NodeRef::Junction(0), NodeRef::Junction(0)));
-            network.pumps.push(Pump {
-                id: id.map(|(id, _)| id).unwrap_or_default(),
-                from,
-                to,
-                curve: curve.unwrap_or(PumpCurve {
-                    points: Vec::new(),
-                    a: f64::NAN,
-                    b: f64::NAN,
-                    c: f64::NAN,
-                }),
-                off,
-            });
         }
 
         let links = Namespace::in_file_order(self, "link id", pending_links);
 
         let mut conditions: Namespace<usize> = Namespace::new("condition name");
         let mut condition_spans: Vec<Span> = Vec::new();
-        for mut rec in self.records(root, Section::Condition) {
-            sources.conditions.push(self.location(rec.header.start));
-            let name = self.read_id(&mut rec, Section::Condition);
-            self.check_keys(&rec);
-            let condition = self.condition(&rec, &network, &nodes, &links, units_or_us);
-            let name_span = name.as_ref().map_or(rec.header.clone(), |(_, s)| s.clone());
-            if let Some(name) = &name {
-                conditions.register(self, "condition", name, network.conditions.len(), "name");
+        for batch in layout.batches(Section::Condition) {
+            let Some((table, offset)) = self.open(root, &batch) else {
+                break;
+            };
+            for mut rec in self.records(&table, offset, Section::Condition) {
+                sources.conditions.push(self.location(rec.header.start));
+                let name = self.read_id(&mut rec, Section::Condition);
+                self.check_keys(&rec);
+                let condition = self.condition(&rec, &network, &nodes, &links, units_or_us);
+                let name_span = name.as_ref().map_or(rec.header.clone(), |(_, s)| s.clone());
+                if let Some(name) = &name {
+                    conditions.register(self, "condition", name, network.conditions.len(), "name");
+                }
+                condition_spans.push(name_span);
+                network.conditions.push(Condition {
+                    name: name.map(|(name, _)| name).unwrap_or_default(),
+                    ..condition
+                });
             }
-            condition_spans.push(name_span);
-            network.conditions.push(Condition {
-                name: name.map(|(name, _)| name).unwrap_or_default(),
-                ..condition
-            });
         }
 
-        if !any_fixed_head {
+        if self.abandoned {
+            // The whole document is read again; nothing found so far is kept.
+        } else if !any_fixed_head {
             self.report(
                 &(0..0),
                 "the network has no [[fixed_head]]: at least one reservoir, tank or boundary of known \
@@ -883,7 +1326,7 @@ impl<'t> Reader<'t> {
     // ---- pieces of entries ----
 
     /// Optional plan coordinates: both `x` and `y`, or neither.
-    fn position(&mut self, rec: &Record<'_>) -> Option<(f64, f64)> {
+    fn position(&mut self, rec: &Record<'_, '_>) -> Option<(f64, f64)> {
         let x = self.finite(rec, "x", false);
         let y = self.finite(rec, "y", false);
         let (given, span, absent) = match (x, y) {
@@ -900,15 +1343,50 @@ impl<'t> Reader<'t> {
         None
     }
 
+    /// `origin_lon` and `origin_lat` of the top level: both or neither, in range.
+    fn lonlat_origin(&mut self, rec: &Record<'_, '_>) -> Option<LonLat> {
+        let lon = self.finite(rec, "origin_lon", false);
+        let lat = self.finite(rec, "origin_lat", false);
+        let (given, span, absent) = match (lon, lat) {
+            (Got::Value(lon_deg, lon_span), Got::Value(lat_deg, lat_span)) => {
+                if !(-180.0..=180.0).contains(&lon_deg) {
+                    let message = format!(
+                        "`origin_lon` must be a longitude from -180 to 180 degrees, found `{lon_deg}`"
+                    );
+                    self.report(&lon_span, message, None, Some("origin_lon"));
+                    return None;
+                }
+                if !(-90.0..=90.0).contains(&lat_deg) {
+                    let message = format!(
+                        "`origin_lat` must be a latitude from -90 to 90 degrees, found `{lat_deg}`"
+                    );
+                    self.report(&lat_span, message, None, Some("origin_lat"));
+                    return None;
+                }
+                return Some(LonLat { lon_deg, lat_deg });
+            }
+            (Got::Value(_, span), Got::Absent) => ("origin_lon", span, "origin_lat"),
+            (Got::Absent, Got::Value(_, span)) => ("origin_lat", span, "origin_lon"),
+            _ => return None,
+        };
+        let message = format!("`{given}` given without `{absent}`: give both or neither");
+        self.report(&span, message, None, Some(absent));
+        None
+    }
+
     /// The `from` and `to` of a pipe or pump, resolved to nodes.
-    fn ends(&mut self, rec: &Record<'_>, nodes: &Namespace<NodeRef>) -> Option<(NodeRef, NodeRef)> {
-        let from = self.string(rec, "from", true);
-        let to = self.string(rec, "to", true);
-        let resolve = |reader: &mut Self, key: &str, got: &Got<String>| -> Option<NodeRef> {
+    fn ends(
+        &mut self,
+        rec: &Record<'_, '_>,
+        nodes: &Namespace<NodeRef>,
+    ) -> Option<(NodeRef, NodeRef)> {
+        let from = self.text_value(rec, "from", true);
+        let to = self.text_value(rec, "to", true);
+        let resolve = |reader: &mut Self, key: &str, got: &Got<&str>| -> Option<NodeRef> {
             let Got::Value(id, span) = got else {
                 return None;
             };
-            match nodes.get(id.as_str()) {
+            match nodes.get(id) {
                 Some(seen) => Some(seen.target),
                 None => {
                     let message = format!(
@@ -937,7 +1415,7 @@ impl<'t> Reader<'t> {
     }
 
     /// The optional `group` of a pipe, which must be declared in a `[[group]]`.
-    fn pipe_group(&mut self, rec: &Record<'_>, groups: &Namespace<usize>) -> Option<usize> {
+    fn pipe_group(&mut self, rec: &Record<'_, '_>, groups: &Namespace<usize>) -> Option<usize> {
         let Got::Value(name, span) = self.string(rec, "group", false) else {
             return None;
         };
@@ -953,7 +1431,7 @@ impl<'t> Reader<'t> {
     }
 
     /// Bounds and lock of a `[[group]]` (its name is filled in by the caller).
-    fn group(&mut self, rec: &Record<'_>) -> RoughnessGroup {
+    fn group(&mut self, rec: &Record<'_, '_>) -> RoughnessGroup {
         let min = self.positive(rec, "min", false);
         let max = self.positive(rec, "max", false);
         let locked = self.boolean(rec, "locked").value().unwrap_or(false);
@@ -988,33 +1466,25 @@ impl<'t> Reader<'t> {
 
     /// The `curve` of a pump: at least three [flow, head gain] points whose head gain falls as flow
     /// rises, fitted by least squares; the fit itself must not rise over the range of the points.
-    fn pump_curve(&mut self, rec: &Record<'_>, units: UnitSystem) -> Option<PumpCurve> {
-        let (item, curve_span) = match self.get(rec, "curve") {
-            Some(found) => found,
-            None => {
-                self.missing(rec, "curve");
-                return None;
-            }
+    fn pump_curve(&mut self, rec: &Record<'_, '_>, units: UnitSystem) -> Option<PumpCurve> {
+        let Some(found) = self.get(rec, "curve") else {
+            self.missing(rec, "curve");
+            return None;
         };
-        let Some(array) = item.as_array() else {
-            self.wrong_type(
-                rec,
-                "curve",
-                item,
-                &curve_span,
-                "an array of [flow, head gain] pairs",
-            );
+        let curve_span = found.span.clone();
+        let Some(array) = inline_array(&found) else {
+            self.wrong_type(rec, "curve", &found, "an array of [flow, head gain] pairs");
             return None;
         };
         let mut points: Vec<(f64, f64, Span)> = Vec::new();
         let mut all_good = true;
         for element in array.iter() {
-            let span = element.span().unwrap_or_else(|| curve_span.clone());
-            let pair = element.as_array().and_then(|pair| {
+            let span = rec.span(element);
+            let pair = element.get_ref().as_array().and_then(|pair| {
                 let mut values = pair.iter();
                 match (values.next(), values.next(), values.next()) {
                     (Some(flow), Some(head), None) => {
-                        Some((value_number(flow)?, value_number(head)?))
+                        Some((value_number(flow.get_ref())?, value_number(head.get_ref())?))
                     }
                     _ => None,
                 }
@@ -1109,7 +1579,7 @@ impl<'t> Reader<'t> {
     /// The body of a `[[condition]]` (its name is filled in by the caller).
     fn condition(
         &mut self,
-        rec: &Record<'_>,
+        rec: &Record<'_, '_>,
         network: &Network,
         nodes: &Namespace<NodeRef>,
         links: &Namespace<LinkRef>,
@@ -1121,22 +1591,28 @@ impl<'t> Reader<'t> {
             .unwrap_or(1.0);
         let fixed_head_ids = || network.fixed_heads.iter().map(|f| f.id.as_str());
         let mut heads = Vec::new();
-        if let Some((item, span)) = self.get(rec, "heads") {
-            match item.as_table_like() {
-                None => self.wrong_type(
-                    rec,
-                    "heads",
-                    item,
-                    &span,
-                    "a table of fixed head id = head, like { \"T-1\" = 600.0 }",
-                ),
-                Some(table) => {
-                    for (key, value) in table.iter() {
-                        let key_span = table
-                            .key(key)
-                            .and_then(|k| k.span())
-                            .unwrap_or_else(|| span.clone());
-                        let value_span = value.span().unwrap_or_else(|| key_span.clone());
+        if let Some(found) = self.get(rec, "heads") {
+            match found.value {
+                DeValue::Table(table) => {
+                    let within = Record {
+                        label: rec.label,
+                        place: String::new(),
+                        allowed: &[],
+                        table,
+                        offset: rec.offset,
+                        inline: rec.inline || found.kind == "inline table",
+                        header: found.span.clone(),
+                        id: None,
+                    };
+                    // In file order, as the heads are listed.
+                    let mut entries: Vec<_> = table.iter().collect();
+                    entries.sort_by_key(|(key, _)| key.span().start);
+                    for (key_spanned, value) in entries {
+                        let key: &str = key_spanned.get_ref();
+                        let key_span = within.span(key_spanned);
+                        let value_span = self
+                            .found(&within, value.get_ref(), within.span(value), &key_span)
+                            .span;
                         let target = match nodes.get(key) {
                             Some(Seen {
                                 target: NodeRef::FixedHead(index),
@@ -1163,8 +1639,7 @@ impl<'t> Reader<'t> {
                                 None
                             }
                         };
-                        let head = value.as_value().and_then(value_number);
-                        match head {
+                        match value_number(value.get_ref()) {
                             Some(head) if head.is_finite() => {
                                 if let Some(index) = target {
                                     heads.push((index, units.length_to_m(head)));
@@ -1181,6 +1656,12 @@ impl<'t> Reader<'t> {
                         }
                     }
                 }
+                _ => self.wrong_type(
+                    rec,
+                    "heads",
+                    &found,
+                    "a table of fixed head id = head, like { \"T-1\" = 600.0 }",
+                ),
             }
         }
         let closed_pipes = self.link_list(rec, "closed", links, network, LinkKind::Pipe);
@@ -1199,26 +1680,26 @@ impl<'t> Reader<'t> {
     /// `closed` (pipe ids) or `pumps_off` (pump ids) of a condition, resolved to indices.
     fn link_list(
         &mut self,
-        rec: &Record<'_>,
+        rec: &Record<'_, '_>,
         key: &str,
         links: &Namespace<LinkRef>,
         network: &Network,
         kind: LinkKind,
     ) -> Vec<usize> {
         let mut indices = Vec::new();
-        let Some((item, span)) = self.get(rec, key) else {
+        let Some(found) = self.get(rec, key) else {
             return indices;
         };
-        let Some(array) = item.as_array() else {
-            self.wrong_type(rec, key, item, &span, "an array of ids");
+        let Some(array) = inline_array(&found) else {
+            self.wrong_type(rec, key, &found, "an array of ids");
             return indices;
         };
         for element in array.iter() {
-            let element_span = element.span().unwrap_or_else(|| span.clone());
-            let Some(id) = element.as_str() else {
+            let element_span = rec.span(element);
+            let Some(id) = element.get_ref().as_str() else {
                 let message = format!(
                     "condition `{key}` must list ids as strings, found {} `{}`",
-                    value_type_name(element),
+                    value_type_name(element.get_ref()),
                     self.raw(&element_span)
                 );
                 self.report_at(rec, &element_span, message, key);
@@ -1331,7 +1812,11 @@ fn list_ids(network: &Network, junctions: &[usize]) -> String {
 /// Which junctions reach a fixed head through links that are open (pipes not closed, pumps not off,
 /// and none of the extra `closed_pipes` / `pumps_off`). Direction is ignored: a check valve still
 /// connects.
-fn reachable(network: &Network, closed_pipes: &[usize], pumps_off: &[usize]) -> Vec<bool> {
+pub(crate) fn reachable(
+    network: &Network,
+    closed_pipes: &[usize],
+    pumps_off: &[usize],
+) -> Vec<bool> {
     let junction_count = network.junctions.len();
     let node_count = junction_count + network.fixed_heads.len();
     let index = |node: NodeRef| match node {
@@ -1405,32 +1890,34 @@ fn hidden_character(c: char) -> bool {
         )
 }
 
-/// A TOML number (integer or float) as f64.
-pub(super) fn value_number(value: &Value) -> Option<f64> {
+/// A TOML number (integer or float) as f64 (integers out of range are refused before the walk).
+fn value_number(value: &DeValue<'_>) -> Option<f64> {
     match value {
-        Value::Integer(i) => Some(*i.value() as f64),
-        Value::Float(f) => Some(*f.value()),
+        DeValue::Integer(integer) => i64::from_str_radix(integer.as_str(), integer.radix())
+            .ok()
+            .map(|i| i as f64),
+        DeValue::Float(float) => float.as_str().parse::<f64>().ok(),
         _ => None,
     }
 }
 
-fn value_type_name(value: &Value) -> &'static str {
-    match value {
-        Value::String(_) => "string",
-        Value::Integer(_) => "integer",
-        Value::Float(_) => "float",
-        Value::Boolean(_) => "boolean",
-        Value::Datetime(_) => "date-time",
-        Value::Array(_) => "array",
-        Value::InlineTable(_) => "inline table",
+/// The array of a value written as an inline array `[...]` (not an array of tables).
+fn inline_array<'d, 't>(found: &Found<'d, 't>) -> Option<&'d DeArray<'t>> {
+    match found.value {
+        DeValue::Array(array) if found.kind == "array" => Some(array),
+        _ => None,
     }
 }
 
-fn type_name(item: &Item) -> &'static str {
-    match item {
-        Item::None => "nothing",
-        Item::Value(value) => value_type_name(value),
-        Item::Table(_) => "table",
-        Item::ArrayOfTables(_) => "array of tables",
+/// How messages name a value (tables inside values are always inline).
+fn value_type_name(value: &DeValue<'_>) -> &'static str {
+    match value {
+        DeValue::String(_) => "string",
+        DeValue::Integer(_) => "integer",
+        DeValue::Float(_) => "float",
+        DeValue::Boolean(_) => "boolean",
+        DeValue::Datetime(_) => "date-time",
+        DeValue::Array(_) => "array",
+        DeValue::Table(_) => "inline table",
     }
 }

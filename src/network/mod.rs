@@ -2,7 +2,10 @@
 
 pub mod edit;
 pub mod file;
+pub mod gis;
 pub mod graph;
+pub mod import;
+pub mod lonlat;
 pub mod model;
 mod pump_curve;
 pub mod suggest;
@@ -12,4 +15,4 @@ pub mod units;
 pub mod write;
 
 pub use model::*;
-pub use units::UnitSystem;
+pub use units::{UnitLabels, UnitSystem};

@@ -25,6 +25,11 @@ pub struct Network {
     /// The Hazen-Williams constant K of the file, in the formula of its unit system (see
     /// [`crate::hydraulics::headloss`]); `None` for the default of the unit system (10.44 us, 10.67 si).
     pub hazen_williams_constant: Option<f64>,
+    /// Where plan coordinates came from WGS84 longitude and latitude (a network imported with
+    /// `coordinates = "lonlat"`): the origin of the local projection that turned them into x, y (see
+    /// [`super::lonlat::LocalProjection`]), so exports can give lon/lat back. `None`: x, y are the file's
+    /// own plan coordinates.
+    pub lonlat_origin: Option<super::lonlat::LonLat>,
 }
 
 /// A node whose head is unknown: a pipe joint, hydrant or service point.

@@ -511,6 +511,7 @@ impl Draft {
             valves: Vec::new(),
             hazen_williams_constant: None,
             conditions: Vec::new(),
+            lonlat_origin: None,
         };
         net.fixed_heads = self
             .fixed_head_positions_m

@@ -39,7 +39,35 @@ pub enum UnitSystem {
     Si,
 }
 
+/// The `units` object of every `--json` report: the system's key and the label of each quantity, so
+/// that every number of a report is read against one of these five names (fields in alphabetical
+/// order, the order every JSON report prints its keys in).
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize)]
+pub struct UnitLabels {
+    /// Pipe diameters (`in` or `mm`).
+    pub diameter: &'static str,
+    /// Flows (`gpm` or `L/s`).
+    pub flow: &'static str,
+    /// Lengths, elevations and heads (`ft` or `m`).
+    pub length: &'static str,
+    /// Pressures (`psi` or `kPa`).
+    pub pressure: &'static str,
+    /// `us` or `si`.
+    pub system: &'static str,
+}
+
 impl UnitSystem {
+    /// The labels of this system, as the `units` object of JSON reports.
+    pub fn labels(self) -> UnitLabels {
+        UnitLabels {
+            diameter: self.diameter_label(),
+            flow: self.flow_label(),
+            length: self.length_label(),
+            pressure: self.pressure_label(),
+            system: self.key(),
+        }
+    }
+
     /// Parses the `units` key of a network file.
     pub fn parse(text: &str) -> Option<Self> {
         match text {

@@ -12,15 +12,43 @@ use super::model::{Network, NodeRef};
 
 /// The network file text of `net`.
 pub fn network_toml(net: &Network) -> String {
+    network_toml_with_comment(net, "")
+}
+
+/// The network file text of `net` under a comment block: each line of `comment` becomes a `# ` line at
+/// the top (an imported network says where it came from). An empty `comment` writes none.
+pub fn network_toml_with_comment(net: &Network, comment: &str) -> String {
     let units = net.units;
     // About 170 bytes a pipe and 90 a junction: reserve once for a city-sized file.
-    let mut out = String::with_capacity(net.pipes.len() * 170 + net.junctions.len() * 90 + 1024);
+    let mut out = String::with_capacity(
+        net.pipes.len() * 170 + net.junctions.len() * 90 + comment.len() + 1024,
+    );
+    for line in comment.lines() {
+        let line = line.trim_end();
+        if line.is_empty() {
+            out.push_str("#\n");
+        } else {
+            let _ = writeln!(out, "# {line}");
+        }
+    }
+    if !comment.is_empty() {
+        out.push('\n');
+    }
     let _ = writeln!(
         out,
         "title = {}\nunits = \"{}\"\n",
         quoted(&net.title),
         units.key()
     );
+    if let Some(origin) = net.lonlat_origin {
+        // Nine decimals of a degree: about 0.1 mm on the ground.
+        let _ = writeln!(
+            out,
+            "# x, y: east and north of this WGS84 point, in the file's length unit\norigin_lon = {}\norigin_lat = {}\n",
+            degrees(origin.lon_deg),
+            degrees(origin.lat_deg)
+        );
+    }
     for head in &net.fixed_heads {
         let _ = writeln!(
             out,
@@ -183,8 +211,16 @@ fn number(value: f64) -> String {
     text
 }
 
+fn degrees(value: f64) -> String {
+    let mut text = format!("{value:.9}");
+    while text.ends_with('0') && !text.ends_with(".0") {
+        text.pop();
+    }
+    text
+}
+
 /// A TOML basic string (TOML 1.0: `"` and `\` escaped, control characters as `\uXXXX`).
-fn quoted(text: &str) -> String {
+pub(crate) fn quoted(text: &str) -> String {
     let mut out = String::with_capacity(text.len() + 2);
     out.push('"');
     for ch in text.chars() {

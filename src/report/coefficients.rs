@@ -1070,6 +1070,7 @@ mod tests {
             valves: Vec::new(),
             hazen_williams_constant: None,
             conditions: vec![],
+            lonlat_origin: None,
         };
         let set = parse_coefficients_toml(
             "[[group]]\nname = \"ci\"\nc = 80\n\n[[group]]\nname = \"pvc\"\nc = 140\n",
@@ -1100,6 +1101,7 @@ mod tests {
             groups: vec![],
             valves: Vec::new(),
             hazen_williams_constant: k,
+            lonlat_origin: None,
             conditions: vec![],
         };
         let set = parse_coefficients_toml(

@@ -9,11 +9,16 @@
 //! - [`COEFFICIENTS_TOML`]: a `[[group]]` list that `apply` reads (see `docs/coefficients-file.md`);
 //! - [`CALIBRATED_NETWORK`]: the input network with the fitted C written in, otherwise byte-identical;
 //! - [`REPORT_MD`]: what was fitted, how, how well, and the caution;
-//! - [`FIT_SVG`]: measured against modelled pressure, before and after, with the 1:1 line.
+//! - [`FIT_SVG`]: measured against modelled pressure, before and after, with the 1:1 line;
+//! - [`PIPES_CSV`]: every pipe's group and C before and after, to join back onto a GIS by pipe id;
+//! - [`RESULTS_GEOJSON`] (when the network has plan coordinates): pipes and used tests as features.
+//!
+//! Every file goes through [`write_outputs`], so whatever rule it applies to a run covers them all.
 
 pub mod coefficients;
 mod json;
 mod markdown;
+pub mod per_pipe;
 mod plot;
 mod sections;
 pub mod table;
@@ -28,6 +33,7 @@ pub use coefficients::{
 };
 pub use json::json_summary;
 pub use markdown::report_markdown;
+pub use per_pipe::{PIPES_CSV_HEADER, pipes_csv, results_geojson};
 pub use plot::fit_svg;
 pub use text::text_summary;
 
@@ -46,13 +52,20 @@ pub const CALIBRATED_NETWORK: &str = "calibrated.toml";
 pub const REPORT_MD: &str = "report.md";
 /// File name of the measured-against-modelled plot.
 pub const FIT_SVG: &str = "fit.svg";
-/// Every file [`write_outputs`] writes, in the order it writes them.
-pub const OUTPUT_FILES: [&str; 5] = [
+/// File name of the per-pipe C table.
+pub const PIPES_CSV: &str = "pipes.csv";
+/// File name of the per-pipe and per-test map layer.
+pub const RESULTS_GEOJSON: &str = "results.geojson";
+/// Every file [`write_outputs`] may write, in the order it writes them ([`RESULTS_GEOJSON`] only for
+/// a network with plan coordinates).
+pub const OUTPUT_FILES: [&str; 7] = [
     COEFFICIENTS_CSV,
     COEFFICIENTS_TOML,
     CALIBRATED_NETWORK,
     REPORT_MD,
     FIT_SVG,
+    PIPES_CSV,
+    RESULTS_GEOJSON,
 ];
 /// The only outputs of a fit that did not converge: the report (marked NOT CONVERGED at its top) and
 /// the plot (titled so). An allow-list, so that an output added later (a per-pipe export, say) is
@@ -93,6 +106,8 @@ pub enum ReportError {
     Plot(String),
     #[error("the result has {result} pipe C-factors but the network has {network} pipes")]
     PipeCount { result: usize, network: usize },
+    #[error("cannot build pipes.csv: {0}")]
+    Csv(String),
 }
 
 /// The network text with the pipes of every fitted group (status fitted or at bound) given their C after
@@ -125,7 +140,7 @@ pub fn calibrated_network(
     apply_c_factors(network_text, &changed).map_err(ReportError::Edit)
 }
 
-/// The five output files of a run, named and built, ready for [`write_outputs`].
+/// The output files of a run, named and built, ready for [`write_outputs`].
 #[derive(Debug, Clone, PartialEq)]
 pub struct CalibrationOutputs {
     /// (file name, content), in [`OUTPUT_FILES`] order.
@@ -150,7 +165,11 @@ impl CalibrationOutputs {
                 ),
                 (REPORT_MD, report_markdown(run)),
                 (FIT_SVG, fit_svg(run.result, run.network.units)?),
-            ],
+                (PIPES_CSV, pipes_csv(run.network, &run.result.pipe_c_after)?),
+            ]
+            .into_iter()
+            .chain(results_geojson(run).map(|text| (RESULTS_GEOJSON, text)))
+            .collect(),
             converged: run.result.converged,
         })
     }

@@ -1,0 +1,63 @@
+//! Loading and solving the synthetic city of issue 11 (`roughcal make-city`: a 300 x 300 street
+//! grid, 90,000 junctions, about 180,000 pipes, a 30 MB network file), with the baselines in the same
+//! run: the bare scan of the text (what reading the file costs at the least) and the editable
+//! `toml_edit` document the loader built before walking it.
+//!
+//! Targets (whole process, measured with `/usr/bin/time -v` on the release binary, see the README):
+//! `check` under 0.5 s and 250 MB; `solve --json` under 1.5 s and 400 MB.
+
+use std::hint::black_box;
+use std::time::Duration;
+
+use criterion::{Criterion, criterion_group, criterion_main};
+use roughcal::city::{CityPlan, city};
+use roughcal::hydraulics::{GradientSolver, OperatingState};
+use roughcal::network::file::parse_network;
+use roughcal::network::write::network_toml;
+
+fn city_text() -> String {
+    let plan = CityPlan {
+        tests: 1,
+        ..CityPlan::default()
+    };
+    match city(&plan) {
+        Ok(built) => network_toml(&built.model),
+        Err(error) => panic!("the synthetic city does not solve: {error}"),
+    }
+}
+
+fn load(c: &mut Criterion) {
+    let text = city_text();
+    let mut group = c.benchmark_group("city 300x300");
+    group.sample_size(10);
+    group.warm_up_time(Duration::from_secs(1));
+    group.measurement_time(Duration::from_secs(15));
+    group.bench_function("baseline: scan the text (lines)", |b| {
+        b.iter(|| black_box(&text).lines().count())
+    });
+    group.bench_function("baseline: toml_edit document only", |b| {
+        b.iter(|| toml_edit::Document::parse(black_box(text.as_str())).is_ok())
+    });
+    group.bench_function("load (parse_network)", |b| {
+        b.iter(|| parse_network(black_box(&text), "city.toml").is_ok())
+    });
+    group.bench_function("load and solve", |b| {
+        b.iter(|| {
+            let Ok(loaded) = parse_network(black_box(&text), "city.toml") else {
+                return 0;
+            };
+            let net = &loaded.network;
+            let state = OperatingState::for_condition_name(net, None);
+            match (GradientSolver::new(net), state) {
+                (Ok(solver), Ok(state)) => solver
+                    .solve(net, &state, &net.c_factors(), None)
+                    .map_or(0, |solution| solution.iterations),
+                _ => 0,
+            }
+        })
+    });
+    group.finish();
+}
+
+criterion_group!(benches, load);
+criterion_main!(benches);

@@ -1,0 +1,186 @@
+//! `roughcal import --config IMPORT.toml --pipes PIPES --nodes NODES --out NETWORK.toml [--force]
+//! [--json]`: a GIS export (GeoJSON or CSV) into a network file. Exit 0 written, 1 refused (every
+//! problem listed, nothing written), 2 usage.
+
+use std::path::Path;
+use std::process::ExitCode;
+use std::time::{SystemTime, UNIX_EPOCH};
+
+use anyhow::Context as _;
+use roughcal::calibrate::CAUTION;
+use roughcal::network::import::{
+    ImportError, ImportInput, Source, SourceFormat, format_number, import_network,
+};
+use roughcal::storage::write_new;
+
+pub struct Args<'a> {
+    pub config: &'a Path,
+    pub pipes: &'a Path,
+    pub nodes: &'a Path,
+    pub out: &'a Path,
+    pub force: bool,
+    pub json: bool,
+}
+
+pub fn run(args: Args<'_>) -> anyhow::Result<ExitCode> {
+    let mut formats = Vec::new();
+    for (flag, path) in [("--pipes", args.pipes), ("--nodes", args.nodes)] {
+        match SourceFormat::from_file_name(&path.to_string_lossy()) {
+            Some(format) => formats.push(format),
+            None => {
+                eprintln!(
+                    "roughcal: {flag} {}: give a .geojson, .json or .csv file",
+                    path.display()
+                );
+                return Ok(ExitCode::from(2));
+            }
+        }
+    }
+    let (Some(&pipes_format), Some(&nodes_format)) = (formats.first(), formats.get(1)) else {
+        return Ok(ExitCode::from(2));
+    };
+    // Refuse before reading a large export rather than after.
+    if !args.force && args.out.exists() {
+        eprintln!(
+            "roughcal: {} already exists; refusing to overwrite it without --force",
+            args.out.display()
+        );
+        return Ok(ExitCode::from(1));
+    }
+    let read = |path: &Path, what: &str| {
+        std::fs::read_to_string(path)
+            .with_context(|| format!("cannot read {what} {}", path.display()))
+    };
+    let config_text = read(args.config, "import config")?;
+    let pipes_text = read(args.pipes, "pipes file")?;
+    let nodes_text = read(args.nodes, "nodes file")?;
+    let (config_file, pipes_file, nodes_file) = (
+        args.config.display().to_string(),
+        args.pipes.display().to_string(),
+        args.nodes.display().to_string(),
+    );
+    let input = ImportInput {
+        config_file: &config_file,
+        config_text: &config_text,
+        pipes: Source {
+            file: &pipes_file,
+            text: &pipes_text,
+            format: pipes_format,
+        },
+        nodes: Source {
+            file: &nodes_file,
+            text: &nodes_text,
+            format: nodes_format,
+        },
+    };
+    let written = import_network(&input)
+        .and_then(|imported| Ok((imported.network_toml(&input, &today())?, imported)));
+    let (text, imported) = match written {
+        Ok(done) => done,
+        Err(ImportError::Refused { problems }) => {
+            for problem in &problems {
+                eprintln!("roughcal: {problem}");
+            }
+            eprintln!(
+                "roughcal: {} problem{} found: nothing written",
+                problems.len(),
+                if problems.len() == 1 { "" } else { "s" }
+            );
+            return Ok(ExitCode::from(1));
+        }
+        Err(error @ ImportError::Config(_)) => {
+            eprintln!("roughcal: {error}");
+            return Ok(ExitCode::from(1));
+        }
+    };
+    write_new(args.out, text.as_bytes(), args.force)?;
+
+    let summary = imported.summary();
+    if args.json {
+        let json = serde_json::json!({
+            "written": args.out.display().to_string(),
+            "pipes": summary.pipes,
+            "junctions": summary.junctions,
+            "new_junctions": summary.new_junctions,
+            "fixed_heads": summary.fixed_heads,
+            "closed_pipes": summary.closed_pipes,
+            "groups": summary.groups,
+            "warnings": summary.warnings,
+            "caution": CAUTION,
+        });
+        println!("{}", serde_json::to_string_pretty(&json)?);
+        return Ok(ExitCode::SUCCESS);
+    }
+    for warning in &summary.warnings {
+        eprintln!("roughcal: warning: {warning}");
+    }
+    println!(
+        "wrote {}: {} pipes, {} junctions ({} new), {} fixed heads, {} warning{}",
+        args.out.display(),
+        summary.pipes,
+        summary.junctions,
+        summary.new_junctions,
+        summary.fixed_heads,
+        summary.warnings.len(),
+        if summary.warnings.len() == 1 { "" } else { "s" }
+    );
+    let width = summary
+        .groups
+        .iter()
+        .map(|g| g.group.chars().count())
+        .max()
+        .unwrap_or(0);
+    for group in &summary.groups {
+        println!(
+            "  {:<width$}  {} pipes",
+            group.group,
+            format_number(group.pipes as f64)
+        );
+    }
+    println!("Caution: {CAUTION}");
+    Ok(ExitCode::SUCCESS)
+}
+
+/// Today's UTC date as YYYY-MM-DD; `SOURCE_DATE_EPOCH` (seconds, the reproducible-builds convention)
+/// overrides the clock so a re-import can give the same bytes.
+fn today() -> String {
+    let seconds = std::env::var("SOURCE_DATE_EPOCH")
+        .ok()
+        .and_then(|s| s.trim().parse::<i64>().ok())
+        .unwrap_or_else(|| {
+            SystemTime::now()
+                .duration_since(UNIX_EPOCH)
+                .map_or(0, |d| i64::try_from(d.as_secs()).unwrap_or(0))
+        });
+    let (y, m, d) = civil_from_days(seconds.div_euclid(86_400));
+    format!("{y:04}-{m:02}-{d:02}")
+}
+
+/// Proleptic Gregorian date of a day count from 1970-01-01 (H. Hinnant, "chrono-Compatible Low-Level
+/// Date Algorithms", civil_from_days).
+fn civil_from_days(days: i64) -> (i64, u32, u32) {
+    let z = days + 719_468;
+    let era = z.div_euclid(146_097);
+    let doe = z.rem_euclid(146_097);
+    let yoe = (doe - doe / 1460 + doe / 36_524 - doe / 146_096) / 365;
+    let doy = doe - (365 * yoe + yoe / 4 - yoe / 100);
+    let mp = (5 * doy + 2) / 153;
+    let d = (doy - (153 * mp + 2) / 5 + 1) as u32;
+    let m = if mp < 10 { mp + 3 } else { mp - 9 } as u32;
+    let y = yoe + era * 400 + i64::from(m <= 2);
+    (y, m, d)
+}
+
+#[cfg(test)]
+mod tests {
+    use super::civil_from_days;
+
+    #[test]
+    fn civil_dates() {
+        // Hinnant's paper: day 0 is 1970-01-01; 2000-03-01 is day 11017 (from memory, checked by
+        // counting: 30 years of 365 days + 7 leap days + 31 + 29 = 11017).
+        assert_eq!(civil_from_days(0), (1970, 1, 1));
+        assert_eq!(civil_from_days(11_017), (2000, 3, 1));
+        assert_eq!(civil_from_days(-1), (1969, 12, 31));
+    }
+}
