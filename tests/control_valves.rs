@@ -383,3 +383,44 @@ fn a_network_constant_changes_every_solve_as_the_law_says() {
     scaled.pipes[0].c_factor = HazenWilliams::equivalent_c(100.0, 10.5088, 10.67);
     assert!(close(solve(&own).head_m[0], solve(&scaled).head_m[0], 1e-9));
 }
+
+#[test]
+fn a_network_file_with_a_prv_solves_and_reports_the_valve() {
+    // tests/data/two-zones.toml: invented, a reducing valve feeding a lower zone at 60 psi, and a
+    // condition that resets it to 45 psi.
+    let file = concat!(env!("CARGO_MANIFEST_DIR"), "/tests/data/two-zones.toml");
+    let run = |args: &[&str]| {
+        let out = std::process::Command::new(env!("CARGO_BIN_EXE_roughcal"))
+            .args(args)
+            .output()
+            .expect("runs");
+        assert!(
+            out.status.success(),
+            "{}",
+            String::from_utf8_lossy(&out.stderr)
+        );
+        serde_json::from_slice::<serde_json::Value>(&out.stdout).expect("json")
+    };
+    for (condition, psi) in [(None, 60.0), (Some("low"), 45.0)] {
+        let mut args = vec!["solve", file, "--json"];
+        if let Some(name) = condition {
+            args.extend(["--condition", name]);
+        }
+        let json = run(&args);
+        assert_eq!(json["valves"][0]["id"], "PRV-1");
+        assert_eq!(json["valves"][0]["state"], "active");
+        assert!((json["valves"][0]["flow"].as_f64().unwrap() - 300.0).abs() < 1e-6);
+        let j2 = json["nodes"]
+            .as_array()
+            .unwrap()
+            .iter()
+            .find(|n| n["id"] == "J-2")
+            .unwrap();
+        assert!(
+            (j2["pressure"].as_f64().unwrap() - psi).abs() < 1e-9,
+            "{j2}"
+        );
+    }
+    let check = run(&["check", file, "--json"]);
+    assert_eq!(check["summary"]["valves"], 1);
+}

@@ -83,7 +83,26 @@ fn network_variants() -> Vec<(&'static str, String)> {
         assert!(BASE.contains(from), "{from}");
         BASE.replacen(from, to, 1)
     };
+    let valve = |kind: &str, to: &str, setting: &str| {
+        format!(
+            "{BASE}\n[[valve]]\nid = \"V-1\"\nfrom = \"J-1\"\nto = \"{to}\"\ndiameter = 8.0\nkind = \"{kind}\"\nsetting = {setting}\n"
+        )
+    };
     vec![
+        ("valve kind", valve("prx", "J-2", "50.0")),
+        ("valve setting", valve("prv", "J-2", "-5.0")),
+        ("valve end", valve("prv", "T-1", "50.0")),
+        (
+            "valve settings",
+            valve("prv", "J-2", "50.0").replace(
+                "pumps_off = [\"PU-1\"]",
+                "pumps_off = [\"PU-1\"]\nvalve_settings = { \"V-9\" = 40.0 }",
+            ),
+        ),
+        (
+            "minor loss",
+            r("length = 600.0", "length = 600.0\nminor_loss = -1.0"),
+        ),
         ("syntax", r("id = \"J-2\"", "id = J-2\"")),
         ("unknown key", r("length = 600.0", "lenght = 600.0")),
         ("missing key", r("diameter = 8.0\n", "")),

@@ -147,6 +147,7 @@ struct JsonSummary<'a> {
     total_length: f64,
     /// Pipes in no group (also counted in `pipes`).
     ungrouped: JsonGroupLength<'a>,
+    valves: usize,
 }
 
 #[derive(Serialize)]
@@ -177,6 +178,7 @@ impl<'a> JsonSummary<'a> {
             junctions: summary.junctions,
             pipes: summary.pipes,
             pumps: summary.pumps,
+            valves: summary.valves,
             sources: summary
                 .sources
                 .iter()
@@ -215,12 +217,18 @@ fn render(summary: &NetworkSummary, file: &str) -> String {
     );
     let _ = writeln!(
         out,
-        "{}, {}, {} ({} closed), {}, {}, {}",
+        "{}, {}, {} ({} closed), {}{}, {}, {}",
         counted(summary.junctions, "junction"),
         counted(summary.fixed_heads, "fixed head"),
         counted(summary.pipes, "pipe"),
         summary.closed_pipes,
         counted(summary.pumps, "pump"),
+        // Only networks that have valves say so, keeping every other summary as it was.
+        if summary.valves > 0 {
+            format!(", {}", counted(summary.valves, "valve"))
+        } else {
+            String::new()
+        },
         counted(summary.groups, "group"),
         counted(summary.conditions, "condition")
     );

@@ -85,6 +85,7 @@ struct Report<'a> {
     pipes: Pipes<'a>,
     pumps: Pumps<'a>,
     units: UnitLabels,
+    valves: Valves<'a>,
     warnings: Vec<String>,
 }
 
@@ -104,6 +105,7 @@ impl<'a> Report<'a> {
             pipes: Pipes(context),
             pumps: Pumps(context),
             units: net.units.labels(),
+            valves: Valves(context),
             warnings: warning_lines(net, solution),
         }
     }
@@ -123,6 +125,19 @@ struct Nodes<'a>(Solved<'a>);
 struct Pipes<'a>(Solved<'a>);
 /// The pumps, each row built as it is written.
 struct Pumps<'a>(Solved<'a>);
+/// The control valves, each row built as it is written.
+struct Valves<'a>(Solved<'a>);
+
+#[derive(Serialize)]
+struct ValveRow<'a> {
+    flow: f64,
+    /// Head across the valve, from end minus to end; absent (null) where an end is isolated.
+    head_loss: Option<f64>,
+    id: &'a str,
+    kind: &'static str,
+    /// active (holding its setting), open, closed, or closed (control).
+    state: &'static str,
+}
 
 #[derive(Serialize)]
 struct JunctionRow<'a> {
@@ -215,6 +230,23 @@ impl Serialize for Pumps<'_> {
             headloss: None,
             id: &pump.id,
             status: solution.pump_status[k].label(),
+        }))
+    }
+}
+
+impl Serialize for Valves<'_> {
+    fn serialize<S: Serializer>(&self, serializer: S) -> Result<S::Ok, S::Error> {
+        let Solved { net, solution, .. } = self.0;
+        let units = net.units;
+        serializer.collect_seq(net.valves.iter().enumerate().map(|(k, valve)| {
+            let loss_m = solution.valve_head_loss_m[k];
+            ValveRow {
+                flow: units.flow_from_m3s(solution.valve_flow_m3s[k]),
+                head_loss: loss_m.is_finite().then(|| units.length_from_m(loss_m)),
+                id: &valve.id,
+                kind: valve.kind.keyword(),
+                state: solution.valve_status[k].label(),
+            }
         }))
     }
 }
@@ -335,6 +367,30 @@ fn render(
             ]);
         }
         let _ = write!(out, "\n{}", pumps.text(""));
+    }
+    if !net.valves.is_empty() {
+        let mut valves = TextTable::new(&[
+            ("valve", Align::Left),
+            ("kind", Align::Left),
+            (&format!("q {flow}"), Align::Right),
+            (&format!("loss {len}"), Align::Right),
+            ("state", Align::Left),
+        ]);
+        for (k, valve) in net.valves.iter().enumerate() {
+            let loss_m = solution.valve_head_loss_m[k];
+            valves.row(vec![
+                valve.id.clone(),
+                valve.kind.keyword().to_string(),
+                format!("{:.2}", units.flow_from_m3s(solution.valve_flow_m3s[k])),
+                if loss_m.is_finite() {
+                    format!("{:.2}", units.length_from_m(loss_m))
+                } else {
+                    "-".to_string()
+                },
+                solution.valve_status[k].label().to_string(),
+            ]);
+        }
+        let _ = write!(out, "\n{}", valves.text(""));
     }
     for line in warning_lines(net, solution) {
         let _ = writeln!(out, "warning: {line}");

@@ -31,7 +31,7 @@ use toml::de::{DeArray, DeTable, DeValue};
 use super::lonlat::LonLat;
 use super::model::{
     Condition, DEFAULT_GROUP_MAX_C, DEFAULT_GROUP_MIN_C, FixedHead, Junction, Network, NodeRef,
-    Pipe, Pump, PumpCurve, RoughnessGroup,
+    Pipe, Pump, PumpCurve, RoughnessGroup, Valve, ValveKind,
 };
 use super::suggest::did_you_mean;
 use super::units::UnitSystem;
@@ -124,6 +124,7 @@ pub struct SourceMap {
     pub fixed_heads: Vec<SourceLocation>,
     pub pipes: Vec<SourceLocation>,
     pub pumps: Vec<SourceLocation>,
+    pub valves: Vec<SourceLocation>,
     pub groups: Vec<SourceLocation>,
     pub conditions: Vec<SourceLocation>,
 }
@@ -382,6 +383,7 @@ enum Section {
     FixedHead,
     Pipe,
     Pump,
+    Valve,
     Group,
     Condition,
 }
@@ -389,12 +391,14 @@ enum Section {
 const ROOT_KEYS: &[&str] = &[
     "title",
     "units",
+    "hazen_williams_constant",
     "origin_lon",
     "origin_lat",
     "junction",
     "fixed_head",
     "pipe",
     "pump",
+    "valve",
     "group",
     "condition",
 ];
@@ -402,12 +406,13 @@ const ROOT_KEYS: &[&str] = &[
 impl Section {
     /// Every section, in the order [`Reader::build`] reads them (nodes before the links that name
     /// them, groups before the pipes).
-    const WALK_ORDER: [Self; 6] = [
+    const WALK_ORDER: [Self; 7] = [
         Self::Junction,
         Self::FixedHead,
         Self::Group,
         Self::Pipe,
         Self::Pump,
+        Self::Valve,
         Self::Condition,
     ];
 
@@ -423,6 +428,7 @@ impl Section {
             Self::FixedHead => "fixed_head",
             Self::Pipe => "pipe",
             Self::Pump => "pump",
+            Self::Valve => "valve",
             Self::Group => "group",
             Self::Condition => "condition",
         }
@@ -450,10 +456,28 @@ impl Section {
                 "group",
                 "closed",
                 "check_valve",
+                "minor_loss",
             ],
             Self::Pump => &["id", "from", "to", "curve", "off"],
+            Self::Valve => &[
+                "id",
+                "from",
+                "to",
+                "diameter",
+                "kind",
+                "setting",
+                "minor_loss",
+                "closed",
+            ],
             Self::Group => &["name", "min", "max", "locked"],
-            Self::Condition => &["name", "demand_factor", "heads", "closed", "pumps_off"],
+            Self::Condition => &[
+                "name",
+                "demand_factor",
+                "heads",
+                "closed",
+                "pumps_off",
+                "valve_settings",
+            ],
         }
     }
 
@@ -523,6 +547,7 @@ impl<T> Got<T> {
 enum LinkRef {
     Pipe(usize),
     Pump(usize),
+    Valve(usize),
 }
 
 /// An id already seen in a namespace: what it was and on which line.
@@ -1114,7 +1139,9 @@ impl<'t> Reader<'t> {
             pumps: Vec::new(),
             groups: Vec::new(),
             valves: Vec::new(),
-            hazen_williams_constant: None,
+            hazen_williams_constant: self
+                .positive(&root_rec, "hazen_williams_constant", false)
+                .value(),
             conditions: Vec::new(),
             lonlat_origin: self.lonlat_origin(&root_rec),
         };
@@ -1215,6 +1242,7 @@ impl<'t> Reader<'t> {
                 let group = self.pipe_group(&rec, &groups);
                 let closed = self.boolean(&rec, "closed").value().unwrap_or(false);
                 let check_valve = self.boolean(&rec, "check_valve").value().unwrap_or(false);
+                let minor_loss = self.not_negative(&rec, "minor_loss").unwrap_or(0.0);
                 let index = network.pipes.len();
                 if let Some(id) = &id {
                     pending_links.push((id.clone(), LinkRef::Pipe(index), "pipe"));
@@ -1231,7 +1259,7 @@ impl<'t> Reader<'t> {
                     group,
                     closed,
                     check_valve,
-                    minor_loss: 0.0,
+                    minor_loss,
                 });
             }
         }
@@ -1264,6 +1292,42 @@ impl<'t> Reader<'t> {
                         c: f64::NAN,
                     }),
                     off,
+                });
+            }
+        }
+
+        for batch in layout.batches(Section::Valve) {
+            let Some((table, offset)) = self.open(root, &batch) else {
+                break;
+            };
+            for mut rec in self.records(&table, offset, Section::Valve) {
+                sources.valves.push(self.location(rec.header.start));
+                let id = self.read_id(&mut rec, Section::Valve);
+                self.check_keys(&rec);
+                let ends = self.ends(&rec, &nodes);
+                let diameter = self.positive(&rec, "diameter", true).value();
+                let kind = self.valve_kind(&rec);
+                let setting = kind.and_then(|kind| self.valve_setting(&rec, kind, units_or_us));
+                if let (Some(kind), Some((from, to))) = (kind, ends) {
+                    self.check_controlled_end(&rec, kind, from, to);
+                }
+                let minor_loss = self.not_negative(&rec, "minor_loss").unwrap_or(0.0);
+                let closed = self.boolean(&rec, "closed").value().unwrap_or(false);
+                let index = network.valves.len();
+                if let Some(id) = &id {
+                    pending_links.push((id.clone(), LinkRef::Valve(index), "valve"));
+                }
+                all_links_resolved &= ends.is_some();
+                let (from, to) = ends.unwrap_or((NodeRef::Junction(0), NodeRef::Junction(0)));
+                network.valves.push(Valve {
+                    id: id.map(|(id, _)| id).unwrap_or_default(),
+                    from,
+                    to,
+                    diameter_m: units_or_us.diameter_to_m(diameter.unwrap_or(f64::NAN)),
+                    kind: kind.unwrap_or(ValveKind::Throttle),
+                    setting: setting.unwrap_or(f64::NAN),
+                    minor_loss,
+                    closed,
                 });
             }
         }
@@ -1664,20 +1728,171 @@ impl<'t> Reader<'t> {
                 ),
             }
         }
-        let closed_pipes = self.link_list(rec, "closed", links, network, LinkKind::Pipe);
+        let closed = self.link_list(rec, "closed", links, network, LinkKind::Pipe);
+        let (closed_pipes, closed_valves) = closed
+            .into_iter()
+            .partition::<Vec<_>, _>(|link| matches!(link, LinkRef::Pipe(_)));
+        let index = |link: &LinkRef| match *link {
+            LinkRef::Pipe(i) | LinkRef::Pump(i) | LinkRef::Valve(i) => i,
+        };
         let pumps_off = self.link_list(rec, "pumps_off", links, network, LinkKind::Pump);
+        let valve_settings = self.valve_settings(rec, links, network, units);
         Condition {
             name: String::new(),
             demand_factor,
             heads,
-            closed_pipes,
-            pumps_off,
-            valve_settings: Vec::new(),
-            closed_valves: Vec::new(),
+            closed_pipes: closed_pipes.iter().map(index).collect(),
+            pumps_off: pumps_off.iter().map(index).collect(),
+            valve_settings,
+            closed_valves: closed_valves.iter().map(index).collect(),
         }
     }
 
-    /// `closed` (pipe ids) or `pumps_off` (pump ids) of a condition, resolved to indices.
+    /// An optional number that must be finite and not negative (a loss coefficient).
+    fn not_negative(&mut self, rec: &Record<'_, '_>, key: &str) -> Option<f64> {
+        match self.finite(rec, key, false) {
+            Got::Value(value, _) if value >= 0.0 => Some(value),
+            Got::Value(value, span) => {
+                let message = format!(
+                    "{} must not be negative, found `{value}`",
+                    Self::what(rec, key)
+                );
+                self.report_at(rec, &span, message, key);
+                None
+            }
+            _ => None,
+        }
+    }
+
+    /// The `kind` of a valve: prv, psv, fcv or tcv.
+    fn valve_kind(&mut self, rec: &Record<'_, '_>) -> Option<ValveKind> {
+        let Got::Value(word, span) = self.string(rec, "kind", true) else {
+            return None;
+        };
+        let kind = ValveKind::from_keyword(&word);
+        if kind.is_none() {
+            let message = format!(
+                "valve `kind` must be \"prv\", \"psv\", \"fcv\" or \"tcv\", found \"{word}\"{}",
+                did_you_mean(&word, ["prv", "psv", "fcv", "tcv"])
+            );
+            self.report_at(rec, &span, message, "kind");
+        }
+        kind
+    }
+
+    /// A valve setting in internal units: a pressure (psi or kPa) for prv and psv, a flow for fcv, a
+    /// loss coefficient for tcv; required, finite and not negative.
+    fn valve_setting(
+        &mut self,
+        rec: &Record<'_, '_>,
+        kind: ValveKind,
+        units: UnitSystem,
+    ) -> Option<f64> {
+        let value = match self.finite(rec, "setting", true) {
+            Got::Value(value, _) if value >= 0.0 => value,
+            Got::Value(value, span) => {
+                let message = format!("valve `setting` must not be negative, found `{value}`");
+                self.report_at(rec, &span, message, "setting");
+                return None;
+            }
+            _ => return None,
+        };
+        Some(valve_setting_to_internal(kind, value, units))
+    }
+
+    /// A pressure valve's controlled end must be a junction: a fixed head's grade is already set.
+    fn check_controlled_end(
+        &mut self,
+        rec: &Record<'_, '_>,
+        kind: ValveKind,
+        from: NodeRef,
+        to: NodeRef,
+    ) {
+        let (end, key) = match kind {
+            ValveKind::PressureReducing => (to, "to"),
+            ValveKind::PressureSustaining => (from, "from"),
+            _ => return,
+        };
+        if matches!(end, NodeRef::FixedHead(_)) {
+            let span = self
+                .get(rec, key)
+                .map_or(rec.header.clone(), |f| f.span.clone());
+            let message = format!(
+                "a {} valve holds the pressure at its `{key}` end, which must be a junction, not a fixed head",
+                kind.keyword()
+            );
+            self.report_at(rec, &span, message, key);
+        }
+    }
+
+    /// `valve_settings` of a condition: a table of valve id = setting, in each valve's own units.
+    fn valve_settings(
+        &mut self,
+        rec: &Record<'_, '_>,
+        links: &Namespace<LinkRef>,
+        network: &Network,
+        units: UnitSystem,
+    ) -> Vec<(usize, f64)> {
+        let mut settings = Vec::new();
+        let Some(found) = self.get(rec, "valve_settings") else {
+            return settings;
+        };
+        let DeValue::Table(table) = found.value else {
+            self.wrong_type(
+                rec,
+                "valve_settings",
+                &found,
+                "a table of valve id = setting, like { \"PRV-3\" = 55.0 }",
+            );
+            return settings;
+        };
+        let within = Record {
+            label: rec.label,
+            place: String::new(),
+            allowed: &[],
+            table,
+            offset: rec.offset,
+            inline: rec.inline || found.kind == "inline table",
+            header: found.span.clone(),
+            id: None,
+        };
+        let mut entries: Vec<_> = table.iter().collect();
+        entries.sort_by_key(|(key, _)| key.span().start);
+        for (key_spanned, value) in entries {
+            let key: &str = key_spanned.get_ref();
+            let key_span = within.span(key_spanned);
+            let value_span = self
+                .found(&within, value.get_ref(), within.span(value), &key_span)
+                .span;
+            let Some(LinkRef::Valve(index)) = links.get(key).map(|seen| seen.target) else {
+                let message = format!(
+                    "condition `valve_settings` names `{key}`, which is not a valve of this file{}",
+                    did_you_mean(key, network.valves.iter().map(|v| v.id.as_str()))
+                );
+                self.report_at(rec, &key_span, message, "valve_settings");
+                continue;
+            };
+            match value_number(value.get_ref()) {
+                Some(setting) if setting.is_finite() && setting >= 0.0 => {
+                    if let Some(valve) = network.valves.get(index) {
+                        let internal = valve_setting_to_internal(valve.kind, setting, units);
+                        settings.push((index, internal));
+                    }
+                }
+                _ => {
+                    let message = format!(
+                        "condition `valve_settings` value for `{key}` must be a finite number, not \
+                         negative, found `{}`",
+                        self.raw(&value_span)
+                    );
+                    self.report_at(rec, &value_span, message, "valve_settings");
+                }
+            }
+        }
+        settings
+    }
+
+    /// `closed` (pipe and valve ids) or `pumps_off` (pump ids) of a condition, resolved.
     fn link_list(
         &mut self,
         rec: &Record<'_, '_>,
@@ -1685,7 +1900,7 @@ impl<'t> Reader<'t> {
         links: &Namespace<LinkRef>,
         network: &Network,
         kind: LinkKind,
-    ) -> Vec<usize> {
+    ) -> Vec<LinkRef> {
         let mut indices = Vec::new();
         let Some(found) = self.get(rec, key) else {
             return indices;
@@ -1706,10 +1921,13 @@ impl<'t> Reader<'t> {
                 continue;
             };
             let problem = match (links.get(id).map(|seen| seen.target), kind) {
-                (Some(LinkRef::Pipe(index)), LinkKind::Pipe)
-                | (Some(LinkRef::Pump(index)), LinkKind::Pump) => {
-                    indices.push(index);
+                (Some(link @ (LinkRef::Pipe(_) | LinkRef::Valve(_))), LinkKind::Pipe)
+                | (Some(link @ LinkRef::Pump(_)), LinkKind::Pump) => {
+                    indices.push(link);
                     continue;
+                }
+                (Some(LinkRef::Valve(_)), LinkKind::Pump) => {
+                    format!("`{id}` is a valve: list it in `closed`, not `pumps_off`")
                 }
                 (Some(LinkRef::Pump(_)), LinkKind::Pipe) => {
                     format!("`{id}` is a pump: list it in `pumps_off`, not `closed`")
@@ -1719,7 +1937,14 @@ impl<'t> Reader<'t> {
                 }
                 (None, LinkKind::Pipe) => format!(
                     "condition `closed` names `{id}`, which is not a pipe of this file{}",
-                    did_you_mean(id, network.pipes.iter().map(|p| p.id.as_str()))
+                    did_you_mean(
+                        id,
+                        network
+                            .pipes
+                            .iter()
+                            .map(|p| p.id.as_str())
+                            .chain(network.valves.iter().map(|v| v.id.as_str()))
+                    )
                 ),
                 (None, LinkKind::Pump) => format!(
                     "condition `pumps_off` names `{id}`, which is not a pump of this file{}",
@@ -1740,7 +1965,7 @@ impl<'t> Reader<'t> {
         condition_spans: &[Span],
         already_reported: &[bool],
     ) {
-        let base = reachable(network, &[], &[]);
+        let base = reachable(network, &[], &[], &[]);
         let isolated: Vec<usize> = (0..network.junctions.len())
             .filter(|&j| {
                 !base.get(j).copied().unwrap_or(false)
@@ -1764,7 +1989,12 @@ impl<'t> Reader<'t> {
             self.report(&span, message, id.as_deref(), None);
         }
         for (condition, span) in network.conditions.iter().zip(condition_spans) {
-            let reached = reachable(network, &condition.closed_pipes, &condition.pumps_off);
+            let reached = reachable(
+                network,
+                &condition.closed_pipes,
+                &condition.pumps_off,
+                &condition.closed_valves,
+            );
             let cut_off: Vec<usize> = (0..network.junctions.len())
                 .filter(|&j| {
                     base.get(j).copied().unwrap_or(false)
@@ -1789,6 +2019,18 @@ enum LinkKind {
     Pump,
 }
 
+/// A valve setting as written (psi or kPa for prv and psv, the flow unit for fcv, K for tcv) in the
+/// model's internal units.
+fn valve_setting_to_internal(kind: ValveKind, value: f64, units: UnitSystem) -> f64 {
+    match kind {
+        ValveKind::PressureReducing | ValveKind::PressureSustaining => {
+            units.pressure_to_head_m(value)
+        }
+        ValveKind::FlowControl => units.flow_to_m3s(value),
+        ValveKind::Throttle => value,
+    }
+}
+
 /// A number with at most four decimals and no trailing zeros, for messages.
 fn short_number(value: f64) -> String {
     let text = format!("{value:.4}");
@@ -1810,12 +2052,13 @@ fn list_ids(network: &Network, junctions: &[usize]) -> String {
 }
 
 /// Which junctions reach a fixed head through links that are open (pipes not closed, pumps not off,
-/// and none of the extra `closed_pipes` / `pumps_off`). Direction is ignored: a check valve still
-/// connects.
+/// valves not closed, and none of the extra `closed_pipes` / `pumps_off` / `closed_valves`). Direction
+/// is ignored: a check valve or a control valve still connects.
 pub(crate) fn reachable(
     network: &Network,
     closed_pipes: &[usize],
     pumps_off: &[usize],
+    closed_valves: &[usize],
 ) -> Vec<bool> {
     let junction_count = network.junctions.len();
     let node_count = junction_count + network.fixed_heads.len();
@@ -1857,6 +2100,11 @@ pub(crate) fn reachable(
     }
     for (pump, _) in network.pumps.iter().zip(&pump_on).filter(|(_, on)| **on) {
         connect(pump.from, pump.to);
+    }
+    for (index, valve) in network.valves.iter().enumerate() {
+        if !valve.closed && !closed_valves.contains(&index) {
+            connect(valve.from, valve.to);
+        }
     }
     let mut reached = vec![false; node_count];
     let mut stack: Vec<usize> = (junction_count..node_count).collect();

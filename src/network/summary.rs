@@ -28,6 +28,8 @@ pub struct NetworkSummary {
     pub pipes: usize,
     pub closed_pipes: usize,
     pub pumps: usize,
+    /// Control valves.
+    pub valves: usize,
     pub groups: usize,
     pub conditions: usize,
     /// Every declared group in file order, including groups no pipe uses (length 0).
@@ -74,6 +76,7 @@ impl NetworkSummary {
             pipes: network.pipes.len(),
             closed_pipes: network.pipes.iter().filter(|p| p.closed).count(),
             pumps: network.pumps.len(),
+            valves: network.valves.len(),
             groups: network.groups.len(),
             conditions: network.conditions.len(),
             length_by_group,

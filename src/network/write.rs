@@ -8,7 +8,8 @@
 
 use std::fmt::Write as _;
 
-use super::model::{Network, NodeRef};
+use super::model::{Network, NodeRef, ValveKind};
+use super::units::UnitSystem;
 
 /// The network file text of `net`.
 pub fn network_toml(net: &Network) -> String {
@@ -40,6 +41,9 @@ pub fn network_toml_with_comment(net: &Network, comment: &str) -> String {
         quoted(&net.title),
         units.key()
     );
+    if let Some(k) = net.hazen_williams_constant {
+        let _ = writeln!(out, "hazen_williams_constant = {}\n", number(k));
+    }
     if let Some(origin) = net.lonlat_origin {
         // Nine decimals of a degree: about 0.1 mm on the ground.
         let _ = writeln!(
@@ -107,6 +111,9 @@ pub fn network_toml_with_comment(net: &Network, comment: &str) -> String {
         if pipe.check_valve {
             out.push_str("check_valve = true\n");
         }
+        if pipe.minor_loss != 0.0 {
+            let _ = writeln!(out, "minor_loss = {}", number(pipe.minor_loss));
+        }
         out.push('\n');
     }
     for pump in &net.pumps {
@@ -132,6 +139,25 @@ pub fn network_toml_with_comment(net: &Network, comment: &str) -> String {
         );
         if pump.off {
             out.push_str("off = true\n");
+        }
+        out.push('\n');
+    }
+    for valve in &net.valves {
+        let _ = writeln!(
+            out,
+            "[[valve]]\nid = {}\nfrom = {}\nto = {}\ndiameter = {}\nkind = \"{}\"\nsetting = {}",
+            quoted(&valve.id),
+            node(valve.from),
+            node(valve.to),
+            number(units.diameter_from_m(valve.diameter_m)),
+            valve.kind.keyword(),
+            number(valve_setting_as_written(valve.kind, valve.setting, units))
+        );
+        if valve.minor_loss != 0.0 {
+            let _ = writeln!(out, "minor_loss = {}", number(valve.minor_loss));
+        }
+        if valve.closed {
+            out.push_str("closed = true\n");
         }
         out.push('\n');
     }
@@ -165,6 +191,12 @@ pub fn network_toml_with_comment(net: &Network, comment: &str) -> String {
             .closed_pipes
             .iter()
             .filter_map(|&k| net.pipes.get(k).map(|p| p.id.as_str()))
+            .chain(
+                condition
+                    .closed_valves
+                    .iter()
+                    .filter_map(|&k| net.valves.get(k).map(|v| v.id.as_str())),
+            )
             .collect();
         if !closed.is_empty() {
             let _ = writeln!(out, "closed = {}", list(closed));
@@ -177,9 +209,35 @@ pub fn network_toml_with_comment(net: &Network, comment: &str) -> String {
         if !off.is_empty() {
             let _ = writeln!(out, "pumps_off = {}", list(off));
         }
+        let settings: Vec<String> = condition
+            .valve_settings
+            .iter()
+            .filter_map(|&(k, setting)| {
+                let valve = net.valves.get(k)?;
+                Some(format!(
+                    "{} = {}",
+                    quoted(&valve.id),
+                    number(valve_setting_as_written(valve.kind, setting, units))
+                ))
+            })
+            .collect();
+        if !settings.is_empty() {
+            let _ = writeln!(out, "valve_settings = {{ {} }}", settings.join(", "));
+        }
         out.push('\n');
     }
     out
+}
+
+/// A valve setting in the file's units (the inverse of the loader's conversion).
+fn valve_setting_as_written(kind: ValveKind, setting: f64, units: UnitSystem) -> f64 {
+    match kind {
+        ValveKind::PressureReducing | ValveKind::PressureSustaining => {
+            units.pressure_from_head_m(setting)
+        }
+        ValveKind::FlowControl => units.flow_from_m3s(setting),
+        ValveKind::Throttle => setting,
+    }
 }
 
 fn position(out: &mut String, position: Option<(f64, f64)>) {
@@ -293,6 +351,24 @@ mod tests {
             assert_eq!(a.closed_pipes, b.closed_pipes);
             assert_eq!(a.pumps_off, b.pumps_off);
             assert_eq!(a.heads.len(), b.heads.len());
+            assert_eq!(a.closed_valves, b.closed_valves);
+            assert_eq!(a.valve_settings.len(), b.valve_settings.len());
+            for (x, y) in a.valve_settings.iter().zip(&b.valve_settings) {
+                assert!(x.0 == y.0 && close(x.1, y.1));
+            }
+        }
+        assert_eq!(
+            loaded.hazen_williams_constant,
+            original.hazen_williams_constant
+        );
+        assert_eq!(loaded.valves.len(), original.valves.len());
+        for (a, b) in loaded.valves.iter().zip(&original.valves) {
+            assert_eq!((&a.id, a.from, a.to, a.kind), (&b.id, b.from, b.to, b.kind));
+            assert!(close(a.diameter_m, b.diameter_m) && close(a.setting, b.setting));
+            assert!(close(a.minor_loss, b.minor_loss) && a.closed == b.closed);
+        }
+        for (a, b) in loaded.pipes.iter().zip(&original.pipes) {
+            assert!(close(a.minor_loss, b.minor_loss));
         }
     }
 
@@ -307,13 +383,25 @@ mod tests {
             net.title = "a \"quoted\" title \\ with a tab\t".into();
             net.pipes[3].closed = true;
             net.pipes[5].check_valve = true;
+            net.pipes[6].minor_loss = 2.5;
+            net.hazen_williams_constant = Some(10.5);
+            net.valves.push(crate::network::Valve {
+                id: "PRV-1".into(),
+                from: net.pipes[8].from,
+                to: net.pipes[8].to,
+                diameter_m: 0.2,
+                kind: ValveKind::PressureReducing,
+                setting: 40.0,
+                minor_loss: 0.3,
+                closed: false,
+            });
             net.conditions.push(Condition {
                 name: "night".into(),
                 demand_factor: 0.4,
                 heads: vec![(0, net.fixed_heads[0].head_m - 2.0)],
                 closed_pipes: vec![7, 9],
                 pumps_off: Vec::new(),
-                valve_settings: Vec::new(),
+                valve_settings: vec![(0, 35.0)],
                 closed_valves: Vec::new(),
             });
             assert_same(&net, &network_toml(&net));

@@ -421,7 +421,7 @@ fn check_like_the_loader(net: &Network, file: &str) -> Vec<ImportProblem> {
         }
     };
     let mut problems = Vec::new();
-    let base = reachable(net, &[], &[]);
+    let base = reachable(net, &[], &[], &[]);
     let isolated: Vec<usize> = (0..net.junctions.len())
         .filter(|&j| !base.get(j).copied().unwrap_or(false))
         .collect();
@@ -434,7 +434,12 @@ fn check_like_the_loader(net: &Network, file: &str) -> Vec<ImportProblem> {
         )));
     }
     for condition in &net.conditions {
-        let reached = reachable(net, &condition.closed_pipes, &condition.pumps_off);
+        let reached = reachable(
+            net,
+            &condition.closed_pipes,
+            &condition.pumps_off,
+            &condition.closed_valves,
+        );
         let cut_off: Vec<usize> = (0..net.junctions.len())
             .filter(|&j| {
                 base.get(j).copied().unwrap_or(false) && !reached.get(j).copied().unwrap_or(false)
