@@ -12,6 +12,7 @@ mod check;
 mod fireflow;
 mod import;
 mod loops;
+mod plan;
 mod solve;
 mod tests;
 mod ui;
@@ -119,6 +120,29 @@ pub enum Command {
         /// Iteration limit of the optimizer.
         #[arg(long = "max-iterations", default_value_t = 50)]
         max_iterations: u64,
+        #[arg(long)]
+        json: bool,
+    },
+    /// Rank candidate flow tests by the information they would add to the fit of the sheet.
+    Plan {
+        network: PathBuf,
+        sheet: PathBuf,
+        /// Number of tests to plan (chosen greedily, each given the ones before).
+        #[arg(long, default_value_t = 5)]
+        count: usize,
+        /// Flow hydrants per test: 1 or 2.
+        #[arg(long = "flow-hydrants", default_value_t = 1, value_parser = clap::value_parser!(u8).range(1..=2))]
+        flow_hydrants: u8,
+        /// Largest distance along the mains from the gauge to a flow hydrant (ft or m); default 1000 ft
+        /// / 300 m.
+        #[arg(long = "max-distance", allow_negative_numbers = true)]
+        max_distance: Option<f64>,
+        /// Smallest predicted drop at the gauge (psi or kPa); default 10 psi / 70 kPa.
+        #[arg(long = "min-drop", allow_negative_numbers = true)]
+        min_drop: Option<f64>,
+        /// No junction may fall below this while the hydrants flow (psi or kPa); default 20 psi / 140 kPa.
+        #[arg(long = "min-residual", allow_negative_numbers = true)]
+        min_residual: Option<f64>,
         #[arg(long)]
         json: bool,
     },
@@ -320,6 +344,25 @@ pub fn run(cli: Cli) -> anyhow::Result<ExitCode> {
             prior_sd,
             within,
             max_iterations,
+            json,
+        }),
+        Some(Command::Plan {
+            network,
+            sheet,
+            count,
+            flow_hydrants,
+            max_distance,
+            min_drop,
+            min_residual,
+            json,
+        }) => plan::run(plan::Args {
+            network,
+            sheet,
+            count,
+            flow_hydrants: usize::from(flow_hydrants),
+            max_distance,
+            min_drop,
+            min_residual,
             json,
         }),
         Some(Command::Apply {

@@ -408,3 +408,133 @@ fn groups_not_fitted_keep_each_pipes_own_c() {
     assert_eq!(result.pipe_c_after[feeds[0]], 130.0);
     assert_eq!(result.pipe_c_after[feeds[1]], 115.0);
 }
+
+/// Standard normal draws from a fixed-seed linear congruential generator (Knuth's MMIX constants) and
+/// the Box-Muller transform (both from memory): repeatable noise without a random-number crate.
+struct Normal(u64);
+
+impl Normal {
+    fn uniform(&mut self) -> f64 {
+        self.0 = self
+            .0
+            .wrapping_mul(6_364_136_223_846_793_005)
+            .wrapping_add(1_442_695_040_888_963_407);
+        ((self.0 >> 11) as f64 + 0.5) / (1u64 << 53) as f64
+    }
+
+    fn draw(&mut self) -> f64 {
+        let (u1, u2) = (self.uniform(), self.uniform());
+        (-2.0 * u1.ln()).sqrt() * (std::f64::consts::TAU * u2).cos()
+    }
+}
+
+#[test]
+fn fire_flow_interval_covers_the_true_flow_about_95_percent_of_the_time() {
+    // The 95 % interval is first order (the delta method, e.g. Casella and Berger, Statistical
+    // Inference, 5.5.4, from memory) through the fitted C covariance. Readings carry gauge noise of the
+    // assumed 1 psi; the model is exact apart from C, so coverage of the true model flow must be near
+    // 95 %: the band 85-99 % over 150 sheets x 6 tests (900 intervals: a binomial standard
+    // error of 0.7 points at 95 %).
+    use roughcal::calibrate::fireflow::fire_flow_estimates;
+    let truth = grid_network([80.0, 115.0, 100.0]);
+    let model = grid_network([100.0, 100.0, 100.0]);
+    let options = CalibrationOptions::for_units(UnitSystem::Us);
+    let clean = synthetic_readings(&truth, &PLAN, &[], "T");
+    let true_flow: Vec<f64> = fire_flow_estimates(
+        &truth,
+        &clean,
+        &truth.c_factors(),
+        &[],
+        &[],
+        options.target_residual_m,
+    )
+    .unwrap()
+    .iter()
+    .map(|e| e.flow.unwrap())
+    .collect();
+    let mut normal = Normal(20_261_203);
+    let (mut covered, mut total) = (0, 0);
+    for _ in 0..150 {
+        let noise: Vec<f64> = (0..2 * PLAN.len()).map(|_| normal.draw()).collect();
+        let tests = synthetic_readings(&truth, &PLAN, &noise, "T");
+        let result = run(&model, &tests, &options);
+        for (estimate, truth_q) in result.fire_flow.iter().zip(&true_flow) {
+            let (low, high) = estimate.ci95.expect("an interval for every test");
+            total += 1;
+            if (low..=high).contains(truth_q) {
+                covered += 1;
+            }
+        }
+    }
+    let rate = covered as f64 / total as f64;
+    assert!(
+        (0.85..=0.99).contains(&rate),
+        "coverage {rate} ({covered} of {total})"
+    );
+}
+
+#[test]
+fn planned_tests_reduce_c_errors_more_than_random_feasible_tests() {
+    // The design claim of Bush and Uber (1998, from memory): tests chosen by D-optimal gain inform the
+    // fit more than tests chosen at random. Averaged over 30 noisy seeds, three planned tests must leave
+    // the two groups' squared C errors at most half of those left by three random feasible candidates
+    // (0.13 to 0.29 of them at the four seeds tried while writing this test).
+    use roughcal::calibrate::plan::{PlanOptions, plan_tests};
+    let truth = grid_network([80.0, 115.0, 100.0]);
+    let model = grid_network([100.0, 100.0, 100.0]);
+    let options = CalibrationOptions::for_units(UnitSystem::Us);
+    let plan_options = PlanOptions {
+        count: 200,
+        max_distance_m: UnitSystem::Us.length_to_m(2500.0),
+        ..PlanOptions::for_units(UnitSystem::Us)
+    };
+    let start = &PLAN[..2];
+    let mut normal = Normal(7_771);
+    let squared_error = |result: &roughcal::calibrate::CalibrationResult| {
+        [("ci-old", 80.0), ("di-new", 115.0)]
+            .iter()
+            .map(|(g, c)| (result.fitted_c(g).unwrap_or(100.0) - c).powi(2))
+            .sum::<f64>()
+    };
+    let (mut planned_error, mut random_error) = (0.0, 0.0);
+    let seeds = 30;
+    for _ in 0..seeds {
+        let noise: Vec<f64> = (0..2 * start.len()).map(|_| normal.draw()).collect();
+        let first = synthetic_readings(&truth, start, &noise, "S");
+        let fit = run(&model, &first, &options);
+        let ranked = plan_tests(&model, &fit, &options, &plan_options).unwrap();
+        assert!(ranked.candidates.len() >= 6, "{}", ranked.candidates.len());
+        let as_plan = |c: &roughcal::calibrate::plan::PlanCandidate| {
+            (
+                c.residual_junction,
+                c.flow_junctions[0],
+                UnitSystem::Us.flow_from_m3s(c.flow_m3s),
+            )
+        };
+        let top: Vec<_> = ranked.candidates.iter().take(3).map(as_plan).collect();
+        let mut random = Vec::new();
+        while random.len() < 3 {
+            let pick = (normal.uniform() * ranked.candidates.len() as f64) as usize;
+            let candidate = as_plan(&ranked.candidates[pick.min(ranked.candidates.len() - 1)]);
+            if !random.contains(&candidate) {
+                random.push(candidate);
+            }
+        }
+        // The same noise on the new readings of both designs.
+        let new_noise: Vec<f64> = (0..6).map(|_| normal.draw()).collect();
+        let with = |added: &[(usize, usize, f64)]| {
+            let mut tests = first.clone();
+            tests.extend(synthetic_readings(&truth, added, &new_noise, "N"));
+            squared_error(&run(&model, &tests, &options))
+        };
+        let (a, b) = (with(&top), with(&random));
+        planned_error += a;
+        random_error += b;
+    }
+    assert!(
+        planned_error < 0.5 * random_error,
+        "planned {} vs random {} (mean squared C error per seed)",
+        planned_error / seeds as f64,
+        random_error / seeds as f64
+    );
+}

@@ -5,6 +5,7 @@ use std::path::{Path, PathBuf};
 use std::process::Command;
 use std::sync::atomic::AtomicBool;
 
+use roughcal::calibrate::plan::{PlanOptions, plan_tests};
 use roughcal::calibrate::{CalibrationOptions, CalibrationTest, calibrate};
 use roughcal::fieldtest::{FieldSheet, save_sheet};
 use roughcal::network::UnitSystem;
@@ -310,6 +311,21 @@ fn cli_outcomes(s: &Scratch) -> Vec<Outcome> {
         "target",
         &["fireflow", sheet.to_str().unwrap(), "--target=-5"],
     ));
+    let sheet_path = sheet.to_str().unwrap();
+    out.push(s.run("plan count", &["plan", net, sheet_path, "--count", "0"]));
+    out.push(s.run(
+        "plan distance",
+        &["plan", net, sheet_path, "--max-distance=-5"],
+    ));
+    out.push(s.run("plan drop", &["plan", net, sheet_path, "--min-drop", "0"]));
+    out.push(s.run(
+        "plan residual",
+        &["plan", net, sheet_path, "--min-residual", "nan"],
+    ));
+    out.push(s.run(
+        "plan flow hydrants",
+        &["plan", net, sheet_path, "--flow-hydrants", "3"],
+    ));
     out.push(s.run("subcommand", &["slove", net]));
     out.push(s.run("missing argument", &["solve"]));
     out
@@ -476,6 +492,66 @@ fn library_outcomes(s: &Scratch) -> Vec<Outcome> {
         ..test(0)
     };
     refusal("cancelled", fit(&[informing], true));
+    // Readings the model itself gives, so the fit stays inside the bounds with a standard error.
+    let solver = roughcal::hydraulics::GradientSolver::new(&net).unwrap();
+    let base = roughcal::hydraulics::OperatingState::base(&net);
+    let c = net.c_factors();
+    let statics = solver.solve(&net, &base, &c, None).unwrap();
+    let mut flowing = base.clone();
+    flowing.add_demand(2, 0.03);
+    let flowing = solver.solve(&net, &flowing, &c, None).unwrap();
+    let modelled = |id: &str, gauge: usize| CalibrationTest {
+        id: id.into(),
+        residual_junction: gauge,
+        condition: None,
+        hydrant_flows_m3s: vec![(2, 0.03)],
+        static_head_m: statics.pressure_head_m(&net, gauge).unwrap(),
+        residual_head_m: flowing.pressure_head_m(&net, gauge).unwrap(),
+    };
+    let fitted = calibrate(
+        &net,
+        &[modelled("HT-1", 2), modelled("HT-2", 1)],
+        &options,
+        &mut |_| {},
+        &AtomicBool::new(false),
+    )
+    .unwrap();
+    let plan = |result: &roughcal::calibrate::CalibrationResult, options: &PlanOptions| {
+        plan_tests(
+            &net,
+            result,
+            &CalibrationOptions::for_units(UnitSystem::Us),
+            options,
+        )
+        .unwrap_err()
+        .to_string()
+    };
+    let us = PlanOptions::for_units(UnitSystem::Us);
+    let mut nothing = fitted.clone();
+    for group in &mut nothing.groups {
+        group.status = roughcal::calibrate::GroupStatus::Locked;
+    }
+    refusal("plan nothing fitted", plan(&nothing, &us));
+    refusal(
+        "plan no candidate",
+        plan(
+            &fitted,
+            &PlanOptions {
+                min_drop_m: 1e4,
+                ..us.clone()
+            },
+        ),
+    );
+    refusal(
+        "plan flow hydrants (library)",
+        plan(
+            &fitted,
+            &PlanOptions {
+                flow_hydrants: 3,
+                ..us
+            },
+        ),
+    );
     refusal("bad test", fit(&[test(999)], false));
 
     let iso = parse_network(

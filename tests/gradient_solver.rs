@@ -386,3 +386,73 @@ fn head_sensitivity_matches_finite_differences() {
         );
     }
 }
+
+#[test]
+fn demand_sensitivity_matches_finite_differences() {
+    // Implicit differentiation of continuity (A dH = -e_i), checked against central differences of the
+    // solver itself (general numerical practice, no source needed beyond the definition).
+
+    // A looped network: two paths from the tank to the far junction.
+    let net = network(
+        vec![
+            junction("A", 10.0, 0.01),
+            junction("B", 12.0, 0.02),
+            junction("C", 8.0, 0.015),
+        ],
+        vec![fixed("T", 90.0)],
+        vec![
+            pipe(
+                "1",
+                NodeRef::FixedHead(0),
+                NodeRef::Junction(0),
+                800.0,
+                0.25,
+                110.0,
+            ),
+            pipe(
+                "2",
+                NodeRef::Junction(0),
+                NodeRef::Junction(1),
+                500.0,
+                0.15,
+                90.0,
+            ),
+            pipe(
+                "3",
+                NodeRef::Junction(0),
+                NodeRef::Junction(2),
+                600.0,
+                0.2,
+                130.0,
+            ),
+            pipe(
+                "4",
+                NodeRef::Junction(2),
+                NodeRef::Junction(1),
+                400.0,
+                0.15,
+                70.0,
+            ),
+        ],
+    );
+    let solver = GradientSolver::new(&net).unwrap();
+    let state = OperatingState::base(&net);
+    let c = net.c_factors();
+    let base = solver.solve(&net, &state, &c, None).unwrap();
+    let analytic = base.head_sensitivity_to_demand(1).unwrap();
+    for (i, &expected) in analytic.iter().enumerate() {
+        let step = 1e-4;
+        let mut up = state.clone();
+        up.add_demand(i, step);
+        let mut down = state.clone();
+        down.add_demand(i, -step);
+        let h_up = solver.solve(&net, &up, &c, Some(&base)).unwrap().head_m[1];
+        let h_down = solver.solve(&net, &down, &c, Some(&base)).unwrap().head_m[1];
+        let numeric = (h_up - h_down) / (2.0 * step);
+        assert!(numeric < 0.0, "more demand lowers the grade");
+        assert!(
+            (expected - numeric).abs() < 1e-4 * numeric.abs(),
+            "junction {i}: {expected} vs {numeric}"
+        );
+    }
+}

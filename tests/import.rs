@@ -682,6 +682,8 @@ fn empty_result() -> roughcal::calibrate::CalibrationResult {
         groups: vec![],
         correlation_groups: vec![],
         correlation: vec![],
+        covariance: vec![],
+        fire_flow: vec![],
         strongly_correlated: vec![],
         before: FitStatistics::of(&[], 1.0, 2.0),
         after: FitStatistics::of(&[], 1.0, 2.0),

@@ -16,12 +16,15 @@
 //! design or operational decisions, and local codes and the fire authority's requirements govern.
 
 mod evaluate;
+pub mod fireflow;
 mod optimizer;
+pub mod plan;
 mod statistics;
 
 use std::sync::atomic::AtomicBool;
 
 pub use evaluate::TestEvaluation;
+pub use fireflow::FireFlowEstimate;
 pub use statistics::FitStatistics;
 
 use crate::hydraulics::SolveError;
@@ -79,6 +82,9 @@ pub struct CalibrationOptions {
     /// A group is informed by a test when a change of [`INFORMED_C_CHANGE`] in its C moves one of the
     /// test's fitted readings by at least this many gauge standard deviations.
     pub informed_response_sd: f64,
+    /// Target residual pressure of the fire-flow estimates (m of water). Default 20 psi / 140 kPa
+    /// (NFPA 291; see [`crate::fieldtest::default_target`]).
+    pub target_residual_m: f64,
     /// Threads the tests are shared over at each model evaluation; `None` for one per core. The result
     /// does not depend on it: each test's solves depend only on that test's own earlier solves.
     pub worker_threads: Option<usize>,
@@ -106,6 +112,7 @@ impl CalibrationOptions {
                 units.pressure_to_head_m(loose),
             ),
             informed_response_sd: 0.25,
+            target_residual_m: units.pressure_to_head_m(crate::fieldtest::default_target(units)),
             worker_threads: None,
         }
     }
@@ -187,6 +194,12 @@ pub struct CalibrationResult {
     /// Names of the groups in the correlation matrix (the fitted ones), in order.
     pub correlation_groups: Vec<String>,
     pub correlation: Vec<Vec<f64>>,
+    /// Covariance of the C of `correlation_groups`, in that order (inflated by the reduced chi-square
+    /// when above 1); empty when it could not be formed.
+    pub covariance: Vec<Vec<f64>>,
+    /// The model's flow available at [`CalibrationOptions::target_residual_m`] for every test, after
+    /// the fit, with its first-order 95 % interval ([`fireflow`]); in test order.
+    pub fire_flow: Vec<FireFlowEstimate>,
     /// Pairs whose correlation exceeds 0.9 in magnitude: the tests cannot tell them apart.
     pub strongly_correlated: Vec<(String, String, f64)>,
     pub before: FitStatistics,
@@ -356,6 +369,21 @@ pub fn calibrate(
         final_rows: &final_rows,
     });
 
+    // Without a covariance there is no interval, but the flow is still worth showing.
+    let (interval_pipes, interval_covariance) = if report.covariance.is_empty() {
+        (Vec::new(), Vec::new())
+    } else {
+        (report.covariance_pipes.clone(), report.covariance.clone())
+    };
+    let fire_flow = fireflow::fire_flow_estimates(
+        net,
+        tests,
+        &pipe_c_after,
+        &interval_pipes,
+        &interval_covariance,
+        options.target_residual_m,
+    )?;
+
     let (iterations, converged, termination) = match outcome {
         Some(o) => (o.iterations, o.converged, o.termination),
         None => (
@@ -369,6 +397,8 @@ pub fn calibrate(
         groups: report.groups,
         correlation_groups: report.correlation_groups,
         correlation: report.correlation,
+        covariance: report.covariance,
+        fire_flow,
         strongly_correlated: report.strongly_correlated,
         before: report.before,
         after: report.after,

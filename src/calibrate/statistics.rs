@@ -97,6 +97,10 @@ pub(super) struct Summary {
     pub groups: Vec<GroupFit>,
     pub correlation_groups: Vec<String>,
     pub correlation: Vec<Vec<f64>>,
+    /// Covariance of the C of `correlation_groups` (empty when the normal matrix is singular).
+    pub covariance: Vec<Vec<f64>>,
+    /// Pipes of each of `correlation_groups`.
+    pub covariance_pipes: Vec<Vec<usize>>,
     pub strongly_correlated: Vec<(String, String, f64)>,
     pub before: FitStatistics,
     pub after: FitStatistics,
@@ -262,10 +266,23 @@ impl Summary {
             }
         }
 
+        let covariance_rows = covariance
+            .as_ref()
+            .map(|cov| {
+                (0..p)
+                    .map(|a| (0..p).map(|b| cov[(a, b)]).collect())
+                    .collect()
+            })
+            .unwrap_or_default();
         Self {
             groups,
             correlation_groups,
             correlation,
+            covariance: covariance_rows,
+            covariance_pipes: inside
+                .iter()
+                .map(|&g| candidates[g].pipes.clone())
+                .collect(),
             strongly_correlated,
             before: FitStatistics::of(&all_before, tight, loose),
             after: FitStatistics::of(&all_after, tight, loose),

@@ -192,9 +192,16 @@ fn compare_tests(
             {
                 findings.push(finding);
             }
-            comparison.model_available =
-                model_available_flow(&solver, net, &base, &c, &resolved, &statics, target_head_m)?
-                    .map(|q| units.flow_from_m3s(q));
+            comparison.model_available = model_available_flow(
+                &solver,
+                net,
+                &base,
+                &c,
+                (resolved.residual_junction, &resolved.hydrants),
+                &statics,
+                target_head_m,
+            )?
+            .map(|(q, _)| units.flow_from_m3s(q));
         }
         comparison.findings = findings;
         out.push(comparison);
@@ -210,36 +217,32 @@ fn with_hydrants(base: &OperatingState, hydrants: &[(usize, f64)], scale: f64) -
     state
 }
 
-/// Root search on the solver for the hydrant flow that brings the gauge to the target pressure: the
-/// hydrants keep the test's split and their total is scaled. Bracketed by doubling from the test flow,
-/// then bisection to 0.1 % of the flow.
-fn model_available_flow(
+/// Root search on the solver for the hydrant flow (m^3/s) that brings the gauge to the target pressure:
+/// the hydrants (junction, test flow in m^3/s) keep the test's split and their total is scaled.
+/// Bracketed by doubling from the test flow, then bisection to 0.1 % of the flow. Also returns the
+/// solution at the flow found (with its factorization, for sensitivities), or `None` when the flow is
+/// 0 because the static is already below the target.
+pub(crate) fn model_available_flow(
     solver: &GradientSolver,
     net: &Network,
     base: &OperatingState,
     c: &[f64],
-    test: &ResolvedTest,
+    (j, hydrants): (usize, &[(usize, f64)]),
     statics: &Solution,
     target_head_m: f64,
-) -> Result<Option<f64>, SolveError> {
-    let j = test.residual_junction;
+) -> Result<Option<(f64, Option<Solution>)>, SolveError> {
     let Some(static_head) = statics.pressure_head_m(net, j) else {
         return Ok(None);
     };
-    let total: f64 = test.hydrants.iter().map(|h| h.1).sum();
+    let total: f64 = hydrants.iter().map(|h| h.1).sum();
     if static_head < target_head_m {
-        return Ok(Some(0.0));
+        return Ok(Some((0.0, None)));
     }
     if total <= 0.0 {
         return Ok(None);
     }
     let pressure_at = |scale: f64, warm: &Solution| -> Result<(f64, Solution), SolveError> {
-        let solution = solver.solve(
-            net,
-            &with_hydrants(base, &test.hydrants, scale),
-            c,
-            Some(warm),
-        )?;
+        let solution = solver.solve(net, &with_hydrants(base, hydrants, scale), c, Some(warm))?;
         let head = solution
             .pressure_head_m(net, j)
             .unwrap_or(f64::NEG_INFINITY);
@@ -248,6 +251,7 @@ fn model_available_flow(
     let mut low = 0.0;
     let mut high = 1.0;
     let mut warm = statics.clone();
+    let mut at_low: Option<Solution> = None;
     loop {
         let (head, solution) = pressure_at(high, &warm)?;
         if head < target_head_m {
@@ -255,6 +259,7 @@ fn model_available_flow(
         }
         low = high;
         high *= 2.0;
+        at_low = Some(solution.clone());
         warm = solution;
         if high > 1024.0 {
             // The gauge never falls to the target within a thousand times the test flow.
@@ -266,12 +271,13 @@ fn model_available_flow(
         let (head, solution) = pressure_at(mid, &warm)?;
         if head >= target_head_m {
             low = mid;
+            at_low = Some(solution.clone());
             warm = solution;
         } else {
             high = mid;
         }
     }
-    Ok(Some(low * total))
+    Ok(Some((low * total, at_low)))
 }
 
 /// A test the calibration will not use, and why.

@@ -413,24 +413,7 @@ impl Solution {
         c_factors: &[f64],
         junction: usize,
     ) -> Option<Vec<f64>> {
-        let system = self.system.as_ref()?;
-        if self.isolated.get(junction).copied().unwrap_or(true) {
-            return None;
-        }
-        if system.pinned.get(junction).copied().unwrap_or(false) {
-            return Some(vec![0.0; net.pipes.len()]);
-        }
-        let n = self.head_m.len();
-        let mut lambda = vec![0.0; n];
-        lambda[junction] = 1.0;
-        let par = LINEAR_ALGEBRA_PARALLELISM;
-        let mut scratch = MemBuffer::new(system.symbolic.solve_in_place_scratch::<f64>(1, par));
-        LltRef::new(&system.symbolic, &system.factor).solve_in_place_with_conj(
-            Conj::No,
-            MatMut::from_column_major_slice_mut(&mut lambda, n, 1),
-            par,
-            MemStack::new(&mut scratch),
-        );
+        let (system, lambda) = self.adjoint(junction)?;
         let lambda_of = |node: NodeRef| match node {
             NodeRef::Junction(i) if !system.pinned[i] => lambda[i],
             NodeRef::Junction(_) | NodeRef::FixedHead(_) => 0.0,
@@ -453,6 +436,42 @@ impl Solution {
             })
             .collect();
         Some(sensitivities)
+    }
+
+    /// Sensitivity of the head at `junction` to the demand at every junction, d H_junction / d d_i
+    /// (m per m^3/s; negative: more withdrawal lowers the grade).
+    ///
+    /// Differentiating continuity at a solution with respect to the demand d_i gives `A dH = -e_i` with
+    /// the same head matrix A as [`Solution::head_sensitivity_to_c`], so dH_junction/dd_i =
+    /// -(A^-1)_(junction, i) = -lambda_i with `A lambda = e_junction` (A is symmetric): one adjoint solve
+    /// for every junction's demand at once.
+    pub fn head_sensitivity_to_demand(&self, junction: usize) -> Option<Vec<f64>> {
+        let (_, lambda) = self.adjoint(junction)?;
+        Some(lambda.into_iter().map(|l| -l).collect())
+    }
+
+    /// The adjoint vector lambda of `A lambda = e_junction` on the last factorized head system.
+    fn adjoint(&self, junction: usize) -> Option<(&FactorizedSystem, Vec<f64>)> {
+        let system = self.system.as_ref()?;
+        if self.isolated.get(junction).copied().unwrap_or(true) {
+            return None;
+        }
+        let n = self.head_m.len();
+        // A pinned junction's head is set by its valve: nothing upstream moves it.
+        if system.pinned.get(junction).copied().unwrap_or(false) {
+            return Some((system, vec![0.0; n]));
+        }
+        let mut lambda = vec![0.0; n];
+        lambda[junction] = 1.0;
+        let par = LINEAR_ALGEBRA_PARALLELISM;
+        let mut scratch = MemBuffer::new(system.symbolic.solve_in_place_scratch::<f64>(1, par));
+        LltRef::new(&system.symbolic, &system.factor).solve_in_place_with_conj(
+            Conj::No,
+            MatMut::from_column_major_slice_mut(&mut lambda, n, 1),
+            par,
+            MemStack::new(&mut scratch),
+        );
+        Some((system, lambda))
     }
 }
 

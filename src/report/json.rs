@@ -58,9 +58,13 @@ pub fn json_summary(run: &RunContext<'_>) -> Value {
                 .iter()
                 .map(|w| json!({"rule": w.rule.key(), "column": w.column, "reason": w.reason}))
                 .collect();
+            let fire_flow = result.fire_flow.get(i);
             json!({
                 "test": t.id,
                 "warnings": warnings,
+                "model_available_flow_after": fire_flow.and_then(|f| f.flow),
+                "model_available_flow_std_error": fire_flow.and_then(|f| f.std_error),
+                "model_available_flow_ci": fire_flow.and_then(|f| f.ci95).map(|(lo, hi)| [lo, hi]),
                 "measured_residual": t.measured_residual,
                 "modelled_before": t.modelled_residual_before,
                 "modelled_after": t.modelled_residual_after,
@@ -88,6 +92,7 @@ pub fn json_summary(run: &RunContext<'_>) -> Value {
         "after": statistics(&result.after),
         "tests": tests,
         "units": run.network.units.labels(),
+        "fire_flow_target": run.options.target_residual_m * run.network.units.pressure_per_head_m(),
         "fit": result.fit.label(),
         "converged": result.converged,
         "termination": result.termination,

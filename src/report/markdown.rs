@@ -133,6 +133,17 @@ pub fn report_markdown(run: &RunContext<'_>) -> String {
     out.push_str(&sections::per_test_table(result).markdown());
     let _ = writeln!(out);
 
+    let _ = writeln!(out, "## {}\n", sections::fire_flow_heading(run));
+    out.push_str(&sections::fire_flow_table(result).markdown());
+    let _ = writeln!(
+        out,
+        "\nThe model's total hydrant flow (split as in the test) at which the modelled residual at the \
+         gauge falls to the target, with the fitted C. The interval is first order (the delta method): \
+         the flow's sensitivity to each group's C, from the same adjoint solves as the fit, through the \
+         covariance of the fitted C; plus or minus 1.96 standard errors. It covers the C uncertainty \
+         only, not errors of the model's layout, demands or boundary grades.\n\n> **Caution.** {CAUTION}\n"
+    );
+
     let not_informed = sections::not_informed_lines(result);
     let _ = writeln!(out, "## Groups no test informs\n");
     if not_informed.is_empty() {

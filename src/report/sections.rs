@@ -156,6 +156,45 @@ pub fn per_test_table(result: &CalibrationResult) -> TextTable {
     table
 }
 
+/// A flow in the network's units as shown in tables.
+pub fn flow(value: f64) -> String {
+    format!("{value:.0}")
+}
+
+/// The heading of the fire-flow table: target residual and units.
+pub fn fire_flow_heading(run: &RunContext<'_>) -> String {
+    let units = run.network.units;
+    format!(
+        "Model fire flow after the fit at {:.0} {} residual ({}, 95 % interval from the C covariance)",
+        run.options.target_residual_m * units.pressure_per_head_m(),
+        units.pressure_label(),
+        units.flow_label()
+    )
+}
+
+/// The model's flow available at the target residual at each tested hydrant, after the fit, with
+/// its first-order 95 % interval.
+pub fn fire_flow_table(result: &CalibrationResult) -> TextTable {
+    let mut table = TextTable::new(&[
+        ("test", Align::Left),
+        ("available flow", Align::Right),
+        ("std error", Align::Right),
+        ("95 % low", Align::Right),
+        ("95 % high", Align::Right),
+    ]);
+    let cell = |v: Option<f64>| v.map_or_else(|| "-".to_string(), flow);
+    for estimate in &result.fire_flow {
+        table.row(vec![
+            estimate.test_id.clone(),
+            cell(estimate.flow),
+            cell(estimate.std_error),
+            cell(estimate.ci95.map(|ci| ci.0)),
+            cell(estimate.ci95.map(|ci| ci.1)),
+        ]);
+    }
+    table
+}
+
 /// The correlation matrix of the groups fitted inside their bounds, when there are two or more.
 pub fn correlation_table(result: &CalibrationResult) -> Option<TextTable> {
     if result.correlation_groups.len() < 2 {

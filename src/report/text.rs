@@ -59,6 +59,9 @@ pub fn text_summary(run: &RunContext<'_>) -> String {
     let _ = writeln!(out, "Per test ({unit})");
     out.push_str(&sections::per_test_table(result).text("  "));
     let _ = writeln!(out);
+    let _ = writeln!(out, "{}", sections::fire_flow_heading(run));
+    out.push_str(&sections::fire_flow_table(result).text("  "));
+    let _ = writeln!(out);
     if !result.converged {
         let _ = writeln!(out, "{}", sections::not_converged_line(result));
     }
