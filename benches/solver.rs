@@ -10,10 +10,11 @@ use std::time::Duration;
 
 use criterion::{Criterion, criterion_group, criterion_main};
 use roughcal::calibrate::{CalibrationOptions, CalibrationTest, calibrate};
+use roughcal::city::banded_groups;
 use roughcal::fieldtest::{FieldSheet, calibration_tests, screen_sheet};
 use roughcal::hydraulics::{GradientSolver, OperatingState};
+use roughcal::network::Network;
 use roughcal::network::synthetic::looped_city;
-use roughcal::network::{Network, RoughnessGroup};
 
 fn solve_benches(c: &mut Criterion) {
     let mut group = c.benchmark_group("solve");
@@ -39,33 +40,6 @@ fn solve_benches(c: &mut Criterion) {
         });
     }
     group.finish();
-}
-
-/// Splits the pipes of `net` into `count` roughness groups by plan position (west to east bands).
-fn banded_groups(net: &mut Network, count: usize) {
-    let x_of = |net: &Network, k: usize| {
-        net.node_position(net.pipes[k].from)
-            .map(|p| p.0)
-            .unwrap_or(0.0)
-    };
-    let (lo, hi) = (0..net.pipes.len()).fold((f64::MAX, f64::MIN), |(lo, hi), k| {
-        let x = x_of(net, k);
-        (lo.min(x), hi.max(x))
-    });
-    net.groups = (0..count)
-        .map(|g| RoughnessGroup {
-            name: format!("band-{g}"),
-            min_c: 40.0,
-            max_c: 150.0,
-            locked: false,
-        })
-        .collect();
-    for k in 0..net.pipes.len() {
-        let share = (x_of(net, k) - lo) / (hi - lo).max(1.0);
-        let g = ((share * count as f64) as usize).min(count - 1);
-        net.pipes[k].group = Some(g);
-        net.pipes[k].c_factor = 110.0;
-    }
 }
 
 /// Flow tests synthesised on `truth`: gauges spread through the network, a hydrant next to each, flowed

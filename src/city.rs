@@ -99,8 +99,8 @@ const TARGET_DROP_M: f64 = 10.0;
 const MAX_TEST_FLOW_M3S: f64 = 0.25;
 
 /// `count` flow tests on `truth` under its base state: gauges spread through the network, the next
-/// junction flowed hard enough for a drop of about [`TARGET_DROP_M`] where the network allows (up to
-/// [`MAX_TEST_FLOW_M3S`]; on a stiff grid many drops stay at a few psi). Flows
+/// junction flowed hard enough for a drop of about `TARGET_DROP_M` where the network allows (up to
+/// `MAX_TEST_FLOW_M3S`; on a stiff grid many drops stay at a few psi). Flows
 /// are rounded to a whole gpm or L/s and pressures to 0.01 psi or kPa, as the sheet of [`sheet_csv`]
 /// writes them, so tests read back from that sheet equal these.
 pub fn synthetic_tests(truth: &Network, count: usize) -> Result<Vec<CalibrationTest>, SolveError> {

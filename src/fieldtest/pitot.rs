@@ -8,8 +8,8 @@ pub const PITOT_CONSTANT_US: f64 = 29.83;
 
 /// The SI constant of the same formula, `Q = 1.1109e-3 c d^2 sqrt(p)` with Q in L/s, d in mm, p in kPa.
 ///
-/// Derived from the US form by converting each quantity: Q[gpm] = Q[L/s] / 0.0630902 (exact gallon,
-/// 3.785411784 L), d[in] = d[mm] / 25.4 (exact) and p[psi] = p[kPa] / 6.894757 (NIST SP 811), so
+/// Derived from the US form by converting each quantity: Q in gpm = Q in L/s / 0.0630902 (exact gallon,
+/// 3.785411784 L), d in in = d in mm / 25.4 (exact) and p in psi = p in kPa / 6.894757 (NIST SP 811), so
 /// `K_si = 29.83 * 0.0630902 / 25.4^2 / sqrt(6.894757) = 1.11093e-3`. The orifice law
 /// `Q = c (pi/4) d^2 sqrt(2 p / rho)` with water at 1000 kg/m^3 gives `(pi/4) sqrt(2) 1e-3 = 1.11072e-3`
 /// in the same units: the trade constant is that law, rounded.

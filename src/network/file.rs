@@ -12,7 +12,7 @@
 //! cut before each line that starts a `[[section]]`; the top level is parsed alone and the entries in
 //! runs of at most [`RUN_BYTES`], each walked and dropped before the next is parsed. TOML defines that
 //! as the same document whenever every piece parses on its own, every `[[...]]` names a section and
-//! every table below an entry is inline, which [`parse_piece`] checks. Any other file, and any file
+//! every table below an entry is inline, which `parse_piece` checks. Any other file, and any file
 //! with a TOML error, is read as one document, with `toml_edit` wording the syntax error so that every
 //! message stays as it was.
 
