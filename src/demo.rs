@@ -1,4 +1,4 @@
-//! The bundled demo: Alder Flats, an invented pressure zone (no real place, no course data), and the
+//! The bundled demo: Alder Flats, an invented pressure zone (no real place, invented data only), and the
 //! synthesis of its field sheet from "true" C-factors that differ from the model's start values.
 //!
 //! `roughcal make-demo --out DIR` (hidden) regenerates `district.toml`, `true-c.toml` and the demo sheet;
