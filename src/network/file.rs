@@ -1993,18 +1993,7 @@ impl<'t> Reader<'t> {
             self.report(&span, message, id.as_deref(), None);
         }
         for (condition, span) in network.conditions.iter().zip(condition_spans) {
-            let reached = reachable(
-                network,
-                &condition.closed_pipes,
-                &condition.pumps_off,
-                &condition.closed_valves,
-            );
-            let cut_off: Vec<usize> = (0..network.junctions.len())
-                .filter(|&j| {
-                    base.get(j).copied().unwrap_or(false)
-                        && !reached.get(j).copied().unwrap_or(false)
-                })
-                .collect();
+            let cut_off = cut_off_by(network, condition, &base);
             if !cut_off.is_empty() {
                 let message = format!(
                     "condition `{}` cuts junctions off from every fixed head: {}",
@@ -2053,6 +2042,22 @@ fn list_ids(network: &Network, junctions: &[usize]) -> String {
         .map(|j| j.id.as_str())
         .collect::<Vec<_>>()
         .join(", ")
+}
+
+/// The junctions `condition` cuts off from every fixed head, of those `base` (the reach of the network as
+/// written, from [`reachable`]) connects.
+pub(crate) fn cut_off_by(network: &Network, condition: &Condition, base: &[bool]) -> Vec<usize> {
+    let reached = reachable(
+        network,
+        &condition.closed_pipes,
+        &condition.pumps_off,
+        &condition.closed_valves,
+    );
+    (0..network.junctions.len())
+        .filter(|&j| {
+            base.get(j).copied().unwrap_or(false) && !reached.get(j).copied().unwrap_or(false)
+        })
+        .collect()
 }
 
 /// Which junctions reach a fixed head through links that are open (pipes not closed, pumps not off,

@@ -22,7 +22,7 @@ pub use config::{ConfigError, Coordinates, ImportConfig};
 pub use read::{SourceFormat, format_number};
 
 use self::read::{Attr, Shape, Table};
-use super::file::reachable;
+use super::file::{cut_off_by, reachable};
 use super::lonlat::{LocalProjection, LonLat, line_length_m};
 use super::model::{
     Condition, DEFAULT_GROUP_MAX_C, DEFAULT_GROUP_MIN_C, FixedHead, Junction, Network, NodeRef,
@@ -434,17 +434,7 @@ fn check_like_the_loader(net: &Network, file: &str) -> Vec<ImportProblem> {
         )));
     }
     for condition in &net.conditions {
-        let reached = reachable(
-            net,
-            &condition.closed_pipes,
-            &condition.pumps_off,
-            &condition.closed_valves,
-        );
-        let cut_off: Vec<usize> = (0..net.junctions.len())
-            .filter(|&j| {
-                base.get(j).copied().unwrap_or(false) && !reached.get(j).copied().unwrap_or(false)
-            })
-            .collect();
+        let cut_off = cut_off_by(net, condition, &base);
         if !cut_off.is_empty() {
             problems.push(problem(format!(
                 "condition `{}` cuts junctions off from every fixed head: {}",
