@@ -19,14 +19,20 @@
 // Network files are edited by hand: no indexing that could panic on what they hold.
 #![cfg_attr(not(test), deny(clippy::indexing_slicing))]
 
+mod tables;
+
+use std::borrow::Cow;
 use std::collections::HashMap;
+use std::collections::hash_map::Entry;
 use std::fmt;
 use std::hash::{BuildHasherDefault, Hasher};
 use std::ops::Range;
 use std::path::Path;
 
 use toml::Spanned;
-use toml::de::{DeArray, DeTable, DeValue};
+use toml::de::{DeTable, DeValue};
+
+use tables::{Table, Value};
 
 use super::lonlat::LonLat;
 use super::model::{
@@ -173,7 +179,6 @@ pub fn parse_network(text: &str, file_name: &str) -> Result<LoadedNetwork, Netwo
     if let Some(layout) = Layout::of(text) {
         let root_text = text.get(..layout.root_end).unwrap_or("");
         if let Some(root) = parse_piece(root_text, None) {
-            let root = root.into_inner();
             if !layout.conflicts_with(&root) {
                 let loaded = reader.build_parsing_ahead(&root, &layout);
                 if !reader.abandoned {
@@ -192,7 +197,7 @@ pub fn parse_network(text: &str, file_name: &str) -> Result<LoadedNetwork, Netwo
         return Err(reader.into_error());
     }
     let root = match DeTable::parse(text) {
-        Ok(root) => root.into_inner(),
+        Ok(root) => Table::from_toml(root.into_inner()),
         Err(error) => {
             // Not expected: both parsers read TOML 1.1 the same way. Said in the same words.
             let span = error.span().unwrap_or(0..0);
@@ -213,7 +218,10 @@ pub const RUN_BYTES: usize = 1 << 20;
 /// entries. `None` unless it is TOML whose every number is in range (as `toml_edit` requires) and
 /// whose tables below the entries are all written inline, and unless a run holds only its entries:
 /// anything else (a `[table]` header, a dotted key) is left to the reading of the whole document.
-fn parse_piece(text: &str, section: Option<Section>) -> Option<Spanned<DeTable<'_>>> {
+fn parse_piece(text: &str, section: Option<Section>) -> Option<Table<'_>> {
+    if let Some(table) = tables::read_plain(text, section.map(Section::key)) {
+        return Some(table);
+    }
     let table = DeTable::parse(text).ok()?;
     let plain = match section {
         None => plain_values(table.get_ref(), text),
@@ -235,7 +243,7 @@ fn parse_piece(text: &str, section: Option<Section>) -> Option<Spanned<DeTable<'
             }
         }
     };
-    plain.then_some(table)
+    plain.then(|| Table::from_toml(table.into_inner()))
 }
 
 fn plain_values(table: &DeTable<'_>, text: &str) -> bool {
@@ -278,6 +286,9 @@ struct Layout {
     root_end: usize,
     /// Runs of consecutive `[[section]]` entries of one kind, in file order; empty for one document.
     runs: Vec<Run>,
+    /// How many entries each section has (indexed by `Section as usize`), so that the walk allocates
+    /// once; zeros for one document.
+    entries: [usize; 7],
 }
 
 /// A run of consecutive entries of one section: the byte range of their text, headers included.
@@ -300,6 +311,7 @@ impl Layout {
         Self {
             root_end: 0,
             runs: Vec::new(),
+            entries: [0; 7],
         }
     }
 
@@ -323,7 +335,11 @@ impl Layout {
         }
         let root_end = headers.first().map_or(text.len(), |&(start, _)| start);
         let mut runs: Vec<Run> = Vec::new();
+        let mut entries = [0; 7];
         for (index, &(start, section)) in headers.iter().enumerate() {
+            if let Some(count) = entries.get_mut(section as usize) {
+                *count += 1;
+            }
             let end = headers.get(index + 1).map_or(text.len(), |&(next, _)| next);
             match runs.last_mut() {
                 Some(run) if run.section == section && end - run.text.start <= RUN_BYTES => {
@@ -335,15 +351,24 @@ impl Layout {
                 }),
             }
         }
-        Some(Self { root_end, runs })
+        Some(Self {
+            root_end,
+            runs,
+            entries,
+        })
     }
 
     /// Whether the top level also holds a key that names a section with `[[...]]` entries (a
     /// duplicate key only the whole document reports).
-    fn conflicts_with(&self, root: &DeTable<'_>) -> bool {
+    fn conflicts_with(&self, root: &Table<'_>) -> bool {
         self.runs
             .iter()
             .any(|run| root.contains_key(run.section.key()))
+    }
+
+    /// How many `[[section]]` entries the file has (zero when read as one document).
+    fn entries_of(&self, section: Section) -> usize {
+        self.entries.get(section as usize).copied().unwrap_or(0)
     }
 
     /// The places that hold entries of `section`, in file order.
@@ -481,6 +506,19 @@ impl Section {
         }
     }
 
+    /// The header of one entry, as messages write it.
+    fn header(self) -> &'static str {
+        match self {
+            Self::Junction => "[[junction]]",
+            Self::FixedHead => "[[fixed_head]]",
+            Self::Pipe => "[[pipe]]",
+            Self::Pump => "[[pump]]",
+            Self::Valve => "[[valve]]",
+            Self::Group => "[[group]]",
+            Self::Condition => "[[condition]]",
+        }
+    }
+
     fn id_key(self) -> &'static str {
         match self {
             Self::Group | Self::Condition => "name",
@@ -494,9 +532,9 @@ struct Record<'d, 't> {
     /// How messages name the entry ("pipe"); empty for the root.
     label: &'static str,
     /// `[[pipe]]` or "the top level", for unknown-key messages.
-    place: String,
+    place: &'static str,
     allowed: &'static [&'static str],
-    table: &'d DeTable<'t>,
+    table: &'d Table<'t>,
     /// Where the text the table was parsed from starts in the file (its spans count from there).
     offset: usize,
     /// Whether the table is written inline (`{ ... }`), and so every table in it too.
@@ -504,7 +542,7 @@ struct Record<'d, 't> {
     /// The header (or inline table) of the entry: where missing keys are reported.
     header: Span,
     /// The entry's id once read, to label later messages.
-    id: Option<String>,
+    id: Option<Id<'t>>,
 }
 
 impl Record<'_, '_> {
@@ -517,7 +555,7 @@ impl Record<'_, '_> {
 
 /// A value of a table with where it and its key are.
 struct Found<'d, 't> {
-    value: &'d DeValue<'t>,
+    value: &'d Value<'t>,
     /// The value's span (for an array of tables, from its first header to its last).
     span: Span,
     /// What the value is, in the words of messages ("float", "inline table", "array of tables").
@@ -592,19 +630,25 @@ impl Hasher for IdHasher {
     }
 
     fn finish(&self) -> u64 {
-        self.0
+        // The low bits of a product depend only on the low bits of its factors, that is on the first
+        // bytes of the id ("J4..." for ten thousand junctions), and the table picks buckets by the
+        // low bits: bring the well-mixed middle of the product down (as `rustc-hash` 2 does).
+        self.0.rotate_left(26)
     }
 }
 
+/// An id as the file writes it: borrowed from the text unless written with escapes.
+type Id<'t> = Cow<'t, str>;
+
 /// The ids of one namespace (node ids, link ids, group names or condition names).
-struct Namespace<T> {
+struct Namespace<'t, T> {
     name: &'static str,
-    seen: HashMap<String, Seen<T>, BuildHasherDefault<IdHasher>>,
+    seen: HashMap<Id<'t>, Seen<T>, BuildHasherDefault<IdHasher>>,
     /// Ids in file order, for suggestions.
-    order: Vec<String>,
+    order: Vec<Id<'t>>,
 }
 
-impl<T: Copy> Namespace<T> {
+impl<'t, T: Copy> Namespace<'t, T> {
     fn new(name: &'static str) -> Self {
         Self {
             name,
@@ -618,10 +662,12 @@ impl<T: Copy> Namespace<T> {
     fn in_file_order(
         reader: &mut Reader<'_>,
         name: &'static str,
-        mut pending: Vec<((String, Span), T, &'static str)>,
+        mut pending: Vec<((Id<'t>, Span), T, &'static str)>,
     ) -> Self {
         pending.sort_by_key(|((_, span), _, _)| span.start);
         let mut namespace = Self::new(name);
+        namespace.seen.reserve(pending.len());
+        namespace.order.reserve(pending.len());
         for (id, target, what) in &pending {
             namespace.register(reader, what, id, *target, "id");
         }
@@ -633,7 +679,7 @@ impl<T: Copy> Namespace<T> {
     }
 
     fn ids(&self) -> impl Iterator<Item = &str> {
-        self.order.iter().map(String::as_str)
+        self.order.iter().map(|id| id.as_ref())
     }
 
     /// Records an id, reporting a duplicate at its second appearance.
@@ -641,20 +687,24 @@ impl<T: Copy> Namespace<T> {
         &mut self,
         reader: &mut Reader<'_>,
         what: &'static str,
-        (id, span): &(String, Span),
+        (id, span): &(Id<'t>, Span),
         target: T,
         field: &str,
     ) {
         let line = reader.location(span.start).line;
-        if let Some(first) = self.seen.get(id) {
-            let message = format!(
-                "duplicate {} `{id}`: already used by the {} on line {}",
-                self.name, first.what, first.line
-            );
-            reader.report(span, message, Some(id), Some(field));
-        } else {
-            self.seen.insert(id.clone(), Seen { target, what, line });
-            self.order.push(id.clone());
+        match self.seen.entry(id.clone()) {
+            Entry::Occupied(first) => {
+                let first = first.get();
+                let message = format!(
+                    "duplicate {} `{id}`: already used by the {} on line {}",
+                    self.name, first.what, first.line
+                );
+                reader.report(span, message, Some(id), Some(field));
+            }
+            Entry::Vacant(slot) => {
+                slot.insert(Seen { target, what, line });
+                self.order.push(id.clone());
+            }
         }
     }
 }
@@ -663,6 +713,8 @@ struct Reader<'t> {
     text: &'t str,
     file: String,
     line_starts: Vec<usize>,
+    /// The line of the last [`Self::location`], where the next one usually is.
+    last_line: std::cell::Cell<usize>,
     diagnostics: Vec<Diagnostic>,
     /// A run of entries turned out not to be TOML on its own: the file must be read as one document.
     abandoned: bool,
@@ -672,17 +724,23 @@ struct Reader<'t> {
 
 /// A run parsed ahead of the walk: its index in [`Layout::runs`] and its table (`None` when it is not
 /// plain TOML on its own).
-type ParsedRun<'t> = (usize, Option<Spanned<DeTable<'t>>>);
+type ParsedRun<'t> = (usize, Option<Table<'t>>);
 
 impl<'t> Reader<'t> {
     fn new(text: &'t str, file: &str) -> Self {
         let line_starts = std::iter::once(0)
-            .chain(text.match_indices('\n').map(|(i, _)| i + 1))
+            .chain(
+                text.bytes()
+                    .enumerate()
+                    .filter(|&(_, byte)| byte == b'\n')
+                    .map(|(i, _)| i + 1),
+            )
             .collect();
         Self {
             text,
             file: file.to_string(),
             line_starts,
+            last_line: std::cell::Cell::new(0),
             diagnostics: Vec::new(),
             abandoned: false,
             ahead: None,
@@ -692,7 +750,7 @@ impl<'t> Reader<'t> {
     /// [`Self::build`] with the runs parsed on a second thread, one or two runs ahead of the walk, so
     /// that parsing and walking share the two cores of a field laptop. Falls back to parsing on this
     /// thread when no thread can be started.
-    fn build_parsing_ahead(&mut self, root: &DeTable<'t>, layout: &Layout) -> LoadedNetwork {
+    fn build_parsing_ahead(&mut self, root: &Table<'t>, layout: &Layout) -> LoadedNetwork {
         let text: &'t str = self.text;
         std::thread::scope(|scope| {
             let (sender, receiver) = std::sync::mpsc::sync_channel::<ParsedRun<'t>>(2);
@@ -733,9 +791,9 @@ impl<'t> Reader<'t> {
     /// reading abandoned) for a run that does not parse on its own.
     fn open<'a>(
         &mut self,
-        root: &'a DeTable<'t>,
+        root: &'a Table<'t>,
         batch: &Batch,
-    ) -> Option<(std::borrow::Cow<'a, DeTable<'t>>, usize)> {
+    ) -> Option<(std::borrow::Cow<'a, Table<'t>>, usize)> {
         if self.abandoned {
             return None;
         }
@@ -753,7 +811,7 @@ impl<'t> Reader<'t> {
                         .and_then(|piece| parse_piece(piece, Some(*section))),
                 };
                 match parsed {
-                    Some(table) => Some((std::borrow::Cow::Owned(table.into_inner()), span.start)),
+                    Some(table) => Some((std::borrow::Cow::Owned(table), span.start)),
                     None => {
                         self.abandoned = true;
                         None
@@ -774,10 +832,21 @@ impl<'t> Reader<'t> {
     /// 1-based line and character column of a byte offset.
     fn location(&self, offset: usize) -> SourceLocation {
         let offset = offset.min(self.text.len());
-        let line_index = self
+        // The walk asks in file order, a few lines on from the last answer: look there first.
+        const NEARBY_LINES: usize = 64;
+        let last = self.last_line.get();
+        let nearby = self
             .line_starts
-            .partition_point(|&start| start <= offset)
-            .saturating_sub(1);
+            .get(last..(last + NEARBY_LINES).min(self.line_starts.len()))
+            .unwrap_or(&[]);
+        let line_index = match nearby.partition_point(|&start| start <= offset) {
+            found if found > 0 && found < nearby.len() => last + found - 1,
+            _ => self
+                .line_starts
+                .partition_point(|&start| start <= offset)
+                .saturating_sub(1),
+        };
+        self.last_line.set(line_index);
         let line_start = self.line_starts.get(line_index).copied().unwrap_or(0);
         let column = self
             .text
@@ -842,13 +911,13 @@ impl<'t> Reader<'t> {
     fn found<'d, 'x>(
         &self,
         rec: &Record<'d, 'x>,
-        value: &'d DeValue<'x>,
+        value: &'d Value<'x>,
         span: Span,
         key_span: &Span,
     ) -> Found<'d, 'x> {
         let holds_key = !rec.inline && span.start <= key_span.start;
         match value {
-            DeValue::Array(array) if holds_key => {
+            Value::Array(array) if holds_key => {
                 let end = array.last().map_or(span.end, |last| rec.span(last).end);
                 Found {
                     value,
@@ -856,7 +925,7 @@ impl<'t> Reader<'t> {
                     kind: "array of tables",
                 }
             }
-            DeValue::Table(_) if holds_key => Found {
+            Value::Table(_) if holds_key => Found {
                 value,
                 span,
                 kind: "table",
@@ -903,6 +972,21 @@ impl<'t> Reader<'t> {
         }
     }
 
+    /// A required string value as the text holds it (borrowed from the text, not the table).
+    fn id_value<'x>(&mut self, rec: &Record<'_, 'x>, key: &str) -> Got<Id<'x>> {
+        let Some(found) = self.get(rec, key) else {
+            self.missing(rec, key);
+            return Got::Invalid;
+        };
+        match found.value {
+            Value::String(text) => Got::Value(text.clone(), found.span),
+            _ => {
+                self.wrong_type(rec, key, &found, "a string");
+                Got::Invalid
+            }
+        }
+    }
+
     /// A string value, borrowed from the parsed table.
     fn text_value<'d>(&mut self, rec: &Record<'d, '_>, key: &str, required: bool) -> Got<&'d str> {
         let Some(found) = self.get(rec, key) else {
@@ -929,7 +1013,7 @@ impl<'t> Reader<'t> {
             }
             return Got::Absent;
         };
-        match value_number(found.value) {
+        match found.value.as_number() {
             Some(number) => Got::Value(number, found.span),
             None => {
                 self.wrong_type(rec, key, &found, "a number");
@@ -988,7 +1072,11 @@ impl<'t> Reader<'t> {
         let unknown: Vec<(String, Span)> = rec
             .table
             .iter()
-            .filter(|(key, _)| !rec.allowed.contains(&key.get_ref().as_ref()))
+            .filter(|(key, _)| {
+                !rec.allowed
+                    .iter()
+                    .any(|known| tables::same_key(known, key.get_ref()))
+            })
             .map(|(key, _)| (key.get_ref().to_string(), rec.span(key)))
             .collect();
         for (key, span) in unknown {
@@ -1004,9 +1092,13 @@ impl<'t> Reader<'t> {
     }
 
     /// Reads the id (or name) of an entry, reporting it missing or empty, and labels the record.
-    fn read_id(&mut self, rec: &mut Record<'_, '_>, section: Section) -> Option<(String, Span)> {
+    fn read_id<'x>(
+        &mut self,
+        rec: &mut Record<'_, 'x>,
+        section: Section,
+    ) -> Option<(Id<'x>, Span)> {
         let key = section.id_key();
-        match self.string(rec, key, true) {
+        match self.id_value(rec, key) {
             Got::Value(id, span) => {
                 if id.trim().is_empty() {
                     let message = format!("{} must not be empty", Self::what(rec, key));
@@ -1036,7 +1128,7 @@ impl<'t> Reader<'t> {
     /// TOML treats as the same data.
     fn records<'d>(
         &mut self,
-        table: &'d DeTable<'t>,
+        table: &'d Table<'t>,
         offset: usize,
         section: Section,
     ) -> Vec<Record<'d, 't>> {
@@ -1044,7 +1136,7 @@ impl<'t> Reader<'t> {
         let mut records = Vec::new();
         let holder = Record {
             label: "",
-            place: String::new(),
+            place: "",
             allowed: &[],
             table,
             offset,
@@ -1055,9 +1147,9 @@ impl<'t> Reader<'t> {
         let Some(found) = self.get(&holder, key) else {
             return records;
         };
-        let make = |table: &'d DeTable<'t>, header: Span, inline: bool| Record {
+        let make = |table: &'d Table<'t>, header: Span, inline: bool| Record {
             label: section.label(),
-            place: format!("[[{key}]]"),
+            place: section.header(),
             allowed: section.allowed_keys(),
             table,
             offset,
@@ -1066,18 +1158,18 @@ impl<'t> Reader<'t> {
             id: None,
         };
         match (found.value, found.kind) {
-            (DeValue::Array(tables), "array of tables") => {
+            (Value::Array(tables), "array of tables") => {
                 for entry in tables.iter() {
-                    if let DeValue::Table(table) = entry.get_ref() {
+                    if let Value::Table(table) = entry.get_ref() {
                         records.push(make(table, holder.span(entry), false));
                     }
                 }
             }
-            (DeValue::Array(array), _) => {
+            (Value::Array(array), _) => {
                 for element in array.iter() {
                     let span = holder.span(element);
                     match element.get_ref() {
-                        DeValue::Table(table) => records.push(make(table, span, true)),
+                        Value::Table(table) => records.push(make(table, span, true)),
                         other => {
                             let message = format!(
                                 "each `{key}` entry must be a table, found {} `{}`",
@@ -1101,10 +1193,10 @@ impl<'t> Reader<'t> {
 
     // ---- the whole file ----
 
-    fn build(&mut self, root: &DeTable<'t>, layout: &Layout) -> LoadedNetwork {
+    fn build(&mut self, root: &Table<'t>, layout: &Layout) -> LoadedNetwork {
         let root_rec = Record {
             label: "",
-            place: "the top level".to_string(),
+            place: "the top level",
             allowed: ROOT_KEYS,
             table: root,
             offset: 0,
@@ -1150,8 +1242,18 @@ impl<'t> Reader<'t> {
             ..SourceMap::default()
         };
 
-        let mut pending_nodes: Vec<((String, Span), NodeRef, &'static str)> = Vec::new();
-        let mut junction_spans: Vec<Span> = Vec::new();
+        let junction_count = layout.entries_of(Section::Junction);
+        let fixed_head_count = layout.entries_of(Section::FixedHead);
+        let link_count = layout.entries_of(Section::Pipe)
+            + layout.entries_of(Section::Pump)
+            + layout.entries_of(Section::Valve);
+        network.junctions.reserve(junction_count);
+        sources.junctions.reserve(junction_count);
+        network.pipes.reserve(layout.entries_of(Section::Pipe));
+        sources.pipes.reserve(layout.entries_of(Section::Pipe));
+        let mut pending_nodes: Vec<((Id<'t>, Span), NodeRef, &'static str)> =
+            Vec::with_capacity(junction_count + fixed_head_count);
+        let mut junction_spans: Vec<Span> = Vec::with_capacity(junction_count);
 
         for batch in layout.batches(Section::Junction) {
             let Some((table, offset)) = self.open(root, &batch) else {
@@ -1171,7 +1273,7 @@ impl<'t> Reader<'t> {
                 }
                 junction_spans.push(id_span);
                 network.junctions.push(Junction {
-                    id: id.map(|(id, _)| id).unwrap_or_default(),
+                    id: id.map(|(id, _)| id.into_owned()).unwrap_or_default(),
                     elevation_m: units_or_us.length_to_m(elevation.unwrap_or(f64::NAN)),
                     demand_m3s: units_or_us.flow_to_m3s(demand.unwrap_or(0.0)),
                     position,
@@ -1196,7 +1298,7 @@ impl<'t> Reader<'t> {
                     pending_nodes.push((id.clone(), NodeRef::FixedHead(index), "fixed head"));
                 }
                 network.fixed_heads.push(FixedHead {
-                    id: id.map(|(id, _)| id).unwrap_or_default(),
+                    id: id.map(|(id, _)| id.into_owned()).unwrap_or_default(),
                     head_m: units_or_us.length_to_m(head.unwrap_or(f64::NAN)),
                     position,
                 });
@@ -1219,13 +1321,14 @@ impl<'t> Reader<'t> {
                     groups.register(self, "group", name, network.groups.len(), "name");
                 }
                 network.groups.push(RoughnessGroup {
-                    name: name.map(|(name, _)| name).unwrap_or_default(),
+                    name: name.map(|(name, _)| name.into_owned()).unwrap_or_default(),
                     ..group
                 });
             }
         }
 
-        let mut pending_links: Vec<((String, Span), LinkRef, &'static str)> = Vec::new();
+        let mut pending_links: Vec<((Id<'t>, Span), LinkRef, &'static str)> =
+            Vec::with_capacity(link_count);
         let mut all_links_resolved = true;
         for batch in layout.batches(Section::Pipe) {
             let Some((table, offset)) = self.open(root, &batch) else {
@@ -1250,7 +1353,7 @@ impl<'t> Reader<'t> {
                 all_links_resolved &= ends.is_some();
                 let (from, to) = ends.unwrap_or((NodeRef::Junction(0), NodeRef::Junction(0)));
                 network.pipes.push(Pipe {
-                    id: id.map(|(id, _)| id).unwrap_or_default(),
+                    id: id.map(|(id, _)| id.into_owned()).unwrap_or_default(),
                     from,
                     to,
                     length_m: units_or_us.length_to_m(length.unwrap_or(f64::NAN)),
@@ -1282,7 +1385,7 @@ impl<'t> Reader<'t> {
                 all_links_resolved &= ends.is_some();
                 let (from, to) = ends.unwrap_or((NodeRef::Junction(0), NodeRef::Junction(0)));
                 network.pumps.push(Pump {
-                    id: id.map(|(id, _)| id).unwrap_or_default(),
+                    id: id.map(|(id, _)| id.into_owned()).unwrap_or_default(),
                     from,
                     to,
                     curve: curve.unwrap_or(PumpCurve {
@@ -1320,7 +1423,7 @@ impl<'t> Reader<'t> {
                 all_links_resolved &= ends.is_some();
                 let (from, to) = ends.unwrap_or((NodeRef::Junction(0), NodeRef::Junction(0)));
                 network.valves.push(Valve {
-                    id: id.map(|(id, _)| id).unwrap_or_default(),
+                    id: id.map(|(id, _)| id.into_owned()).unwrap_or_default(),
                     from,
                     to,
                     diameter_m: units_or_us.diameter_to_m(diameter.unwrap_or(f64::NAN)),
@@ -1351,7 +1454,7 @@ impl<'t> Reader<'t> {
                 }
                 condition_spans.push(name_span);
                 network.conditions.push(Condition {
-                    name: name.map(|(name, _)| name).unwrap_or_default(),
+                    name: name.map(|(name, _)| name.into_owned()).unwrap_or_default(),
                     ..condition
                 });
             }
@@ -1480,15 +1583,15 @@ impl<'t> Reader<'t> {
 
     /// The optional `group` of a pipe, which must be declared in a `[[group]]`.
     fn pipe_group(&mut self, rec: &Record<'_, '_>, groups: &Namespace<usize>) -> Option<usize> {
-        let Got::Value(name, span) = self.string(rec, "group", false) else {
+        let Got::Value(name, span) = self.text_value(rec, "group", false) else {
             return None;
         };
-        if let Some(seen) = groups.get(&name) {
+        if let Some(seen) = groups.get(name) {
             return Some(seen.target);
         }
         let message = format!(
             "pipe `group` names `{name}`, which is not declared in any [[group]]{}",
-            did_you_mean(&name, groups.ids())
+            did_you_mean(name, groups.ids())
         );
         self.report_at(rec, &span, message, "group");
         None
@@ -1548,7 +1651,7 @@ impl<'t> Reader<'t> {
                 let mut values = pair.iter();
                 match (values.next(), values.next(), values.next()) {
                     (Some(flow), Some(head), None) => {
-                        Some((value_number(flow.get_ref())?, value_number(head.get_ref())?))
+                        Some((flow.get_ref().as_number()?, head.get_ref().as_number()?))
                     }
                     _ => None,
                 }
@@ -1657,7 +1760,7 @@ impl<'t> Reader<'t> {
         let mut heads = Vec::new();
         if let Some(found) = self.get(rec, "heads") {
             match found.value {
-                DeValue::Table(table) => {
+                Value::Table(table) => {
                     for (key, key_span, value, value_span) in
                         self.entries_in_file_order(rec, &found, table)
                     {
@@ -1687,7 +1790,7 @@ impl<'t> Reader<'t> {
                                 None
                             }
                         };
-                        match value_number(value) {
+                        match value.as_number() {
                             Some(head) if head.is_finite() => {
                                 if let Some(index) = target {
                                     heads.push((index, units.length_to_m(head)));
@@ -1738,11 +1841,11 @@ impl<'t> Reader<'t> {
         &self,
         rec: &Record<'d, 'x>,
         found: &Found<'d, 'x>,
-        table: &'d DeTable<'x>,
-    ) -> Vec<(&'d str, Span, &'d DeValue<'x>, Span)> {
+        table: &'d Table<'x>,
+    ) -> Vec<(&'d str, Span, &'d Value<'x>, Span)> {
         let within = Record {
             label: rec.label,
-            place: String::new(),
+            place: "",
             allowed: &[],
             table,
             offset: rec.offset,
@@ -1750,10 +1853,8 @@ impl<'t> Reader<'t> {
             header: found.span.clone(),
             id: None,
         };
-        let mut entries: Vec<_> = table.iter().collect();
-        entries.sort_by_key(|(key, _)| key.span().start);
-        entries
-            .into_iter()
+        table
+            .iter()
             .map(|(key, value)| {
                 let key_span = within.span(key);
                 let value_span = self
@@ -1858,7 +1959,7 @@ impl<'t> Reader<'t> {
         let Some(found) = self.get(rec, "valve_settings") else {
             return settings;
         };
-        let DeValue::Table(table) = found.value else {
+        let Value::Table(table) = found.value else {
             self.wrong_type(
                 rec,
                 "valve_settings",
@@ -1876,7 +1977,7 @@ impl<'t> Reader<'t> {
                 self.report_at(rec, &key_span, message, "valve_settings");
                 continue;
             };
-            match value_number(value) {
+            match value.as_number() {
                 Some(setting) if setting.is_finite() && setting >= 0.0 => {
                     if let Some(valve) = network.valves.get(index) {
                         let internal = valve_setting_to_internal(valve.kind, setting, units);
@@ -2147,34 +2248,23 @@ fn hidden_character(c: char) -> bool {
         )
 }
 
-/// A TOML number (integer or float) as f64 (integers out of range are refused before the walk).
-fn value_number(value: &DeValue<'_>) -> Option<f64> {
-    match value {
-        DeValue::Integer(integer) => i64::from_str_radix(integer.as_str(), integer.radix())
-            .ok()
-            .map(|i| i as f64),
-        DeValue::Float(float) => float.as_str().parse::<f64>().ok(),
-        _ => None,
-    }
-}
-
 /// The array of a value written as an inline array `[...]` (not an array of tables).
-fn inline_array<'d, 't>(found: &Found<'d, 't>) -> Option<&'d DeArray<'t>> {
+fn inline_array<'d, 't>(found: &Found<'d, 't>) -> Option<&'d [Spanned<Value<'t>>]> {
     match found.value {
-        DeValue::Array(array) if found.kind == "array" => Some(array),
+        Value::Array(array) if found.kind == "array" => Some(array),
         _ => None,
     }
 }
 
 /// How messages name a value (tables inside values are always inline).
-fn value_type_name(value: &DeValue<'_>) -> &'static str {
+fn value_type_name(value: &Value<'_>) -> &'static str {
     match value {
-        DeValue::String(_) => "string",
-        DeValue::Integer(_) => "integer",
-        DeValue::Float(_) => "float",
-        DeValue::Boolean(_) => "boolean",
-        DeValue::Datetime(_) => "date-time",
-        DeValue::Array(_) => "array",
-        DeValue::Table(_) => "inline table",
+        Value::String(_) => "string",
+        Value::Integer(_) => "integer",
+        Value::Float(_) => "float",
+        Value::Boolean(_) => "boolean",
+        Value::Datetime => "date-time",
+        Value::Array(_) => "array",
+        Value::Table(_) => "inline table",
     }
 }
