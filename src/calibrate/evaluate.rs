@@ -149,40 +149,16 @@ impl<'a> Evaluator<'a> {
             })
             .collect::<Result<_, _>>()?;
 
-        let threads = self.threads.clamp(1, self.tests.len().max(1));
         let warm_residuals = &previous.residuals;
-        let evaluate_share = |share: usize| -> Vec<(usize, TestOutcome)> {
-            (share..self.tests.len())
-                .step_by(threads)
-                .map(|t| {
-                    let static_solution = &statics[self.static_state_of_test[t]];
-                    let warm = warm_residuals.get(t).and_then(Option::as_ref);
-                    (
-                        t,
-                        self.evaluate_test(t, c, resistance, static_solution, warm),
-                    )
-                })
-                .collect()
-        };
-        // Tests are dealt round-robin so that each thread gets a fair mix; results go back in test order.
-        let mut results: Vec<(usize, TestOutcome)> = if threads == 1 {
-            evaluate_share(0)
-        } else {
-            std::thread::scope(|scope| {
-                let handles: Vec<_> = (0..threads)
-                    .map(|share| scope.spawn(move || evaluate_share(share)))
-                    .collect();
-                handles
-                    .into_iter()
-                    .flat_map(|h| h.join().unwrap_or_else(|e| std::panic::resume_unwind(e)))
-                    .collect()
-            })
-        };
-        results.sort_by_key(|(t, _)| *t);
+        let results: Vec<TestOutcome> = map_over_threads(self.tests.len(), self.threads, |t| {
+            let static_solution = &statics[self.static_state_of_test[t]];
+            let warm = warm_residuals.get(t).and_then(Option::as_ref);
+            self.evaluate_test(t, c, resistance, static_solution, warm)
+        });
 
         let mut out = Vec::with_capacity(self.tests.len());
         let mut residual_solutions = Vec::with_capacity(self.tests.len());
-        for (_, result) in results {
+        for result in results {
             let (evaluation, solution) = result?;
             out.push(evaluation);
             residual_solutions.push(Some(solution));
@@ -258,6 +234,39 @@ impl<'a> Evaluator<'a> {
             .map(|pipes| pipes.iter().map(|&k| per_pipe[k]).sum())
             .collect()
     }
+}
+
+/// `task(0)`, ..., `task(count - 1)` shared out over up to `threads` threads, results in order. Items
+/// are dealt round-robin so that each thread gets a fair mix of cheap and dear ones (tests near a
+/// source solve faster than tests at the far end of a zone).
+pub(crate) fn map_over_threads<T: Send>(
+    count: usize,
+    threads: usize,
+    task: impl Fn(usize) -> T + Sync,
+) -> Vec<T> {
+    let threads = threads.clamp(1, count.max(1));
+    let task = &task;
+    let share = move |first: usize| -> Vec<(usize, T)> {
+        (first..count)
+            .step_by(threads)
+            .map(|item| (item, task(item)))
+            .collect()
+    };
+    let mut results: Vec<(usize, T)> = if threads == 1 {
+        share(0)
+    } else {
+        std::thread::scope(|scope| {
+            let handles: Vec<_> = (0..threads)
+                .map(|first| scope.spawn(move || share(first)))
+                .collect();
+            handles
+                .into_iter()
+                .flat_map(|h| h.join().unwrap_or_else(|e| std::panic::resume_unwind(e)))
+                .collect()
+        })
+    };
+    results.sort_by_key(|(item, _)| *item);
+    results.into_iter().map(|(_, result)| result).collect()
 }
 
 /// Whitened residuals (measured minus modelled, divided by their standard deviation) of every test, in

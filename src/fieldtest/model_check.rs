@@ -8,6 +8,7 @@
 use std::collections::HashMap;
 
 use crate::calibrate::CalibrationTest;
+use crate::hydraulics::headloss::HW_FLOW_EXPONENT;
 use crate::hydraulics::{GradientSolver, OperatingState, Solution, SolveError};
 use crate::network::Network;
 
@@ -219,9 +220,15 @@ fn with_hydrants(base: &OperatingState, hydrants: &[(usize, f64)], scale: f64) -
 
 /// Root search on the solver for the hydrant flow (m^3/s) that brings the gauge to the target pressure:
 /// the hydrants (junction, test flow in m^3/s) keep the test's split and their total is scaled.
-/// Bracketed by doubling from the test flow, then bisection to 0.1 % of the flow. Also returns the
-/// solution at the flow found (with its factorization, for sensitivities), or `None` when the flow is
-/// 0 because the static is already below the target.
+/// Also returns the solution at the flow found (with its factorization, for sensitivities), or `None`
+/// when the flow is 0 because the static is already below the target.
+///
+/// The drop at the gauge grows nearly as the flow to the power 1.852 (every head loss on the way is a
+/// Hazen-Williams loss), so the search is a secant on the pressure against `scale^1.852`, started
+/// from the static and the test flow itself: two or three solves where bisection needs fifteen, which
+/// on a city model is the difference between seconds and a minute per calibration. Should the secant
+/// leave its safe ground (a pump or valve bending the curve, a solve that fails), the search falls
+/// back to doubling from the test flow and bisection to 0.1 % of the flow.
 pub(crate) fn model_available_flow(
     solver: &GradientSolver,
     net: &Network,
@@ -248,6 +255,11 @@ pub(crate) fn model_available_flow(
             .unwrap_or(f64::NEG_INFINITY);
         Ok((head, solution))
     };
+    if let Some((scale, solution)) =
+        secant_search(&pressure_at, statics, static_head, target_head_m)
+    {
+        return Ok(Some((scale * total, Some(solution))));
+    }
     let mut low = 0.0;
     let mut high = 1.0;
     let mut warm = statics.clone();
@@ -278,6 +290,48 @@ pub(crate) fn model_available_flow(
         }
     }
     Ok(Some((low * total, at_low)))
+}
+
+/// The secant of [`model_available_flow`]: the hydrant flow scale at which the gauge pressure head
+/// falls to `target_head_m` (within a millimetre), and the solution there; `None` when the secant
+/// cannot be trusted (the caller then brackets and bisects).
+fn secant_search(
+    pressure_at: &dyn Fn(f64, &Solution) -> Result<(f64, Solution), SolveError>,
+    statics: &Solution,
+    static_head_m: f64,
+    target_head_m: f64,
+) -> Option<(f64, Solution)> {
+    const MAX_SOLVES: usize = 12;
+    const LARGEST_SCALE: f64 = 1024.0;
+    // Points (scale^n, pressure head): the static at no flow, then each solve.
+    let power = |scale: f64| scale.powf(HW_FLOW_EXPONENT);
+    let mut older = (0.0, static_head_m);
+    let mut scale = 1.0;
+    let (head, mut solution) = pressure_at(scale, statics).ok()?;
+    let mut newer = (power(scale), head);
+    for _ in 0..MAX_SOLVES {
+        let (u_old, h_old) = older;
+        let (u_new, h_new) = newer;
+        // The pressure must fall as the flow grows, or the straight line says nothing.
+        if !(h_new < h_old && u_new > u_old) {
+            return None;
+        }
+        let u_next = u_new + (target_head_m - h_new) * (u_new - u_old) / (h_new - h_old);
+        let next_scale = u_next.max(0.0).powf(1.0 / HW_FLOW_EXPONENT);
+        if !next_scale.is_finite() || next_scale <= 0.0 || next_scale > LARGEST_SCALE {
+            return None;
+        }
+        let (head, next_solution) = pressure_at(next_scale, &solution).ok()?;
+        older = newer;
+        newer = (u_next, head);
+        scale = next_scale;
+        solution = next_solution;
+        // Within a millimetre of water of the target: the flow is then right to about 1e-5 of itself.
+        if (head - target_head_m).abs() < 1e-3 {
+            return Some((scale, solution));
+        }
+    }
+    None
 }
 
 /// A test the calibration will not use, and why.
