@@ -2,6 +2,7 @@
 //! sheet, print the result, and with `--out` write the coefficient set, calibrated network, report and
 //! plot.
 
+use std::io::{IsTerminal as _, Write as _};
 use std::path::PathBuf;
 use std::process::ExitCode;
 use std::sync::atomic::AtomicBool;
@@ -53,13 +54,11 @@ pub fn run(args: Args) -> anyhow::Result<ExitCode> {
     let static_heads = StaticHeads::solve(&network);
     let job = Job::new(network, read.text, &sheet, options, &static_heads);
 
-    let mut progress = |report: &core::IterationReport| {
-        eprintln!(
-            "iteration {:>3}: objective {:.4}, largest C step {:.3}",
-            report.iteration, report.objective, report.step_c
-        );
-    };
-    let result = job.run(&mut progress, &AtomicBool::new(false))?;
+    let result = job.run(&mut progress_line(job.tests.len()), &AtomicBool::new(false));
+    if std::io::stderr().is_terminal() {
+        eprintln!();
+    }
+    let result = result?;
     let sheet_file = args.sheet.display().to_string();
     let run = RunContext::of_job(&job, &result, &network_file, &sheet_file, None);
     if args.json {
@@ -84,6 +83,26 @@ pub fn run(args: Args) -> anyhow::Result<ExitCode> {
         return Ok(ExitCode::from(1));
     }
     Ok(ExitCode::SUCCESS)
+}
+
+/// The progress line on stderr when it is a terminal, rewritten in place at every optimizer
+/// iteration (nothing when stderr is a file or a pipe, so logs and scripts see only the result).
+fn progress_line(tests: usize) -> impl FnMut(&core::IterationReport) {
+    let terminal = std::io::stderr().is_terminal();
+    if terminal {
+        eprint!("fitting {tests} tests: solving the model at the start values...");
+    }
+    move |report: &core::IterationReport| {
+        if terminal {
+            let mut err = std::io::stderr().lock();
+            let _ = write!(
+                err,
+                "\r\x1b[2Kfitting {tests} tests: iteration {}, objective {:.4}, largest C step {:.3}",
+                report.iteration, report.objective, report.step_c
+            );
+            let _ = err.flush();
+        }
+    }
 }
 
 fn roughcal_not_converged(result: &core::CalibrationResult) -> String {
