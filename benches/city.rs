@@ -59,5 +59,40 @@ fn load(c: &mut Criterion) {
     group.finish();
 }
 
-criterion_group!(benches, load);
+/// The city calibration of issue 11 item 3 (20 tests, 8 groups) from the library, as `roughcal
+/// calibrate` runs it after loading. A fit of the full 300 x 300 city takes minutes, more than a
+/// criterion sample of ten allows, so the bench fits a 100 x 100 city (10,000 junctions) and the README
+/// gives the full city's whole-process figure from `/usr/bin/time -v`.
+fn calibrate_city(c: &mut Criterion) {
+    use roughcal::calibrate::{CalibrationOptions, calibrate};
+    use std::sync::atomic::AtomicBool;
+    let plan = CityPlan {
+        junctions: 10_000,
+        ..CityPlan::default()
+    };
+    let built = match city(&plan) {
+        Ok(built) => built,
+        Err(error) => panic!("the synthetic city does not solve: {error}"),
+    };
+    let options = CalibrationOptions::for_units(built.model.units);
+    let mut group = c.benchmark_group("city calibration");
+    group.sample_size(10);
+    group.warm_up_time(Duration::from_secs(1));
+    group.measurement_time(Duration::from_secs(20));
+    group.bench_function("100x100, 20 tests, 8 groups", |b| {
+        b.iter(|| {
+            calibrate(
+                black_box(&built.model),
+                &built.tests,
+                &options,
+                &mut |_| {},
+                &AtomicBool::new(false),
+            )
+            .map_or(0, |result| result.iterations.len())
+        })
+    });
+    group.finish();
+}
+
+criterion_group!(benches, load, calibrate_city);
 criterion_main!(benches);

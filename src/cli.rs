@@ -5,6 +5,7 @@ use std::path::PathBuf;
 use std::process::ExitCode;
 
 use clap::{Parser, Subcommand};
+use roughcal::calibrate::FitTarget;
 
 mod apply;
 mod calibrate;
@@ -27,14 +28,21 @@ pub struct Cli {
     pub command: Option<Command>,
 }
 
-/// How the calibration compares model and field.
-#[derive(Debug, Clone, Copy, PartialEq, Eq, clap::ValueEnum, Default)]
-pub enum FitTarget {
-    /// Static and residual pressures.
-    #[default]
-    Pressures,
-    /// The pressure drop alone (cancels elevation and boundary errors).
-    Drop,
+/// `--fit`: the library's [`FitTarget`] by its label, with a line of help for each.
+fn fit_target() -> impl clap::builder::TypedValueParser<Value = FitTarget> {
+    use clap::builder::{PossibleValue, PossibleValuesParser, TypedValueParser as _};
+    PossibleValuesParser::new([
+        PossibleValue::new(FitTarget::Pressures.label()).help("Static and residual pressures."),
+        PossibleValue::new(FitTarget::Drop.label())
+            .help("The pressure drop alone (cancels elevation and boundary errors)."),
+    ])
+    .map(|label| {
+        if label == FitTarget::Drop.label() {
+            FitTarget::Drop
+        } else {
+            FitTarget::Pressures
+        }
+    })
 }
 
 #[derive(Debug, Subcommand)]
@@ -106,7 +114,8 @@ pub enum Command {
         /// Overwrite outputs already in the folder.
         #[arg(long)]
         force: bool,
-        #[arg(long, value_enum, default_value_t = FitTarget::Pressures)]
+        /// How the calibration compares model and field.
+        #[arg(long, value_parser = fit_target(), default_value = "pressures")]
         fit: FitTarget,
         /// Gauge accuracy, one standard deviation (psi or kPa); default 1 psi / 7 kPa.
         #[arg(long = "gauge-sd", allow_negative_numbers = true)]
@@ -254,19 +263,14 @@ fn make_demo(root: &std::path::Path) -> anyhow::Result<ExitCode> {
     Ok(ExitCode::SUCCESS)
 }
 
-/// Loads a network file; an invalid file has every diagnostic printed to stderr and yields `None` (the
-/// caller exits 1), an unreadable one is an error.
-pub fn load_network_or_report(
+/// A network file's load result for a command: an invalid file has every diagnostic printed to stderr
+/// and yields `None` (the caller exits 1), an unreadable one is an error.
+pub fn network_or_report<T>(
     path: &std::path::Path,
-    load: impl Fn(
-        &std::path::Path,
-    ) -> Result<
-        roughcal::network::file::LoadedNetwork,
-        roughcal::network::file::NetworkFileError,
-    >,
-) -> anyhow::Result<Option<roughcal::network::file::LoadedNetwork>> {
+    loaded: Result<T, roughcal::network::file::NetworkFileError>,
+) -> anyhow::Result<Option<T>> {
     use roughcal::network::file::NetworkFileError;
-    match load(path) {
+    match loaded {
         Ok(loaded) => Ok(Some(loaded)),
         Err(NetworkFileError::Invalid { diagnostics }) => {
             for diagnostic in &diagnostics {

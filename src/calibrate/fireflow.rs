@@ -82,6 +82,10 @@ pub fn available_flow_gradient(
 /// fitted C). `group_pipes[g]` are the pipes of the g-th fitted group and `covariance` the covariance
 /// of those groups' C, in the same order; with no fitted group the interval is absent.
 /// `target_head_m` is the target residual as a water column.
+///
+/// The static state of each condition is solved once and shared by its tests, and the tests are dealt
+/// round-robin to one thread per core; each test's root search depends only on its own solves, so the
+/// answer does not depend on the core count.
 pub fn fire_flow_estimates(
     net: &Network,
     tests: &[CalibrationTest],
@@ -91,29 +95,71 @@ pub fn fire_flow_estimates(
     target_head_m: f64,
 ) -> Result<Vec<FireFlowEstimate>, SolveError> {
     let solver = GradientSolver::new(net)?;
-    Ok(tests
-        .iter()
-        .map(|test| {
-            estimate(
-                &solver,
-                net,
-                test,
-                pipe_c,
-                group_pipes,
-                covariance,
-                target_head_m,
-            )
+    let mut conditions: Vec<Option<usize>> = tests.iter().map(|t| t.condition).collect();
+    conditions.sort_unstable();
+    conditions.dedup();
+    let statics: Vec<(Option<usize>, OperatingState, Option<Solution>)> = conditions
+        .into_iter()
+        .map(|condition| {
+            let base = OperatingState::for_condition_index(net, condition);
+            let solution = solver.solve(net, &base, pipe_c, None).ok();
+            (condition, base, solution)
         })
-        .collect())
+        .collect();
+    let threads = std::thread::available_parallelism()
+        .map_or(1, |n| n.get())
+        .clamp(1, tests.len().max(1));
+    let estimate_share = |share: usize| -> Vec<(usize, FireFlowEstimate)> {
+        (share..tests.len())
+            .step_by(threads)
+            .map(|t| {
+                let test = &tests[t];
+                let static_state = statics.iter().find(|(c, _, _)| *c == test.condition);
+                let estimate = match static_state {
+                    Some((_, base, Some(statics))) => estimate(
+                        &solver,
+                        net,
+                        test,
+                        (base, statics),
+                        pipe_c,
+                        (group_pipes, covariance),
+                        target_head_m,
+                    ),
+                    _ => FireFlowEstimate {
+                        test_id: test.id.clone(),
+                        flow: None,
+                        std_error: None,
+                        ci95: None,
+                    },
+                };
+                (t, estimate)
+            })
+            .collect()
+    };
+    let mut estimates: Vec<(usize, FireFlowEstimate)> = if threads == 1 {
+        estimate_share(0)
+    } else {
+        std::thread::scope(|scope| {
+            let handles: Vec<_> = (0..threads)
+                .map(|share| scope.spawn(move || estimate_share(share)))
+                .collect();
+            handles
+                .into_iter()
+                .flat_map(|h| h.join().unwrap_or_else(|e| std::panic::resume_unwind(e)))
+                .collect()
+        })
+    };
+    estimates.sort_by_key(|(t, _)| *t);
+    Ok(estimates.into_iter().map(|(_, e)| e).collect())
 }
 
 fn estimate(
     solver: &GradientSolver,
     net: &Network,
     test: &CalibrationTest,
+    (base, statics): (&OperatingState, &Solution),
     pipe_c: &[f64],
-    group_pipes: &[Vec<usize>],
-    covariance: &[Vec<f64>],
+    (group_pipes, covariance): (&[Vec<usize>], &[Vec<f64>]),
     target_head_m: f64,
 ) -> FireFlowEstimate {
     let mut out = FireFlowEstimate {
@@ -122,13 +168,9 @@ fn estimate(
         std_error: None,
         ci95: None,
     };
-    let base = OperatingState::for_condition_index(net, test.condition);
-    let Ok(statics) = solver.solve(net, &base, pipe_c, None) else {
-        return out;
-    };
     let point = (test.residual_junction, test.hydrant_flows_m3s.as_slice());
     let Ok(Some((flow_m3s, at_flow))) =
-        model_available_flow(solver, net, &base, pipe_c, point, &statics, target_head_m)
+        model_available_flow(solver, net, base, pipe_c, point, statics, target_head_m)
     else {
         return out;
     };

@@ -17,6 +17,7 @@
 
 mod evaluate;
 pub mod fireflow;
+mod job;
 mod optimizer;
 pub mod plan;
 mod statistics;
@@ -25,6 +26,7 @@ use std::sync::atomic::AtomicBool;
 
 pub use evaluate::TestEvaluation;
 pub use fireflow::FireFlowEstimate;
+pub use job::Job;
 pub use statistics::FitStatistics;
 
 use crate::hydraulics::SolveError;
@@ -423,41 +425,64 @@ pub(crate) struct GroupCandidate {
     pub locked: bool,
 }
 
-/// Groups that have at least one pipe. The start value is the length-weighted mean C of its pipes (all
-/// equal in a calibrated file), kept strictly inside the bounds.
+/// A roughness group's pipes, their length, the C a fit starts from and the bounds it keeps to: what
+/// the fit and the workbench's groups table both show.
+#[derive(Debug, Clone, PartialEq)]
+pub struct GroupStart {
+    /// Indices of the group's pipes, in pipe order.
+    pub pipes: Vec<usize>,
+    pub length_m: f64,
+    /// The length-weighted mean C of the pipes (exactly the common C when all are equal, as in a
+    /// calibrated file); `None` for a group without pipes or length.
+    pub start_c: Option<f64>,
+    /// The group's bounds, or [`DEFAULT_GROUP_MIN_C`] and [`DEFAULT_GROUP_MAX_C`] when the file's are
+    /// not an interval.
+    pub min_c: f64,
+    pub max_c: f64,
+}
+
+/// The start of group `group` of `net` (see [`GroupStart`]).
+pub fn group_start(net: &Network, group: usize) -> GroupStart {
+    let pipes: Vec<usize> = (0..net.pipes.len())
+        .filter(|&k| net.pipes[k].group == Some(group))
+        .collect();
+    let length_m: f64 = pipes.iter().map(|&k| net.pipes[k].length_m).sum();
+    let weighted: f64 = pipes
+        .iter()
+        .map(|&k| net.pipes[k].c_factor * net.pipes[k].length_m)
+        .sum();
+    let (min_c, max_c) = match net.groups.get(group) {
+        Some(g) if g.min_c < g.max_c => (g.min_c, g.max_c),
+        _ => (DEFAULT_GROUP_MIN_C, DEFAULT_GROUP_MAX_C),
+    };
+    let first_c = pipes.first().map(|&k| net.pipes[k].c_factor);
+    let start_c = match first_c {
+        Some(first) if pipes.iter().all(|&k| net.pipes[k].c_factor == first) => Some(first),
+        _ => (length_m > 0.0).then(|| weighted / length_m),
+    };
+    GroupStart {
+        pipes,
+        length_m,
+        start_c,
+        min_c,
+        max_c,
+    }
+}
+
+/// Groups that have at least one pipe, with their start values ([`group_start`]) and bounds.
 fn group_candidates(net: &Network) -> Vec<GroupCandidate> {
     net.groups
         .iter()
         .enumerate()
         .filter_map(|(g, group)| {
-            let pipes: Vec<usize> = (0..net.pipes.len())
-                .filter(|&k| net.pipes[k].group == Some(g))
-                .collect();
-            if pipes.is_empty() {
-                return None;
-            }
-            let length: f64 = pipes.iter().map(|&k| net.pipes[k].length_m).sum();
-            let weighted: f64 = pipes
-                .iter()
-                .map(|&k| net.pipes[k].c_factor * net.pipes[k].length_m)
-                .sum();
-            let (min_c, max_c) = if group.min_c < group.max_c {
-                (group.min_c, group.max_c)
-            } else {
-                (DEFAULT_GROUP_MIN_C, DEFAULT_GROUP_MAX_C)
-            };
-            let first_c = net.pipes[pipes[0]].c_factor;
-            let all_equal = pipes.iter().all(|&k| net.pipes[k].c_factor == first_c);
+            let start = group_start(net, g);
+            let start_c = start.start_c?;
             Some(GroupCandidate {
                 group: g,
-                start_c: if all_equal {
-                    first_c
-                } else {
-                    weighted / length
-                },
-                pipes,
-                min_c,
-                max_c,
+                pipes: start.pipes,
+                start_c,
+                min_c: start.min_c,
+                max_c: start.max_c,
                 locked: group.locked,
             })
         })

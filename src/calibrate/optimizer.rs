@@ -1,11 +1,19 @@
-//! The argmin problem: residuals and Jacobian in the bounded parametrisation, with a cache so that the
+//! The argmin problem: residuals and Jacobian in the bounded parametrisation, with a memo so that the
 //! Jacobian call at a point reuses the model solves of the residual call at the same point.
+//!
+//! Everything else goes the argmin way: progress is an argmin observer ([`Progress`]) called after
+//! every iteration, and a failed model solve or a cancel travels as argmin's error (the
+//! [`SolveError`] itself, or [`Cancelled`]) and is recovered from it as
+//! [`CalibrationError::Solve`] or [`CalibrationError::Cancelled`].
 
-use std::cell::RefCell;
 use std::sync::atomic::{AtomicBool, Ordering};
+use std::sync::mpsc;
+use std::sync::{Mutex, PoisonError};
 
+use argmin::core::observers::{Observe, ObserverMode};
 use argmin::core::{
-    Error as ArgminError, Executor, Jacobian, Operator, State, TerminationReason, TerminationStatus,
+    Error as ArgminError, Executor, Jacobian, KV, Operator, State, TerminationReason,
+    TerminationStatus,
 };
 use argmin::solver::gaussnewton::GaussNewtonLS;
 use argmin::solver::linesearch::BacktrackingLineSearch;
@@ -35,6 +43,7 @@ pub struct OptimizerOutcome {
     pub termination: String,
 }
 
+#[derive(Clone)]
 struct Bounds {
     lo: Vec<f64>,
     hi: Vec<f64>,
@@ -73,61 +82,55 @@ struct Cached {
     evaluations: Vec<TestEvaluation>,
 }
 
-struct FitProblem<'a, 'p> {
+/// The run was cancelled: carried through argmin as its error.
+#[derive(Debug, thiserror::Error)]
+#[error("cancelled")]
+struct Cancelled;
+
+struct FitProblem<'a> {
     evaluator: Evaluator<'a>,
     tests: &'a [CalibrationTest],
     options: &'a CalibrationOptions,
     bounds: Bounds,
     start_c: Vec<f64>,
     start_u: DVector<f64>,
-    names: Vec<String>,
-    cache: RefCell<Option<Cached>>,
+    /// The model evaluation at the last point asked for (argmin asks for residuals and then the
+    /// Jacobian at one point; both take `&self`).
+    memo: Mutex<Option<Cached>>,
     cancel: &'a AtomicBool,
-    progress: RefCell<&'p mut dyn FnMut(&IterationReport)>,
-    history: RefCell<Vec<IterationReport>>,
-    last_solve_error: RefCell<Option<SolveError>>,
 }
 
-impl FitProblem<'_, '_> {
-    /// Evaluates the model at `u` unless the cache already holds it. Sensitivities are always computed:
+impl FitProblem<'_> {
+    /// Evaluates the model at `u` unless the memo already holds it. Sensitivities are always computed:
     /// the line search's accepted point is where argmin next asks for the Jacobian, and the two extra
     /// triangular solves per test cost far less than solving every test again.
-    fn evaluations(&self, u: &DVector<f64>) -> Result<(), ArgminError> {
+    fn evaluations(&self, u: &DVector<f64>) -> Result<Vec<TestEvaluation>, ArgminError> {
         if self.cancel.load(Ordering::Relaxed) {
-            return Err(ArgminError::msg("cancelled"));
+            return Err(ArgminError::new(Cancelled));
         }
-        if let Some(cached) = self.cache.borrow().as_ref()
+        let mut memo = self.memo.lock().unwrap_or_else(PoisonError::into_inner);
+        if let Some(cached) = memo.as_ref()
             && cached.u == *u
         {
-            return Ok(());
+            return Ok(cached.evaluations.clone());
         }
-        let c = self.bounds.to_c(u);
-        match self.evaluator.evaluate(&c) {
-            Ok(evaluations) => {
-                *self.cache.borrow_mut() = Some(Cached {
-                    u: u.clone(),
-                    evaluations,
-                });
-                Ok(())
-            }
-            Err(e) => {
-                let message = e.to_string();
-                *self.last_solve_error.borrow_mut() = Some(e);
-                Err(ArgminError::msg(message))
-            }
-        }
+        let evaluations = self
+            .evaluator
+            .evaluate(&self.bounds.to_c(u))
+            .map_err(ArgminError::new)?;
+        *memo = Some(Cached {
+            u: u.clone(),
+            evaluations: evaluations.clone(),
+        });
+        Ok(evaluations)
     }
 
     /// Whitened residuals and their Jacobian with respect to C (not u), prior rows included.
     fn rows(&self, u: &DVector<f64>) -> Result<(Vec<f64>, Vec<Vec<f64>>), ArgminError> {
-        self.evaluations(u)?;
-        let cache = self.cache.borrow();
-        let Some(cached) = cache.as_ref() else {
-            return Err(ArgminError::msg("no model evaluation"));
-        };
+        let evaluations = self.evaluations(u)?;
         let (mut residuals, mut rows) = residual_rows(
             self.tests,
-            &cached.evaluations,
+            &evaluations,
             self.options.fit,
             self.options.gauge_sd_m,
         );
@@ -145,7 +148,7 @@ impl FitProblem<'_, '_> {
     }
 }
 
-impl Operator for FitProblem<'_, '_> {
+impl Operator for FitProblem<'_> {
     type Param = DVector<f64>;
     type Output = DVector<f64>;
 
@@ -158,12 +161,12 @@ impl Operator for FitProblem<'_, '_> {
     }
 }
 
-impl Jacobian for FitProblem<'_, '_> {
+impl Jacobian for FitProblem<'_> {
     type Param = DVector<f64>;
     type Jacobian = DMatrix<f64>;
 
     fn jacobian(&self, u: &Self::Param) -> Result<Self::Jacobian, ArgminError> {
-        let (residuals, rows) = self.rows(u)?;
+        let (_, rows) = self.rows(u)?;
         let c = self.bounds.to_c(u);
         let chain = self.bounds.dc_du(&c);
         let p = u.len();
@@ -177,33 +180,61 @@ impl Jacobian for FitProblem<'_, '_> {
         for j in 0..p {
             jac[(m + j, j)] = RIDGE_WEIGHT;
         }
-
-        // argmin asks for the Jacobian once per iteration, at the iterate: report progress from here.
-        let ridge: f64 = (0..p)
-            .map(|i| (RIDGE_WEIGHT * (u[i] - self.start_u[i])).powi(2))
-            .sum();
-        let objective = 0.5 * (residuals.iter().map(|r| r * r).sum::<f64>() + ridge);
-        let mut history = self.history.borrow_mut();
-        let step_c = history.last().map_or(0.0, |prev| {
-            prev.group_c
-                .iter()
-                .zip(&c)
-                .map(|((_, a), b)| (a - b).abs())
-                .fold(0.0, f64::max)
-        });
-        let report = IterationReport {
-            iteration: history.len() as u64,
-            objective,
-            step_c,
-            group_c: self.names.iter().cloned().zip(c.iter().copied()).collect(),
-        };
-        (self.progress.borrow_mut())(&report);
-        history.push(report);
         Ok(jac)
     }
 }
 
-/// Runs Gauss-Newton with line search over the `fitted` candidates.
+/// The argmin observer that reports each iteration: the C of every fitted group at the iterate the
+/// iteration ended on, the objective there (half the squared norm of the residual vector argmin's line
+/// search minimised, ridge rows included) and the largest C step. Reports go over a channel, as argmin
+/// keeps its observers for the whole run.
+struct Progress {
+    bounds: Bounds,
+    names: Vec<String>,
+    previous_c: Vec<f64>,
+    sender: mpsc::Sender<IterationReport>,
+}
+
+impl<I: State<Param = DVector<f64>, Float = f64>> Observe<I> for Progress {
+    fn observe_iter(&mut self, state: &I, _kv: &KV) -> Result<(), ArgminError> {
+        let Some(u) = state.get_param() else {
+            return Ok(());
+        };
+        let c = self.bounds.to_c(u);
+        let step_c = self
+            .previous_c
+            .iter()
+            .zip(&c)
+            .map(|(a, b)| (a - b).abs())
+            .fold(0.0, f64::max);
+        let cost = state.get_cost();
+        let report = IterationReport {
+            iteration: state.get_iter() + 1,
+            objective: 0.5 * cost * cost,
+            step_c,
+            group_c: self.names.iter().cloned().zip(c.iter().copied()).collect(),
+        };
+        self.previous_c = c;
+        // The receiver outlives the run; a send can only fail once nobody listens.
+        let _ = self.sender.send(report);
+        Ok(())
+    }
+}
+
+/// The calibration error an argmin error carries: the model's own solve error, a cancel, or the
+/// optimizer's message.
+fn recover(error: ArgminError, cancel: &AtomicBool) -> CalibrationError {
+    if let Some(solve) = error.downcast_ref::<SolveError>() {
+        return CalibrationError::Solve(solve.clone());
+    }
+    if error.is::<Cancelled>() || cancel.load(Ordering::Relaxed) {
+        return CalibrationError::Cancelled;
+    }
+    CalibrationError::Optimizer(error.to_string())
+}
+
+/// Runs Gauss-Newton with line search over the `fitted` candidates; `progress` hears of every
+/// iteration as it ends.
 pub fn run(
     screening: &Evaluator<'_>,
     options: &CalibrationOptions,
@@ -228,6 +259,13 @@ pub fn run(
         .iter()
         .map(|&g| net.groups[candidates[g].group].name.clone())
         .collect();
+    let (sender, receiver) = mpsc::channel();
+    let observer = Progress {
+        bounds: bounds.clone(),
+        names,
+        previous_c: bounds.to_c(&start_u),
+        sender,
+    };
     let problem = FitProblem {
         evaluator,
         tests,
@@ -235,12 +273,8 @@ pub fn run(
         bounds,
         start_c,
         start_u: start_u.clone(),
-        names,
-        cache: RefCell::new(None),
+        memo: Mutex::new(None),
         cancel,
-        progress: RefCell::new(progress),
-        history: RefCell::new(Vec::new()),
-        last_solve_error: RefCell::new(None),
     };
 
     let condition =
@@ -248,67 +282,71 @@ pub fn run(
     let line_search = BacktrackingLineSearch::new(condition)
         .rho(0.5)
         .map_err(|e| CalibrationError::Optimizer(e.to_string()))?;
-    // argmin's stopping rule is on the change of the objective (half the whitened sum of squares) between
-    // iterations. 1e-6 is a millionth of one reading's worth of misfit: the C it leaves unsettled is about
-    // a thousandth of its standard error.
+    // argmin's stopping rule is on the change of the cost between iterations (for Gauss-Newton with
+    // a line search, the norm of the whitened residuals). 1e-6 is a millionth of one reading's worth
+    // of misfit: the C it leaves unsettled is about a thousandth of its standard error.
     let solver = GaussNewtonLS::new(line_search)
         .with_tolerance(OBJECTIVE_CHANGE_TOLERANCE)
         .map_err(|e| CalibrationError::Optimizer(e.to_string()))?;
 
-    let result = Executor::new(problem, solver)
-        .configure(|state| state.param(start_u).max_iters(options.max_iterations))
-        .timer(false)
-        .run();
+    // argmin keeps its observers for the whole run ('static), so the run goes on a thread of its own
+    // and this one hands each report to `progress` as it comes.
+    let mut iterations = Vec::new();
+    let result = std::thread::scope(|scope| {
+        let run = scope.spawn(move || {
+            Executor::new(problem, solver)
+                .configure(|state| state.param(start_u).max_iters(options.max_iterations))
+                .add_observer(observer, ObserverMode::Always)
+                .timer(false)
+                .run()
+        });
+        for report in receiver {
+            progress(&report);
+            iterations.push(report);
+        }
+        run.join().unwrap_or_else(|e| std::panic::resume_unwind(e))
+    });
 
-    match result {
-        Ok(mut result) => {
-            let state = result.state();
-            let best = state
-                .get_best_param()
-                .or_else(|| state.get_param())
-                .cloned();
-            let status = state.get_termination_status().clone();
-            let Some(problem) = result.problem.take_problem() else {
-                return Err(CalibrationError::Optimizer(
-                    "the optimizer lost its problem".into(),
-                ));
-            };
-            let Some(best) = best else {
-                return Err(CalibrationError::Optimizer(
-                    "the optimizer returned no parameters".into(),
-                ));
-            };
-            let (converged, termination) = match status {
-                TerminationStatus::Terminated(TerminationReason::SolverConverged) => {
-                    (true, "the residual norm stopped changing".to_string())
-                }
-                TerminationStatus::Terminated(TerminationReason::MaxItersReached) => (
-                    false,
-                    format!(
-                        "NOT converged: stopped at the iteration limit ({})",
-                        options.max_iterations
-                    ),
-                ),
-                TerminationStatus::Terminated(reason) => {
-                    (false, format!("NOT converged: {}", reason.text()))
-                }
-                TerminationStatus::NotTerminated => (
-                    false,
-                    "NOT converged: the optimizer stopped early".to_string(),
-                ),
-            };
-            Ok(OptimizerOutcome {
-                fitted_c: problem.bounds.to_c(&best),
-                iterations: problem.history.into_inner(),
-                converged,
-                termination,
-            })
+    let mut result = result.map_err(|error| recover(error, cancel))?;
+    let state = result.state();
+    let best = state
+        .get_best_param()
+        .or_else(|| state.get_param())
+        .cloned();
+    let status = state.get_termination_status().clone();
+    let Some(problem) = result.problem.take_problem() else {
+        return Err(CalibrationError::Optimizer(
+            "the optimizer lost its problem".into(),
+        ));
+    };
+    let Some(best) = best else {
+        return Err(CalibrationError::Optimizer(
+            "the optimizer returned no parameters".into(),
+        ));
+    };
+    let (converged, termination) = match status {
+        TerminationStatus::Terminated(TerminationReason::SolverConverged) => {
+            (true, "the residual norm stopped changing".to_string())
         }
-        Err(error) => {
-            if cancel.load(Ordering::Relaxed) {
-                return Err(CalibrationError::Cancelled);
-            }
-            Err(CalibrationError::Optimizer(error.to_string()))
+        TerminationStatus::Terminated(TerminationReason::MaxItersReached) => (
+            false,
+            format!(
+                "NOT converged: stopped at the iteration limit ({})",
+                options.max_iterations
+            ),
+        ),
+        TerminationStatus::Terminated(reason) => {
+            (false, format!("NOT converged: {}", reason.text()))
         }
-    }
+        TerminationStatus::NotTerminated => (
+            false,
+            "NOT converged: the optimizer stopped early".to_string(),
+        ),
+    };
+    Ok(OptimizerOutcome {
+        fitted_c: problem.bounds.to_c(&best),
+        iterations,
+        converged,
+        termination,
+    })
 }

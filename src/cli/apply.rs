@@ -6,9 +6,9 @@ use std::process::ExitCode;
 
 use anyhow::Context as _;
 use roughcal::network::edit::apply_group_c;
-use roughcal::network::file::parse_network;
+use roughcal::network::read_network;
 
-use super::load_network_or_report;
+use super::network_or_report;
 use roughcal::report::coefficients::{group_changes, group_changes_text};
 use roughcal::report::load_coefficients;
 use roughcal::storage::write_new;
@@ -19,12 +19,10 @@ pub fn run(
     out: &Path,
     force: bool,
 ) -> anyhow::Result<ExitCode> {
-    let text = std::fs::read_to_string(network)
-        .with_context(|| format!("cannot read network file {}", network.display()))?;
-    let parse = |path: &Path| parse_network(&text, &path.display().to_string());
-    let Some(loaded) = load_network_or_report(network, parse)? else {
+    let Some(read) = network_or_report(network, read_network(network))? else {
         return Ok(ExitCode::from(1));
     };
+    let (text, loaded) = (read.text, read.loaded);
     let set = load_coefficients(coefficients)?;
     set.check_converged()?;
     set.check_against(&loaded.network)?;

@@ -2,23 +2,20 @@
 //! sheet, print the result, and with `--out` write the coefficient set, calibrated network, report and
 //! plot.
 
-use std::path::{Path, PathBuf};
+use std::io::{IsTerminal as _, Write as _};
+use std::path::PathBuf;
 use std::process::ExitCode;
 use std::sync::atomic::AtomicBool;
 
-use anyhow::{Context as _, bail};
-use roughcal::calibrate::{self as core, CalibrationOptions};
-use roughcal::fieldtest::{
-    StaticHeads, calibration_input, load_sheet, screen_sheet, with_static_findings,
-};
-use roughcal::network::Network;
-use roughcal::network::file::parse_network;
+use anyhow::bail;
+use roughcal::calibrate::{self as core, CalibrationOptions, FitTarget, Job};
+use roughcal::fieldtest::{StaticHeads, load_sheet};
+use roughcal::network::{Network, read_network};
 use roughcal::report::{
-    CalibrationOutputs, OutputWriteError, RunContext, existing_outputs, json_summary, text_summary,
-    write_outputs,
+    CalibrationOutputs, RunContext, check_no_outputs, json_summary, text_summary, write_outputs,
 };
 
-use super::{FitTarget, load_network_or_report};
+use super::network_or_report;
 
 pub struct Args {
     pub network: PathBuf,
@@ -35,19 +32,16 @@ pub struct Args {
 
 pub fn run(args: Args) -> anyhow::Result<ExitCode> {
     let network_file = args.network.display().to_string();
-    let network_text = std::fs::read_to_string(&args.network)
-        .with_context(|| format!("cannot read network file {network_file}"))?;
-    let parse = |_: &Path| parse_network(&network_text, &network_file);
-    let Some(loaded) = load_network_or_report(&args.network, parse)? else {
+    let Some(read) = network_or_report(&args.network, read_network(&args.network))? else {
         return Ok(ExitCode::from(1));
     };
-    let network = loaded.network;
+    let network = read.loaded.network;
     let options = options(&args, &network)?;
     // Refuse before a long run rather than after it.
     if let Some(out) = &args.out
         && !args.force
     {
-        refuse_existing(out)?;
+        check_no_outputs(out)?;
     }
     let sheet = match load_sheet(&args.sheet) {
         Ok(sheet) => sheet,
@@ -57,46 +51,23 @@ pub fn run(args: Args) -> anyhow::Result<ExitCode> {
         }
     };
     // Every warning `tests` gives (the modelled-static one too) goes with its test into the outputs.
-    let reading = with_static_findings(
-        &network,
-        screen_sheet(&sheet, Some(&network)),
-        &StaticHeads::solve(&network),
-    );
-    let input = calibration_input(&network, &reading);
-    let (tests, excluded) = (input.tests, input.excluded);
+    let static_heads = StaticHeads::solve(&network);
+    let job = Job::new(network, read.text, &sheet, options, &static_heads);
 
-    let mut progress = |report: &core::IterationReport| {
-        eprintln!(
-            "iteration {:>3}: objective {:.4}, largest C step {:.3}",
-            report.iteration, report.objective, report.step_c
-        );
-    };
-    let result = core::calibrate(
-        &network,
-        &tests,
-        &options,
-        &mut progress,
-        &AtomicBool::new(false),
-    )?;
+    let result = job.run(&mut progress_line(job.tests.len()), &AtomicBool::new(false));
+    if std::io::stderr().is_terminal() {
+        eprintln!();
+    }
+    let result = result?;
     let sheet_file = args.sheet.display().to_string();
-    let run = RunContext {
-        network: &network,
-        network_file: &network_file,
-        sheet_file: &sheet_file,
-        options: &options,
-        tests: &tests,
-        excluded: &excluded,
-        result: &result,
-        warnings: &input.warnings,
-        out_of_date: None,
-    };
+    let run = RunContext::of_job(&job, &result, &network_file, &sheet_file, None);
     if args.json {
         println!("{}", serde_json::to_string_pretty(&json_summary(&run))?);
     } else {
         print!("{}", text_summary(&run));
     }
     if let Some(out) = &args.out {
-        let outputs = CalibrationOutputs::build(&run, &network_text)?;
+        let outputs = CalibrationOutputs::build(&run, &job.network_text)?;
         let written = write_outputs(out, &outputs, args.force)?;
         for path in written {
             // Keep stdout a single JSON document under --json.
@@ -114,24 +85,32 @@ pub fn run(args: Args) -> anyhow::Result<ExitCode> {
     Ok(ExitCode::SUCCESS)
 }
 
+/// The progress line on stderr when it is a terminal, rewritten in place at every optimizer
+/// iteration (nothing when stderr is a file or a pipe, so logs and scripts see only the result).
+fn progress_line(tests: usize) -> impl FnMut(&core::IterationReport) {
+    let terminal = std::io::stderr().is_terminal();
+    if terminal {
+        eprint!("fitting {tests} tests: solving the model at the start values...");
+    }
+    move |report: &core::IterationReport| {
+        if terminal {
+            let mut err = std::io::stderr().lock();
+            let _ = write!(
+                err,
+                "\r\x1b[2Kfitting {tests} tests: iteration {}, objective {:.4}, largest C step {:.3}",
+                report.iteration, report.objective, report.step_c
+            );
+            let _ = err.flush();
+        }
+    }
+}
+
 fn roughcal_not_converged(result: &core::CalibrationResult) -> String {
     format!(
         "NOT CONVERGED after {} iterations ({})",
         result.iterations.len(),
         result.termination
     )
-}
-
-fn refuse_existing(out: &Path) -> anyhow::Result<()> {
-    let existing = existing_outputs(out);
-    if existing.is_empty() {
-        return Ok(());
-    }
-    Err(OutputWriteError::Exists {
-        folder: out.to_path_buf(),
-        files: existing.iter().map(|s| s.to_string()).collect(),
-    }
-    .into())
 }
 
 /// Calibration options from the flags; pressures given in the network's units become metres of water.
@@ -146,10 +125,7 @@ fn options(args: &Args, network: &Network) -> anyhow::Result<CalibrationOptions>
         }
     };
     let mut options = CalibrationOptions::for_units(units);
-    options.fit = match args.fit {
-        FitTarget::Pressures => core::FitTarget::Pressures,
-        FitTarget::Drop => core::FitTarget::Drop,
-    };
+    options.fit = args.fit;
     if let Some(sd) = args.gauge_sd {
         options.gauge_sd_m = units.pressure_to_head_m(positive("--gauge-sd", sd)?);
     }

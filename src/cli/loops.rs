@@ -14,7 +14,7 @@ use roughcal::network::{Network, NodeRef};
 use roughcal::report::table::{Align, TextTable};
 use serde_json::{Value, json};
 
-use super::load_network_or_report;
+use super::network_or_report;
 
 /// Loop corrections printed on one line of the iteration table.
 const CORRECTIONS_PER_LINE: usize = 6;
@@ -25,7 +25,7 @@ pub fn run(
     condition: Option<&str>,
     json: bool,
 ) -> anyhow::Result<ExitCode> {
-    let Some(loaded) = load_network_or_report(network, load_network_file)? else {
+    let Some(loaded) = network_or_report(network, load_network_file(network))? else {
         return Ok(ExitCode::from(1));
     };
     let mut net = loaded.network;

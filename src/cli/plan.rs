@@ -9,16 +9,13 @@ use std::sync::atomic::AtomicBool;
 
 use anyhow::bail;
 use roughcal::calibrate::plan::{PlanOptions, TestPlan, plan_tests};
-use roughcal::calibrate::{self as core, CAUTION, CalibrationOptions};
-use roughcal::fieldtest::{
-    StaticHeads, calibration_input, load_sheet, screen_sheet, with_static_findings,
-};
-use roughcal::network::Network;
-use roughcal::network::file::load_network_file;
+use roughcal::calibrate::{CAUTION, CalibrationOptions, Job};
+use roughcal::fieldtest::{StaticHeads, load_sheet};
+use roughcal::network::{Network, read_network};
 use roughcal::report::table::{Align, TextTable};
 use serde_json::json;
 
-use super::load_network_or_report;
+use super::network_or_report;
 
 pub struct Args {
     pub network: PathBuf,
@@ -32,10 +29,10 @@ pub struct Args {
 }
 
 pub fn run(args: Args) -> anyhow::Result<ExitCode> {
-    let Some(loaded) = load_network_or_report(&args.network, load_network_file)? else {
+    let Some(read) = network_or_report(&args.network, read_network(&args.network))? else {
         return Ok(ExitCode::from(1));
     };
-    let net = loaded.network;
+    let net = read.loaded.network;
     let options = plan_options(&args, &net)?;
     let sheet = match load_sheet(&args.sheet) {
         Ok(sheet) => sheet,
@@ -44,31 +41,22 @@ pub fn run(args: Args) -> anyhow::Result<ExitCode> {
             return Ok(ExitCode::from(1));
         }
     };
-    let reading = with_static_findings(
-        &net,
-        screen_sheet(&sheet, Some(&net)),
-        &StaticHeads::solve(&net),
-    );
-    let input = calibration_input(&net, &reading);
+    let static_heads = StaticHeads::solve(&net);
     let calibration = CalibrationOptions::for_units(net.units);
-    let result = core::calibrate(
-        &net,
-        &input.tests,
-        &calibration,
-        &mut |_| {},
-        &AtomicBool::new(false),
-    )?;
+    let job = Job::new(net, read.text, &sheet, calibration, &static_heads);
+    let result = job.run(&mut |_| {}, &AtomicBool::new(false))?;
+    let (net, calibration) = (&job.network, &job.options);
     if !result.converged {
         eprintln!(
             "roughcal: warning: the fit the plan starts from did not converge ({}); the ranking uses its last C",
             result.termination
         );
     }
-    let plan = plan_tests(&net, &result, &calibration, &options)?;
+    let plan = plan_tests(net, &result, calibration, &options)?;
     if args.json {
-        println!("{}", serde_json::to_string_pretty(&plan_json(&net, &plan))?);
+        println!("{}", serde_json::to_string_pretty(&plan_json(net, &plan))?);
     } else {
-        print!("{}", plan_text(&net, &plan, &options));
+        print!("{}", plan_text(net, &plan, &options));
     }
     Ok(ExitCode::SUCCESS)
 }

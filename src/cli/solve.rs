@@ -14,7 +14,7 @@ use roughcal::report::table::{Align, TextTable};
 use serde::Serialize;
 use serde::ser::Serializer;
 
-use super::load_network_or_report;
+use super::network_or_report;
 
 pub fn run(
     network_path: &Path,
@@ -22,7 +22,7 @@ pub fn run(
     demands: &[String],
     json: bool,
 ) -> anyhow::Result<ExitCode> {
-    let Some(loaded) = load_network_or_report(network_path, load_network_file)? else {
+    let Some(loaded) = network_or_report(network_path, load_network_file(network_path))? else {
         return Ok(ExitCode::from(1));
     };
     let net = &loaded.network;

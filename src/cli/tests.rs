@@ -14,7 +14,7 @@ use roughcal::report::table::{Align, TextTable};
 use serde_json::json;
 
 use super::fireflow::finding_json;
-use super::load_network_or_report;
+use super::network_or_report;
 use roughcal::calibrate::CAUTION;
 
 pub fn run(
@@ -23,7 +23,7 @@ pub fn run(
     target: Option<f64>,
     json: bool,
 ) -> anyhow::Result<ExitCode> {
-    let Some(loaded) = load_network_or_report(network_path, load_network_file)? else {
+    let Some(loaded) = network_or_report(network_path, load_network_file(network_path))? else {
         return Ok(ExitCode::from(1));
     };
     let sheet = match load_sheet(sheet_path) {

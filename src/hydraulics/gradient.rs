@@ -1106,7 +1106,7 @@ impl GradientSolver {
         let mut statuses_changed = true;
         for iteration in 1..=settings.max_iterations {
             if statuses_changed {
-                it.isolated = self.isolated_junctions(&it.status);
+                it.isolated = self.isolated_junctions(net, &it.status);
             }
             system.assemble(
                 &self.links,
@@ -1505,60 +1505,22 @@ impl GradientSolver {
         Ok(())
     }
 
-    /// Junctions with no path through flowing links to a fixed head.
-    fn isolated_junctions(&self, status: &[LinkStatus]) -> Vec<bool> {
-        let n = self.pattern.junction_count;
-        let mut adjacency_start = vec![0usize; n + 1];
-        let flowing = || {
-            self.links
-                .iter()
-                .zip(status)
-                .filter(|(_, s)| s.connects())
-                .map(|(link, _)| link.slots())
-        };
-        for slots in flowing() {
-            for node in [slots.from, slots.to] {
-                if let NodeRef::Junction(i) = node {
-                    adjacency_start[i + 1] += 1;
-                }
-            }
-        }
-        for i in 0..n {
-            adjacency_start[i + 1] += adjacency_start[i];
-        }
-        let mut fill = adjacency_start.clone();
-        let mut neighbours = vec![usize::MAX; adjacency_start[n]];
-        let mut reached = vec![false; n];
-        let mut stack = Vec::new();
-        for slots in flowing() {
-            match (slots.from, slots.to) {
-                (NodeRef::Junction(i), NodeRef::Junction(j)) => {
-                    neighbours[fill[i]] = j;
-                    fill[i] += 1;
-                    neighbours[fill[j]] = i;
-                    fill[j] += 1;
-                }
-                (NodeRef::Junction(i), NodeRef::FixedHead(_))
-                | (NodeRef::FixedHead(_), NodeRef::Junction(i)) => {
-                    neighbours[fill[i]] = usize::MAX;
-                    fill[i] += 1;
-                    if !reached[i] {
-                        reached[i] = true;
-                        stack.push(i);
-                    }
-                }
-                _ => {}
-            }
-        }
-        while let Some(i) = stack.pop() {
-            for &j in &neighbours[adjacency_start[i]..adjacency_start[i + 1]] {
-                if j != usize::MAX && !reached[j] {
-                    reached[j] = true;
-                    stack.push(j);
-                }
-            }
-        }
-        reached.iter().map(|r| !r).collect()
+    /// Junctions with no path through flowing links to a fixed head
+    /// ([`crate::network::graph::junctions_reaching_fixed_heads`] over the links whose status connects).
+    fn isolated_junctions(&self, net: &Network, status: &[LinkStatus]) -> Vec<bool> {
+        let flowing = self
+            .links
+            .iter()
+            .zip(status)
+            .filter(|(_, s)| s.connects())
+            .map(|(link, _)| {
+                let slots = link.slots();
+                (slots.from, slots.to)
+            });
+        crate::network::graph::junctions_reaching_fixed_heads(net, flowing)
+            .into_iter()
+            .map(|reached| !reached)
+            .collect()
     }
 
     /// Checks the mass balance of the converged iterate and hands it out as a [`Solution`], with its

@@ -34,6 +34,7 @@ use toml::de::{DeTable, DeValue};
 
 use tables::{Table, Value};
 
+use super::graph::{cut_off_by, reachable};
 use super::lonlat::LonLat;
 use super::model::{
     Condition, DEFAULT_GROUP_MAX_C, DEFAULT_GROUP_MIN_C, FixedHead, Junction, Network, NodeRef,
@@ -2143,98 +2144,6 @@ fn list_ids(network: &Network, junctions: &[usize]) -> String {
         .map(|j| j.id.as_str())
         .collect::<Vec<_>>()
         .join(", ")
-}
-
-/// The junctions `condition` cuts off from every fixed head, of those `base` (the reach of the network as
-/// written, from [`reachable`]) connects.
-pub(crate) fn cut_off_by(network: &Network, condition: &Condition, base: &[bool]) -> Vec<usize> {
-    let reached = reachable(
-        network,
-        &condition.closed_pipes,
-        &condition.pumps_off,
-        &condition.closed_valves,
-    );
-    (0..network.junctions.len())
-        .filter(|&j| {
-            base.get(j).copied().unwrap_or(false) && !reached.get(j).copied().unwrap_or(false)
-        })
-        .collect()
-}
-
-/// Which junctions reach a fixed head through links that are open (pipes not closed, pumps not off,
-/// valves not closed, and none of the extra `closed_pipes` / `pumps_off` / `closed_valves`). Direction
-/// is ignored: a check valve or a control valve still connects.
-pub(crate) fn reachable(
-    network: &Network,
-    closed_pipes: &[usize],
-    pumps_off: &[usize],
-    closed_valves: &[usize],
-) -> Vec<bool> {
-    let junction_count = network.junctions.len();
-    let node_count = junction_count + network.fixed_heads.len();
-    let index = |node: NodeRef| match node {
-        NodeRef::Junction(i) => i,
-        NodeRef::FixedHead(i) => junction_count + i,
-    };
-    let mut adjacency: Vec<Vec<usize>> = vec![Vec::new(); node_count];
-    let mut connect = |a: NodeRef, b: NodeRef| {
-        let (a, b) = (index(a), index(b));
-        if a < node_count && b < node_count {
-            if let Some(list) = adjacency.get_mut(a) {
-                list.push(b);
-            }
-            if let Some(list) = adjacency.get_mut(b) {
-                list.push(a);
-            }
-        }
-    };
-    let mut pipe_open: Vec<bool> = network.pipes.iter().map(|p| !p.closed).collect();
-    for &i in closed_pipes {
-        if let Some(open) = pipe_open.get_mut(i) {
-            *open = false;
-        }
-    }
-    let mut pump_on: Vec<bool> = network.pumps.iter().map(|p| !p.off).collect();
-    for &i in pumps_off {
-        if let Some(on) = pump_on.get_mut(i) {
-            *on = false;
-        }
-    }
-    for (pipe, _) in network
-        .pipes
-        .iter()
-        .zip(&pipe_open)
-        .filter(|(_, open)| **open)
-    {
-        connect(pipe.from, pipe.to);
-    }
-    for (pump, _) in network.pumps.iter().zip(&pump_on).filter(|(_, on)| **on) {
-        connect(pump.from, pump.to);
-    }
-    for (index, valve) in network.valves.iter().enumerate() {
-        if !valve.closed && !closed_valves.contains(&index) {
-            connect(valve.from, valve.to);
-        }
-    }
-    let mut reached = vec![false; node_count];
-    let mut stack: Vec<usize> = (junction_count..node_count).collect();
-    for &node in &stack {
-        if let Some(flag) = reached.get_mut(node) {
-            *flag = true;
-        }
-    }
-    while let Some(node) = stack.pop() {
-        for &next in adjacency.get(node).map(Vec::as_slice).unwrap_or(&[]) {
-            if let Some(flag) = reached.get_mut(next)
-                && !*flag
-            {
-                *flag = true;
-                stack.push(next);
-            }
-        }
-    }
-    reached.truncate(junction_count);
-    reached
 }
 
 /// A character that prints as nothing or reorders what follows it on a terminal (NUL and other

@@ -5,7 +5,7 @@
 
 use std::collections::VecDeque;
 
-use super::model::{Network, NodeRef, Pipe};
+use super::model::{Condition, Network, NodeRef, Pipe};
 
 /// Number of nodes (junctions and fixed heads) in the dense numbering.
 pub fn node_count(net: &Network) -> usize {
@@ -187,4 +187,118 @@ impl SpanningForest {
         from_a.extend(into_b.into_iter().rev());
         from_a
     }
+}
+
+/// Which junctions reach a fixed head over `links` (the two ends of each link that connects; direction
+/// ignored), by a depth-first search from every fixed head at once. The one reachability search of the
+/// crate: the loader's connectivity checks ([`reachable`]) and the solver's isolated junctions use it.
+/// Links naming a node the network does not have are skipped.
+pub fn junctions_reaching_fixed_heads(
+    net: &Network,
+    links: impl Iterator<Item = (NodeRef, NodeRef)> + Clone,
+) -> Vec<bool> {
+    let junction_count = net.junctions.len();
+    let nodes = node_count(net);
+    let ends = links
+        .map(|(a, b)| (node_index(net, a), node_index(net, b)))
+        .filter(move |&(a, b)| a < nodes && b < nodes);
+    let mut offsets = vec![0usize; nodes + 1];
+    for (a, b) in ends.clone() {
+        for end in [a, b] {
+            if let Some(count) = offsets.get_mut(end + 1) {
+                *count += 1;
+            }
+        }
+    }
+    for n in 0..nodes {
+        offsets[n + 1] += offsets[n];
+    }
+    let mut fill = offsets.clone();
+    let mut neighbours = vec![0usize; offsets[nodes]];
+    for (a, b) in ends {
+        for (here, there) in [(a, b), (b, a)] {
+            if let Some(slot) = fill.get_mut(here) {
+                if let Some(entry) = neighbours.get_mut(*slot) {
+                    *entry = there;
+                }
+                *slot += 1;
+            }
+        }
+    }
+    let mut reached = vec![false; nodes];
+    let mut stack: Vec<usize> = (junction_count..nodes).collect();
+    for &node in &stack {
+        reached[node] = true;
+    }
+    while let Some(node) = stack.pop() {
+        for &next in &neighbours[offsets[node]..offsets[node + 1]] {
+            if !reached[next] {
+                reached[next] = true;
+                stack.push(next);
+            }
+        }
+    }
+    reached.truncate(junction_count);
+    reached
+}
+
+/// The junctions `condition` cuts off from every fixed head, of those `base` (the reach of the network as
+/// written, from [`reachable`]) connects.
+pub fn cut_off_by(network: &Network, condition: &Condition, base: &[bool]) -> Vec<usize> {
+    let reached = reachable(
+        network,
+        &condition.closed_pipes,
+        &condition.pumps_off,
+        &condition.closed_valves,
+    );
+    (0..network.junctions.len())
+        .filter(|&j| {
+            base.get(j).copied().unwrap_or(false) && !reached.get(j).copied().unwrap_or(false)
+        })
+        .collect()
+}
+
+/// Which junctions reach a fixed head through links that are open (pipes not closed, pumps not off,
+/// valves not closed, and none of the extra `closed_pipes` / `pumps_off` / `closed_valves`). Direction
+/// is ignored: a check valve or a control valve still connects.
+pub fn reachable(
+    network: &Network,
+    closed_pipes: &[usize],
+    pumps_off: &[usize],
+    closed_valves: &[usize],
+) -> Vec<bool> {
+    // Flags rather than `contains`, so a condition closing many links stays linear.
+    let flags = |count: usize, listed: &[usize]| {
+        let mut flag = vec![false; count];
+        for &i in listed {
+            if let Some(f) = flag.get_mut(i) {
+                *f = true;
+            }
+        }
+        flag
+    };
+    let (pipe_shut, pump_off, valve_shut) = (
+        flags(network.pipes.len(), closed_pipes),
+        flags(network.pumps.len(), pumps_off),
+        flags(network.valves.len(), closed_valves),
+    );
+    let pipes = network
+        .pipes
+        .iter()
+        .zip(&pipe_shut)
+        .filter(|(p, shut)| !p.closed && !**shut)
+        .map(|(p, _)| (p.from, p.to));
+    let pumps = network
+        .pumps
+        .iter()
+        .zip(&pump_off)
+        .filter(|(p, off)| !p.off && !**off)
+        .map(|(p, _)| (p.from, p.to));
+    let valves = network
+        .valves
+        .iter()
+        .zip(&valve_shut)
+        .filter(|(v, shut)| !v.closed && !**shut)
+        .map(|(v, _)| (v.from, v.to));
+    junctions_reaching_fixed_heads(network, pipes.chain(pumps).chain(valves))
 }

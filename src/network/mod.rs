@@ -8,6 +8,7 @@ pub mod import;
 pub mod lonlat;
 pub mod model;
 mod pump_curve;
+mod read;
 pub mod suggest;
 pub mod summary;
 pub mod synthetic;
@@ -15,4 +16,5 @@ pub mod units;
 pub mod write;
 
 pub use model::*;
+pub use read::{NetworkText, read_network};
 pub use units::{UnitLabels, UnitSystem};

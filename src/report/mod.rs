@@ -37,7 +37,7 @@ pub use per_pipe::{PIPES_CSV_HEADER, pipes_csv, results_geojson};
 pub use plot::fit_svg;
 pub use text::text_summary;
 
-use crate::calibrate::{CalibrationOptions, CalibrationResult, CalibrationTest, GroupStatus};
+use crate::calibrate::{CalibrationOptions, CalibrationResult, CalibrationTest, GroupStatus, Job};
 use crate::network::Network;
 use crate::network::edit::{NetworkEditError, apply_c_factors};
 use crate::storage::{WriteError, write_new};
@@ -94,6 +94,29 @@ pub struct RunContext<'a> {
     /// Set when the fit is exported although the sheet or the groups changed after it: the answer the
     /// user gave, written at the top of the report.
     pub out_of_date: Option<&'a str>,
+}
+
+impl<'a> RunContext<'a> {
+    /// The run of `job` that gave `result`, with the display names of its input files.
+    pub fn of_job(
+        job: &'a Job,
+        result: &'a CalibrationResult,
+        network_file: &'a str,
+        sheet_file: &'a str,
+        out_of_date: Option<&'a str>,
+    ) -> Self {
+        Self {
+            network: &job.network,
+            network_file,
+            sheet_file,
+            options: &job.options,
+            tests: &job.tests,
+            excluded: &job.excluded,
+            result,
+            warnings: &job.warnings,
+            out_of_date,
+        }
+    }
 }
 
 /// Why an output could not be built.
@@ -215,6 +238,20 @@ pub fn existing_outputs(folder: &Path) -> Vec<&'static str> {
         .collect()
 }
 
+/// The one check that `folder` holds no output of an earlier run ([`OutputWriteError::Exists`] naming
+/// them if it does): [`write_outputs`] makes it before writing without `force`, and `calibrate --out`
+/// makes it before a long run so that it refuses at once rather than after the fit.
+pub fn check_no_outputs(folder: &Path) -> Result<(), OutputWriteError> {
+    let existing = existing_outputs(folder);
+    if existing.is_empty() {
+        return Ok(());
+    }
+    Err(OutputWriteError::Exists {
+        folder: folder.to_path_buf(),
+        files: existing.iter().map(|s| s.to_string()).collect(),
+    })
+}
+
 /// Writes `outputs` into `folder` (created if missing), each file atomically. Without `force`, nothing
 /// is written when the folder already holds any of [`OUTPUT_FILES`]. Returns the paths written.
 ///
@@ -228,13 +265,7 @@ pub fn write_outputs(
     force: bool,
 ) -> Result<Vec<PathBuf>, OutputWriteError> {
     if !force {
-        let existing = existing_outputs(folder);
-        if !existing.is_empty() {
-            return Err(OutputWriteError::Exists {
-                folder: folder.to_path_buf(),
-                files: existing.iter().map(|s| s.to_string()).collect(),
-            });
-        }
+        check_no_outputs(folder)?;
     }
     std::fs::create_dir_all(folder).map_err(|cause| OutputWriteError::CreateFolder {
         folder: folder.to_path_buf(),

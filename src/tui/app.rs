@@ -8,12 +8,12 @@ use std::collections::{BTreeMap, HashMap};
 use std::path::PathBuf;
 
 use crate::calibrate::{
-    CalibrationError, CalibrationOptions, CalibrationResult, CalibrationTest, IterationReport,
+    CalibrationError, CalibrationOptions, CalibrationResult, IterationReport, Job,
 };
-use crate::fieldtest::{ExcludedTest, FieldSheet, Finding, SheetColumn, StaticHeads};
+use crate::fieldtest::{FieldSheet, SheetColumn, StaticHeads};
+use crate::network::Network;
 use crate::network::edit::{GroupUpdate, apply_group_c, update_groups};
 use crate::network::file::parse_network;
-use crate::network::{DEFAULT_GROUP_MAX_C, DEFAULT_GROUP_MIN_C, Network};
 use crate::report::{CalibrationOutputs, RunContext};
 use crate::storage::FileStamp;
 
@@ -271,7 +271,7 @@ pub const GROUP_UNDO_DEPTH: usize = 100;
 pub struct RunningFit {
     pub iterations: Vec<IterationReport>,
     /// What the run was given.
-    pub job: CalibrationJob,
+    pub job: Job,
     pub cancelling: bool,
 }
 
@@ -280,7 +280,7 @@ pub struct RunningFit {
 pub struct FitOutcome {
     pub result: CalibrationResult,
     /// The network, tests and options of the run: the export describes these, not later edits.
-    pub job: CalibrationJob,
+    pub job: Job,
     /// Pipe C before the fit, in pipe order.
     pub pipe_c_before: Vec<f64>,
     /// Indices into `result.tests`, largest absolute error after the fit first.
@@ -440,20 +440,6 @@ pub enum SaveTarget {
     Network,
 }
 
-/// A calibration to start, with everything the export later needs to describe the run.
-#[derive(Debug, Clone)]
-pub struct CalibrationJob {
-    pub network: Network,
-    /// The network file's text the run started from (the calibrated network is written into it).
-    pub network_text: String,
-    pub tests: Vec<CalibrationTest>,
-    /// The screening warnings of each test (parallel to `tests`).
-    pub warnings: Vec<Vec<Finding>>,
-    /// The sheet's tests left out of the fit, and why.
-    pub excluded: Vec<ExcludedTest>,
-    pub options: CalibrationOptions,
-}
-
 /// An export to write.
 #[derive(Debug, Clone)]
 pub struct ExportJob {
@@ -488,7 +474,7 @@ pub enum Effect {
     },
     ReloadSheet(PathBuf),
     ReloadNetwork(PathBuf),
-    StartCalibration(Box<CalibrationJob>),
+    StartCalibration(Box<Job>),
     CancelCalibration,
     WriteExport(Box<ExportJob>),
 }
@@ -766,21 +752,14 @@ pub fn group_rows(net: &Network) -> Vec<GroupRow> {
         .iter()
         .enumerate()
         .map(|(g, group)| {
-            let pipes: Vec<_> = net.pipes.iter().filter(|p| p.group == Some(g)).collect();
-            let length_m: f64 = pipes.iter().map(|p| p.length_m).sum();
-            let weighted: f64 = pipes.iter().map(|p| p.c_factor * p.length_m).sum();
-            let (min_c, max_c) = if group.min_c < group.max_c {
-                (group.min_c, group.max_c)
-            } else {
-                (DEFAULT_GROUP_MIN_C, DEFAULT_GROUP_MAX_C)
-            };
+            let start = crate::calibrate::group_start(net, g);
             GroupRow {
                 name: group.name.clone(),
-                pipes: pipes.len(),
-                length: units.length_from_m(length_m),
-                start_c: (length_m > 0.0).then(|| weighted / length_m),
-                min_c,
-                max_c,
+                pipes: start.pipes.len(),
+                length: units.length_from_m(start.length_m),
+                start_c: start.start_c,
+                min_c: start.min_c,
+                max_c: start.max_c,
                 locked: group.locked,
             }
         })
@@ -1801,20 +1780,17 @@ fn run_calibration(app: &mut App, effects: &mut Vec<Effect>) {
         app.info("a fit is already running (Esc cancels it)");
         return;
     }
-    let input =
-        sheet_reading::fit_tests(&app.session.sheet, &app.session.network, &app.static_heads);
-    if input.tests.is_empty() {
+    let job = Job::new(
+        app.session.network.clone(),
+        app.session.network_text.clone(),
+        &app.session.sheet,
+        CalibrationOptions::for_units(app.session.network.units),
+        &app.static_heads,
+    );
+    if job.tests.is_empty() {
         app.error("no usable test on the sheet: fix the flagged rows first");
         return;
     }
-    let job = CalibrationJob {
-        network: app.session.network.clone(),
-        network_text: app.session.network_text.clone(),
-        tests: input.tests,
-        warnings: input.warnings,
-        excluded: input.excluded,
-        options: CalibrationOptions::for_units(app.session.network.units),
-    };
     app.fit.failure = None;
     app.view = View::Fit;
     app.info(format!(
@@ -1934,17 +1910,13 @@ fn export(app: &mut App, force: bool, folder: Option<PathBuf>, effects: &mut Vec
     let job = &outcome.job;
     let network_file = app.session.network_path.display().to_string();
     let sheet_file = app.session.sheet_path.display().to_string();
-    let run = RunContext {
-        network: &job.network,
-        network_file: &network_file,
-        sheet_file: &sheet_file,
-        options: &job.options,
-        tests: &job.tests,
-        excluded: &job.excluded,
-        result: &outcome.result,
-        warnings: &job.warnings,
-        out_of_date: (app.fit.stale && app.fit.export_out_of_date).then_some(OUT_OF_DATE_ANSWER),
-    };
+    let run = RunContext::of_job(
+        job,
+        &outcome.result,
+        &network_file,
+        &sheet_file,
+        (app.fit.stale && app.fit.export_out_of_date).then_some(OUT_OF_DATE_ANSWER),
+    );
     if !outcome.result.converged || (app.fit.stale && !app.fit.export_out_of_date) {
         // The prompt was opened before the state changed (a refit finished, an edit came in).
         app.error("the fit changed while the export was asked for: press Ctrl+E again");

@@ -5,7 +5,7 @@ use std::path::{Path, PathBuf};
 
 use super::app::{FileState, Session};
 use crate::fieldtest::{FieldSheet, SheetError, load_sheet};
-use crate::network::file::{NetworkFileError, parse_network};
+use crate::network::file::NetworkFileError;
 use crate::storage::{self, WriteError};
 
 /// Why a session could not be opened.
@@ -34,12 +34,14 @@ pub enum OpenError {
 }
 
 fn read_network(path: &Path) -> Result<(String, crate::network::Network), OpenError> {
-    let text = std::fs::read_to_string(path).map_err(|cause| OpenError::Read {
-        path: path.to_path_buf(),
-        cause,
-    })?;
-    let loaded = parse_network(&text, &path.display().to_string())?;
-    Ok((text, loaded.network))
+    match crate::network::read_network(path) {
+        Ok(read) => Ok((read.text, read.loaded.network)),
+        Err(NetworkFileError::Unreadable { source, .. }) => Err(OpenError::Read {
+            path: path.to_path_buf(),
+            cause: source,
+        }),
+        Err(error) => Err(error.into()),
+    }
 }
 
 /// Opens an existing network and sheet; the sheet's first state is kept as `SHEET.orig` on the first

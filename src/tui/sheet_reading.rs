@@ -1,9 +1,8 @@
 //! The sheet as the workbench shows it: each row's findings and flow, from the field-test screening of
-//! [`crate::fieldtest`] (the one place the workbench calls it).
+//! [`crate::fieldtest`], screened as [`crate::calibrate::Job`] screens the sheet a fit starts from.
 
 use crate::fieldtest::{
-    CalibrationInput, FieldSheet, Finding, Severity, SheetReading, StaticHeads, calibration_input,
-    screen_sheet, with_static_findings,
+    FieldSheet, Finding, Severity, SheetReading, StaticHeads, screen_sheet, with_static_findings,
 };
 use crate::network::Network;
 
@@ -96,12 +95,6 @@ pub fn read_sheet(sheet: &FieldSheet, net: &Network, heads: &StaticHeads) -> Vec
     (0..sheet.row_count())
         .map(|row| row_reading(sheet, &reading, row, row))
         .collect()
-}
-
-/// The tests of `sheet` calibration may use, resolved against `net`, and the ones left out with their
-/// reasons (when a fit starts: resolving every node id costs more than a key press may).
-pub fn fit_tests(sheet: &FieldSheet, net: &Network, heads: &StaticHeads) -> CalibrationInput {
-    calibration_input(net, &screened(sheet, net, heads))
 }
 
 /// A sheet with `sheet`'s header and no rows, for [`preview_row`].

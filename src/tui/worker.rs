@@ -6,9 +6,9 @@ use std::sync::atomic::{AtomicBool, Ordering};
 use std::sync::mpsc::{self, Receiver, TryRecvError};
 use std::thread::JoinHandle;
 
-use crate::calibrate::{CalibrationError, CalibrationResult, IterationReport, calibrate};
+use crate::calibrate::{CalibrationError, CalibrationResult, IterationReport, Job};
 
-use super::app::{Action, CalibrationJob};
+use super::app::Action;
 
 /// What the worker sends.
 #[derive(Debug)]
@@ -36,7 +36,7 @@ pub struct CalibrationWorker {
 
 impl CalibrationWorker {
     /// Starts `job` on a new thread.
-    pub fn spawn(job: CalibrationJob) -> Self {
+    pub fn spawn(job: Job) -> Self {
         let (sender, receiver) = mpsc::channel();
         let cancel = Arc::new(AtomicBool::new(false));
         let flag = Arc::clone(&cancel);
@@ -45,7 +45,7 @@ impl CalibrationWorker {
             let mut progress = |report: &IterationReport| {
                 let _ = progress_sender.send(WorkerMessage::Progress(report.clone()));
             };
-            let result = calibrate(&job.network, &job.tests, &job.options, &mut progress, &flag);
+            let result = job.run(&mut progress, &flag);
             let _ = sender.send(WorkerMessage::Finished(Box::new(result)));
         });
         Self {

@@ -22,7 +22,7 @@ pub use config::{ConfigError, Coordinates, ImportConfig};
 pub use read::{SourceFormat, format_number};
 
 use self::read::{Attr, Shape, Table};
-use super::file::{cut_off_by, reachable};
+use super::graph::{cut_off_by, reachable};
 use super::lonlat::{LocalProjection, LonLat, line_length_m};
 use super::model::{
     Condition, DEFAULT_GROUP_MAX_C, DEFAULT_GROUP_MIN_C, FixedHead, Junction, Network, NodeRef,
