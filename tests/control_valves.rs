@@ -59,6 +59,7 @@ fn network(
         conditions: vec![],
         valves: vec![],
         hazen_williams_constant: None,
+        flow_unit: None,
         lonlat_origin: None,
     }
 }

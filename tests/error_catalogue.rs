@@ -123,6 +123,10 @@ fn network_variants() -> Vec<(&'static str, String)> {
             ),
         ),
         ("units", r("units = \"us\"", "units = \"metric\"")),
+        (
+            "flow unit",
+            r("units = \"us\"", "units = \"us\"\nflow_unit = \"m3/h\""),
+        ),
         ("duplicate", r("id = \"J-4\"", "id = \"J-3\"")),
         ("dangling", r("to = \"J-2\"", "to = \"J-9\"")),
         ("self", r("to = \"J-2\"", "to = \"J-1\"")),

@@ -517,6 +517,7 @@ mod tests {
             pipes,
             pumps: Vec::new(),
             groups: Vec::new(),
+            flow_unit: None,
             valves: Vec::new(),
             hazen_williams_constant: None,
             conditions: Vec::new(),

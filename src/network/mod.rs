@@ -15,4 +15,4 @@ pub mod units;
 pub mod write;
 
 pub use model::*;
-pub use units::{UnitLabels, UnitSystem};
+pub use units::{FlowUnit, UnitLabels, UnitSystem};

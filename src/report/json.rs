@@ -91,7 +91,7 @@ pub fn json_summary(run: &RunContext<'_>) -> Value {
         "before": statistics(&result.before),
         "after": statistics(&result.after),
         "tests": tests,
-        "units": run.network.units.labels(),
+        "units": run.network.unit_labels(),
         "fire_flow_target": run.options.target_residual_m * run.network.units.pressure_per_head_m(),
         "fit": result.fit.label(),
         "converged": result.converged,
