@@ -843,6 +843,9 @@ fn the_valve_base_is_valid_and_solves_under_every_condition() {
     let net = &loaded.network;
     assert_eq!(net.valves.len(), 4);
     assert_eq!(net.hazen_williams_constant, Some(10.5088));
+    // 18 m3/h written, 5 L/s read (3600 s an hour, 1000 L a cubic metre).
+    assert_eq!(net.flows(), roughcal::network::FlowUnit::M3h);
+    assert!((net.junctions[0].demand_m3s - 0.005).abs() < 1e-12);
     let solver = GradientSolver::new(net).unwrap();
     for name in [None, Some("night")] {
         let state = OperatingState::for_condition_name(net, name).unwrap();
@@ -896,9 +899,9 @@ fn bad_values_of_the_valve_keys_are_refused_at_their_line() {
             "PRV-1 / setting",
         ),
         (
-            "setting = 2.0",
+            "setting = 7.2",
             "setting = nan",
-            "setting = 2.0",
+            "setting = 7.2",
             "FCV-1 / setting",
         ),
         (
@@ -932,6 +935,18 @@ fn bad_values_of_the_valve_keys_are_refused_at_their_line() {
             "hazen_williams_constant",
         ),
         (
+            "flow_unit = \"m3h\"",
+            "flow_unit = \"cumecs\"",
+            "flow_unit = \"m3h\"",
+            "flow_unit",
+        ),
+        (
+            "flow_unit = \"m3h\"",
+            "flow_unit = [\"m3h\"]",
+            "flow_unit = \"m3h\"",
+            "flow_unit",
+        ),
+        (
             "\"PRV-1\" = 250.0",
             "\"PRV-9\" = 250.0",
             "valve_settings = ",
@@ -944,13 +959,13 @@ fn bad_values_of_the_valve_keys_are_refused_at_their_line() {
             "night / valve_settings",
         ),
         (
-            "\"FCV-1\" = 1.5",
-            "\"FCV-1\" = -1.5",
+            "\"FCV-1\" = 5.4",
+            "\"FCV-1\" = -5.4",
             "valve_settings = ",
             "night / valve_settings",
         ),
         (
-            "\"FCV-1\" = 1.5",
+            "\"FCV-1\" = 5.4",
             "\"FCV-1\" = \"x\"",
             "valve_settings = ",
             "night / valve_settings",

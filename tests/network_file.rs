@@ -1193,3 +1193,32 @@ fn check_fails_clearly_on_an_unreadable_file() {
     assert!(stderr.contains("nowhere.toml"), "{stderr}");
     assert_eq!(stderr.lines().count(), 1, "{stderr}");
 }
+
+#[test]
+fn solve_and_check_speak_the_file_flow_unit() {
+    let dir = tempfile::tempdir().unwrap();
+    let path = dir.path().join("m3h.toml");
+    let text = move_demand_to_junction(
+        &with("demand = 36.0\n").replace("units = \"us\"", "units = \"us\"\nflow_unit = \"m3h\""),
+    );
+    std::fs::write(&path, text).unwrap();
+    let run = |args: &[&str]| {
+        let output = Command::new(env!("CARGO_BIN_EXE_roughcal"))
+            .args(args)
+            .arg(&path)
+            .output()
+            .unwrap();
+        assert!(output.status.success(), "{output:?}");
+        String::from_utf8_lossy(&output.stdout).into_owned()
+    };
+    let report: serde_json::Value = serde_json::from_str(&run(&["solve", "--json"])).unwrap();
+    assert_eq!(report["units"]["flow"], "m3/h");
+    assert_eq!(report["units"]["length"], "ft");
+    // The one pipe carries the one demand: 36 m3/h, in the unit the file wrote it in (continuity).
+    let flow = report["pipes"][0]["flow"].as_f64().unwrap();
+    assert!((flow - 36.0).abs() < 1e-6, "{flow}");
+    let text = run(&["solve"]);
+    assert!(text.contains("m3/h"), "{text}");
+    let summary = run(&["check"]);
+    assert!(summary.contains("total base demand 36.00 m3/h"), "{summary}");
+}
