@@ -393,6 +393,24 @@ mod tests {
     }
 
     #[test]
+    fn a_network_in_mgd_is_reported_in_mgd() {
+        let (mut net, solution, converged) = solved(UnitSystem::Us, 200);
+        net.flow_unit = Some(roughcal::network::FlowUnit::Mgd);
+        let report = render_json(&net, &solution, converged);
+        assert_eq!(report["units"]["flow"], json!("MGD"));
+        assert_eq!(report["units"]["length"], json!("ft"));
+        // 1 MGD = 1e6 US gal / 86 400 s = 0.0438126 m^3/s (NIST SP 811 Appendix B).
+        let flow_mgd = report["pipes"][0]["flow"].as_f64().unwrap_or(f64::NAN);
+        let expected = solution.pipe_flow_m3s[0] / 0.043_812_636_4;
+        assert!(
+            (flow_mgd - expected).abs() < 1e-9 * expected.abs().max(1.0),
+            "{flow_mgd}"
+        );
+        let text = render_text(&net, &solution, converged, LoopOptions::default());
+        assert!(text.contains("corrections (MGD)"), "{text}");
+    }
+
+    #[test]
     fn text_shows_loops_iterations_and_results() {
         let (net, solution, converged) = solved(UnitSystem::Si, 200);
         let text = render_text(&net, &solution, converged, LoopOptions::default());
