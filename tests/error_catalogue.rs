@@ -464,7 +464,9 @@ fn apply_outcomes(s: &Scratch, net: &str) -> Vec<Outcome> {
     );
     assert!(!warned.refused, "{}", warned.text);
     assert!(
-        warned.text.contains("the same losses would need every C multiplied by"),
+        warned
+            .text
+            .contains("the same losses would need every C multiplied by"),
         "{}",
         warned.text
     );

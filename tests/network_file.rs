@@ -1220,5 +1220,8 @@ fn solve_and_check_speak_the_file_flow_unit() {
     let text = run(&["solve"]);
     assert!(text.contains("m3/h"), "{text}");
     let summary = run(&["check"]);
-    assert!(summary.contains("total base demand 36.00 m3/h"), "{summary}");
+    assert!(
+        summary.contains("total base demand 36.00 m3/h"),
+        "{summary}"
+    );
 }
