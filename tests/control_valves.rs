@@ -501,3 +501,36 @@ fn tests_reports_each_valve_static_and_flowing_against_the_hand_calculation() {
         "{text}"
     );
 }
+
+#[test]
+fn the_calibration_records_each_tests_valves_under_the_fitted_c() {
+    // The same invented zone as above: whatever C the fit settles on, continuity fixes the valve's
+    // flow at the dead-end zone's draw (300 gpm static, 300 + 800 flowing) and the PRV regulates.
+    let file = concat!(env!("CARGO_MANIFEST_DIR"), "/tests/data/two-zones.toml");
+    let sheet = concat!(
+        env!("CARGO_MANIFEST_DIR"),
+        "/tests/data/two-zones-sheet.csv"
+    );
+    let out = std::process::Command::new(env!("CARGO_BIN_EXE_roughcal"))
+        .args(["calibrate", file, sheet, "--json"])
+        .output()
+        .expect("runs");
+    let json: serde_json::Value = serde_json::from_slice(&out.stdout).expect("json");
+    let tests = json["tests"].as_array().unwrap();
+    assert_eq!(tests.len(), 2, "{json}");
+    for record in tests {
+        for (state, zone_flow) in [
+            ("valves_static_after", 300.0),
+            ("valves_residual_after", 1100.0),
+        ] {
+            let valve = &record[state][0];
+            assert_eq!(valve["id"], "PRV-1", "{record}");
+            assert_eq!(valve["state"], "active", "{record}");
+            assert!(
+                (valve["flow"].as_f64().unwrap() - zone_flow).abs() < 1e-6,
+                "{valve}"
+            );
+            assert!(valve["head_loss"].as_f64().unwrap() > 0.0, "{valve}");
+        }
+    }
+}

@@ -13,6 +13,7 @@ use roughcal::hydraulics::ValveState;
 use roughcal::network::file::load_network_file;
 use roughcal::network::{Network, UnitSystem};
 use roughcal::report::table::{Align, TextTable};
+use roughcal::report::valve_states_json;
 use serde_json::json;
 
 use super::fireflow::finding_json;
@@ -96,20 +97,14 @@ pub fn run(
     Ok(ExitCode::SUCCESS)
 }
 
-/// The valves of one modelled state as `{id, state, flow, head_loss}` (flow in the sheet's flow unit,
-/// head loss in its length unit; null where an end is isolated), the shape `solve --json` uses.
+/// The valves of one modelled state, flow in the sheet's flow unit and head loss in its length unit.
 fn valves_json(net: &Network, units: UnitSystem, states: &[ValveState]) -> serde_json::Value {
-    states
-        .iter()
-        .map(|v| {
-            json!({
-                "id": net.valves[v.valve].id,
-                "state": v.status.label(),
-                "flow": units.flow_from_m3s(v.flow_m3s),
-                "head_loss": v.head_loss_m.map(|h| units.length_from_m(h)),
-            })
-        })
-        .collect()
+    valve_states_json(
+        net,
+        states,
+        |q| units.flow_from_m3s(q),
+        |h| units.length_from_m(h),
+    )
 }
 
 /// Every valve in every modelled test, static and flowing: a valve that opens, closes or starts to
