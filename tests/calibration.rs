@@ -138,6 +138,7 @@ fn grid_network(c_by_group: [f64; 3]) -> Network {
         groups,
         valves: Vec::new(),
         hazen_williams_constant: None,
+        flow_unit: None,
         conditions: vec![],
         lonlat_origin: None,
     }
@@ -340,6 +341,7 @@ fn single_path_matches_the_head_loss_ratio_method() {
         groups: vec![group("main", 40.0, 150.0)],
         valves: Vec::new(),
         hazen_williams_constant: None,
+        flow_unit: None,
         conditions: vec![],
         lonlat_origin: None,
     };

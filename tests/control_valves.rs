@@ -59,6 +59,7 @@ fn network(
         conditions: vec![],
         valves: vec![],
         hazen_williams_constant: None,
+        flow_unit: None,
         lonlat_origin: None,
     }
 }
@@ -423,4 +424,113 @@ fn a_network_file_with_a_prv_solves_and_reports_the_valve() {
     }
     let check = run(&["check", file, "--json"]);
     assert_eq!(check["summary"]["valves"], 1);
+}
+
+#[test]
+fn tests_reports_each_valve_static_and_flowing_against_the_hand_calculation() {
+    // tests/data/two-zones.toml and two-zones-sheet.csv: invented. PRV-1 feeds the dead-end zone
+    // J-2 -> J-3 (demand 300 gpm at J-3); both tests flow 800 gpm at J-2 and read the gauge at J-3.
+    let file = concat!(env!("CARGO_MANIFEST_DIR"), "/tests/data/two-zones.toml");
+    let sheet = concat!(
+        env!("CARGO_MANIFEST_DIR"),
+        "/tests/data/two-zones-sheet.csv"
+    );
+    let roughcal = |args: &[&str]| {
+        let out = std::process::Command::new(env!("CARGO_BIN_EXE_roughcal"))
+            .args(args)
+            .output()
+            .expect("runs");
+        assert!(
+            out.status.success(),
+            "{}",
+            String::from_utf8_lossy(&out.stderr)
+        );
+        String::from_utf8(out.stdout).unwrap()
+    };
+    let json: serde_json::Value =
+        serde_json::from_str(&roughcal(&["tests", file, sheet, "--json"])).unwrap();
+    // Hazen-Williams in US units, hf_ft = 10.44 L Q^1.852 / (C^1.852 d^4.87) with Q in gpm, d in
+    // inches (the US form of the law, common practice, no source); 0.4335 psi per ft of water
+    // (common practice, no source); minor loss K v^2 / 2g with g = 32.174 ft/s^2 (standard gravity,
+    // CGPM 1901, in feet).
+    let hw = |length_ft: f64, q_gpm: f64, c: f64, d_in: f64| {
+        10.44 * length_ft * q_gpm.powf(1.852) / (c.powf(1.852) * d_in.powf(4.87))
+    };
+    let minor = |k: f64, q_gpm: f64, d_in: f64| {
+        let q_cfs = q_gpm * 3.785_411_784e-3 / 60.0 / 0.3048f64.powi(3);
+        let area_ft2 = std::f64::consts::PI * (d_in / 12.0).powi(2) / 4.0;
+        k * (q_cfs / area_ft2).powi(2) / (2.0 * 9.80665 / 0.3048)
+    };
+    for (test, setting_psi) in [(0, 60.0), (1, 45.0)] {
+        let record = &json["tests"][test];
+        let head_j2 = 520.0 + setting_psi / 0.4335;
+        for (state, zone_flow) in [("valves_static", 300.0), ("valves_residual", 1100.0)] {
+            let valve = &record[state][0];
+            assert_eq!(valve["id"], "PRV-1", "{record}");
+            assert_eq!(valve["state"], "active", "{record}");
+            // Continuity: the valve carries exactly the dead-end zone's draw.
+            assert!(
+                (valve["flow"].as_f64().unwrap() - zone_flow).abs() < 1e-6,
+                "{valve}"
+            );
+            // Head loss across the valve: the main's grade at J-1 less the setting's grade at J-2.
+            let supply = zone_flow + 100.0;
+            let head_j1 = 900.0 - hw(2000.0, supply, 110.0, 12.0) - minor(2.5, supply, 12.0);
+            let loss = valve["head_loss"].as_f64().unwrap();
+            assert!(
+                (loss - (head_j1 - head_j2)).abs() < 1e-3,
+                "{loss} {head_j1} {head_j2}"
+            );
+        }
+        // The gauge below the valve: the setting's grade less the loss of M-2 at 300 gpm.
+        let static_psi = (head_j2 - 500.0 - hw(1500.0, 300.0, 100.0, 8.0)) * 0.4335;
+        let modelled = record["modelled_static"].as_f64().unwrap();
+        assert!(
+            (modelled - static_psi).abs() < 1e-6,
+            "{modelled} {static_psi}"
+        );
+    }
+    let text = roughcal(&["tests", file, sheet]);
+    assert!(
+        text.contains("Control valves in each modelled test"),
+        "{text}"
+    );
+    assert!(
+        text.lines()
+            .any(|l| l.starts_with("HT-2") && l.contains("PRV-1") && l.contains("1100.00")),
+        "{text}"
+    );
+}
+
+#[test]
+fn the_calibration_records_each_tests_valves_under_the_fitted_c() {
+    // The same invented zone as above: whatever C the fit settles on, continuity fixes the valve's
+    // flow at the dead-end zone's draw (300 gpm static, 300 + 800 flowing) and the PRV regulates.
+    let file = concat!(env!("CARGO_MANIFEST_DIR"), "/tests/data/two-zones.toml");
+    let sheet = concat!(
+        env!("CARGO_MANIFEST_DIR"),
+        "/tests/data/two-zones-sheet.csv"
+    );
+    let out = std::process::Command::new(env!("CARGO_BIN_EXE_roughcal"))
+        .args(["calibrate", file, sheet, "--json"])
+        .output()
+        .expect("runs");
+    let json: serde_json::Value = serde_json::from_slice(&out.stdout).expect("json");
+    let tests = json["tests"].as_array().unwrap();
+    assert_eq!(tests.len(), 2, "{json}");
+    for record in tests {
+        for (state, zone_flow) in [
+            ("valves_static_after", 300.0),
+            ("valves_residual_after", 1100.0),
+        ] {
+            let valve = &record[state][0];
+            assert_eq!(valve["id"], "PRV-1", "{record}");
+            assert_eq!(valve["state"], "active", "{record}");
+            assert!(
+                (valve["flow"].as_f64().unwrap() - zone_flow).abs() < 1e-6,
+                "{valve}"
+            );
+            assert!(valve["head_loss"].as_f64().unwrap() > 0.0, "{valve}");
+        }
+    }
 }

@@ -123,6 +123,10 @@ fn network_variants() -> Vec<(&'static str, String)> {
             ),
         ),
         ("units", r("units = \"us\"", "units = \"metric\"")),
+        (
+            "flow unit",
+            r("units = \"us\"", "units = \"us\"\nflow_unit = \"m3/h\""),
+        ),
         ("duplicate", r("id = \"J-4\"", "id = \"J-3\"")),
         ("dangling", r("to = \"J-2\"", "to = \"J-9\"")),
         ("self", r("to = \"J-2\"", "to = \"J-1\"")),
@@ -389,6 +393,12 @@ fn apply_outcomes(s: &Scratch, net: &str) -> Vec<Outcome> {
             "constant.toml",
             format!("hazen_williams_constant = 10.5\n{valid}"),
         ),
+        (
+            "set csv constant differs",
+            "constants.csv",
+            "group,fitted,units,hazen_williams_constant\nci-1950,90,si,10.67\nci-1950,91,si,10.5\n"
+                .into(),
+        ),
         ("set empty", "empty.csv", String::new()),
         (
             "set unknown group",
@@ -436,6 +446,30 @@ fn apply_outcomes(s: &Scratch, net: &str) -> Vec<Outcome> {
         ],
     );
     assert!(!warned.refused, "{}", warned.text);
+    out.push(warned);
+    // A CSV set carries its constant on every row; `apply` warns for it as for a TOML set.
+    let other_csv = s.file(
+        "other-constant.csv",
+        b"group,fitted,units,hazen_williams_constant\nci-1950,90,si,10.5088\n",
+    );
+    let warned = s.run(
+        "apply another constant from a csv set",
+        &[
+            "apply",
+            net,
+            other_csv.to_str().unwrap(),
+            "--out",
+            "other-applied-csv.toml",
+        ],
+    );
+    assert!(!warned.refused, "{}", warned.text);
+    assert!(
+        warned
+            .text
+            .contains("the same losses would need every C multiplied by"),
+        "{}",
+        warned.text
+    );
     out.push(warned);
     out.push(s.run(
         "apply into a missing folder",

@@ -40,6 +40,7 @@ fn network() -> Network {
         groups: vec![],
         valves: Vec::new(),
         hazen_williams_constant: None,
+        flow_unit: None,
         conditions: vec![Condition {
             name: "peak".into(),
             demand_factor: 1.5,

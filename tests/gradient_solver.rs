@@ -16,6 +16,7 @@ fn network(junctions: Vec<Junction>, fixed: Vec<FixedHead>, pipes: Vec<Pipe>) ->
         groups: vec![],
         valves: Vec::new(),
         hazen_williams_constant: None,
+        flow_unit: None,
         conditions: vec![],
         lonlat_origin: None,
     }

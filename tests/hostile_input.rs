@@ -832,3 +832,192 @@ fn short_row_under_a_blank_header_cell_names_the_field() {
     let text = "test,date,time,residual_node,flow_node,static_psi,residual_psi,flow_gpm,condition,a,\r\nT1,,,J1,J2,60,40,500,,a\n";
     assert_sheet_outcome(text);
 }
+
+/// A valid network of our own with one valve of every kind, minor losses on pipes and a valve, its
+/// own Hazen-Williams constant and a condition that closes a valve and changes two settings.
+const VALVES: &str = include_str!("data/all-valves.toml");
+
+#[test]
+fn the_valve_base_is_valid_and_solves_under_every_condition() {
+    let loaded = parse_network(VALVES, "net.toml").unwrap();
+    let net = &loaded.network;
+    assert_eq!(net.valves.len(), 4);
+    assert_eq!(net.hazen_williams_constant, Some(10.5088));
+    // 18 m3/h written, 5 L/s read (3600 s an hour, 1000 L a cubic metre).
+    assert_eq!(net.flows(), roughcal::network::FlowUnit::M3h);
+    assert!((net.junctions[0].demand_m3s - 0.005).abs() < 1e-12);
+    let solver = GradientSolver::new(net).unwrap();
+    for name in [None, Some("night")] {
+        let state = OperatingState::for_condition_name(net, name).unwrap();
+        let solution = solver.solve(net, &state, &net.c_factors(), None).unwrap();
+        assert!(solution.max_imbalance_m3s.abs() < 1e-6, "{name:?}");
+    }
+}
+
+#[test]
+fn every_prefix_of_a_valve_network() {
+    for end in (0..=VALVES.len()).filter(|&i| VALVES.is_char_boundary(i)) {
+        assert_network_outcome(&VALVES[..end]);
+    }
+}
+
+#[test]
+fn every_hostile_value_in_every_valve_network_key() {
+    for (start, end) in value_spans(VALVES) {
+        for value in HOSTILE_VALUES {
+            let text = format!("{}{value}{}", &VALVES[..start], &VALVES[end..]);
+            assert_network_outcome(&text);
+        }
+    }
+}
+
+#[test]
+fn odd_ids_in_valves_and_valve_settings() {
+    for id in ODD_IDS {
+        for target in ["\"PRV-1\"", "\"FCV-1\"", "\"TCV-1\"", "\"J-5\""] {
+            assert_network_outcome(&VALVES.replace(target, &format!("\"{id}\"")));
+            assert_network_outcome(&VALVES.replacen(target, &format!("\"{id}\""), 1));
+        }
+    }
+}
+
+/// The new keys' rejections each name the file, the line and column of the value, and the field.
+#[test]
+fn bad_values_of_the_valve_keys_are_refused_at_their_line() {
+    // (text replaced, replacement, the key's line as it reads in the base, expected in the message)
+    let cases = [
+        (
+            "kind = \"prv\"",
+            "kind = \"gate\"",
+            "kind = \"prv\"",
+            "PRV-1 / kind",
+        ),
+        (
+            "setting = 300.0",
+            "setting = -5",
+            "setting = 300.0",
+            "PRV-1 / setting",
+        ),
+        (
+            "setting = 7.2",
+            "setting = nan",
+            "setting = 7.2",
+            "FCV-1 / setting",
+        ),
+        (
+            "setting = 12.0",
+            "setting = inf",
+            "setting = 12.0",
+            "TCV-1 / setting",
+        ),
+        (
+            "minor_loss = 1.5",
+            "minor_loss = -1",
+            "minor_loss = 1.5",
+            "P-1 / minor_loss",
+        ),
+        (
+            "minor_loss = 0.5",
+            "minor_loss = \"a\"",
+            "minor_loss = 0.5",
+            "TCV-1 / minor_loss",
+        ),
+        (
+            "hazen_williams_constant = 10.5088",
+            "hazen_williams_constant = 0",
+            "hazen_williams_constant = 10.5088",
+            "hazen_williams_constant",
+        ),
+        (
+            "hazen_williams_constant = 10.5088",
+            "hazen_williams_constant = -inf",
+            "hazen_williams_constant = 10.5088",
+            "hazen_williams_constant",
+        ),
+        (
+            "flow_unit = \"m3h\"",
+            "flow_unit = \"cumecs\"",
+            "flow_unit = \"m3h\"",
+            "flow_unit",
+        ),
+        (
+            "flow_unit = \"m3h\"",
+            "flow_unit = [\"m3h\"]",
+            "flow_unit = \"m3h\"",
+            "flow_unit",
+        ),
+        (
+            "\"PRV-1\" = 250.0",
+            "\"PRV-9\" = 250.0",
+            "valve_settings = ",
+            "night / valve_settings",
+        ),
+        (
+            "\"PRV-1\" = 250.0",
+            "\"P-2\" = 250.0",
+            "valve_settings = ",
+            "night / valve_settings",
+        ),
+        (
+            "\"FCV-1\" = 5.4",
+            "\"FCV-1\" = -5.4",
+            "valve_settings = ",
+            "night / valve_settings",
+        ),
+        (
+            "\"FCV-1\" = 5.4",
+            "\"FCV-1\" = \"x\"",
+            "valve_settings = ",
+            "night / valve_settings",
+        ),
+        (
+            "closed = [\"TCV-1\"]",
+            "closed = [\"TCV-9\"]",
+            "closed = [",
+            "night / closed",
+        ),
+    ];
+    for (replaced, replacement, line_starts, field) in cases {
+        assert!(VALVES.contains(replaced), "{replaced}");
+        let text = VALVES.replacen(replaced, replacement, 1);
+        let shown = match parse_network(&text, "net.toml") {
+            Err(error) => error.to_string(),
+            Ok(_) => panic!("{replacement}: accepted"),
+        };
+        let line = VALVES
+            .lines()
+            .position(|l| l.starts_with(line_starts))
+            .unwrap()
+            + 1;
+        assert!(
+            shown.starts_with(&format!("net.toml:{line}:")),
+            "{replacement}: {shown}"
+        );
+        assert!(
+            shown.contains(&format!("({field})")),
+            "{replacement}: {shown}"
+        );
+    }
+}
+
+#[test]
+fn a_valve_without_its_required_keys_names_each_one() {
+    for key in [
+        "from = \"J-1\"\nto = \"J-2\"",
+        "diameter = 200.0",
+        "kind = \"prv\"",
+        "setting = 300.0",
+    ] {
+        // The key as it stands in the block of PRV-1.
+        let block = VALVES.find("id = \"PRV-1\"").unwrap();
+        let at = block + VALVES[block..].find(key).unwrap();
+        let text = format!("{}{}", &VALVES[..at], &VALVES[at + key.len() + 1..]);
+        let shown = match parse_network(&text, "net.toml") {
+            Err(error) => error.to_string(),
+            Ok(_) => panic!("without {key}: accepted"),
+        };
+        let first = key.split(' ').next().unwrap();
+        assert!(shown.contains(first), "without {key}: {shown}");
+        assert!(shown.contains("PRV-1"), "without {key}: {shown}");
+    }
+}

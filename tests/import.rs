@@ -7,7 +7,7 @@ use std::sync::atomic::AtomicBool;
 
 use roughcal::calibrate::{CalibrationOptions, calibrate};
 use roughcal::fieldtest::{FieldSheet, calibration_tests, screen_sheet};
-use roughcal::hydraulics::{GradientSolver, OperatingState};
+use roughcal::hydraulics::{GradientSolver, HazenWilliams, OperatingState};
 use roughcal::network::file::parse_network;
 use roughcal::network::import::export::{ExportPlan, GisExport, gis_export};
 use roughcal::network::import::{
@@ -602,7 +602,14 @@ fn import_then_calibrate_gives_a_pipes_csv_equal_to_calibrated_toml_per_pipe() {
     let mut reader = csv::Reader::from_reader(csv_text.as_bytes());
     assert_eq!(
         reader.headers().unwrap(),
-        vec!["pipe", "group", "c_before", "c_after"]
+        vec![
+            "pipe",
+            "group",
+            "c_before",
+            "c_after",
+            "units",
+            "hazen_williams_constant"
+        ]
     );
     let rows: Vec<csv::StringRecord> = reader.records().map(|r| r.unwrap()).collect();
     assert_eq!(rows.len(), net.pipes.len());
@@ -612,6 +619,12 @@ fn import_then_calibrate_gives_a_pipes_csv_equal_to_calibrated_toml_per_pipe() {
         assert_eq!(&row[1], calibrated.groups[pipe.group.unwrap()].name);
         assert_eq!(row[2].parse::<f64>().unwrap(), before.c_factor);
         assert_eq!(row[3].parse::<f64>().unwrap(), pipe.c_factor, "{}", pipe.id);
+        // The C values belong to the network's constant (the default of its unit system here).
+        assert_eq!(&row[4], net.units.key());
+        assert_eq!(
+            row[5].parse::<f64>().unwrap(),
+            HazenWilliams::default_constant(net.units)
+        );
         if pipe.c_factor != before.c_factor {
             moved += 1;
         }

@@ -95,6 +95,50 @@ fn empty_file_lacks_units_and_a_fixed_head() {
 }
 
 #[test]
+fn flow_unit_reads_every_flow_of_the_file_in_that_unit() {
+    // 36 m3/h = 0.01 m^3/s (3600 s in an hour, 1 m^3 = 1000 L: definitions of the units).
+    let text =
+        with("demand = 36.0\n").replace("units = \"us\"", "units = \"si\"\nflow_unit = \"m3h\"");
+    let text = move_demand_to_junction(&text);
+    let net = load(&text).network;
+    assert_eq!(net.flows().label(), "m3/h");
+    assert!((net.junctions[0].demand_m3s - 0.01).abs() < 1e-15);
+    // 1 MGD = 1e6 US gal / 86 400 s = 0.043812636 m^3/s (NIST SP 811 Appendix B: 1 gal = 3.785412 L).
+    let text = move_demand_to_junction(
+        &with("demand = 1.0\n").replace("units = \"us\"", "units = \"us\"\nflow_unit = \"mgd\""),
+    );
+    let net = load(&text).network;
+    assert!((net.junctions[0].demand_m3s - 0.043_812_636).abs() < 1e-9);
+    // Lengths and heads stay in the unit system's units: 400 ft.
+    assert!((net.junctions[0].elevation_m - 121.92).abs() < 1e-9);
+}
+
+/// Moves a `demand` line appended after the pipe up into the junction.
+fn move_demand_to_junction(text: &str) -> String {
+    let (body, demand) = text.trim_end().rsplit_once('\n').unwrap();
+    body.replacen(
+        "elevation = 400.0\n",
+        &format!("elevation = 400.0\n{demand}\n"),
+        1,
+    ) + "\n"
+}
+
+#[test]
+fn wrong_flow_unit() {
+    assert_exactly(
+        &HEAD.replace("units = \"us\"", "units = \"us\"\nflow_unit = \"m3/h\""),
+        &[
+            "t.toml:2:13: `flow_unit` must be one of \"gpm\", \"lps\", \"m3h\", \"mgd\", found \"m3/h\"; \
+           did you mean `m3h`? (flow_unit)",
+        ],
+    );
+    assert_exactly(
+        &HEAD.replace("units = \"us\"", "units = \"us\"\nflow_unit = 3"),
+        &["t.toml:2:13: `flow_unit` must be a string, found integer `3` (flow_unit)"],
+    );
+}
+
+#[test]
 fn wrong_units() {
     assert_exactly(
         &HEAD.replace("units = \"us\"", "units = \"SI\""),
@@ -1148,4 +1192,36 @@ fn check_fails_clearly_on_an_unreadable_file() {
     assert!(stderr.contains("cannot read network file"), "{stderr}");
     assert!(stderr.contains("nowhere.toml"), "{stderr}");
     assert_eq!(stderr.lines().count(), 1, "{stderr}");
+}
+
+#[test]
+fn solve_and_check_speak_the_file_flow_unit() {
+    let dir = tempfile::tempdir().unwrap();
+    let path = dir.path().join("m3h.toml");
+    let text = move_demand_to_junction(
+        &with("demand = 36.0\n").replace("units = \"us\"", "units = \"us\"\nflow_unit = \"m3h\""),
+    );
+    std::fs::write(&path, text).unwrap();
+    let run = |args: &[&str]| {
+        let output = Command::new(env!("CARGO_BIN_EXE_roughcal"))
+            .args(args)
+            .arg(&path)
+            .output()
+            .unwrap();
+        assert!(output.status.success(), "{output:?}");
+        String::from_utf8_lossy(&output.stdout).into_owned()
+    };
+    let report: serde_json::Value = serde_json::from_str(&run(&["solve", "--json"])).unwrap();
+    assert_eq!(report["units"]["flow"], "m3/h");
+    assert_eq!(report["units"]["length"], "ft");
+    // The one pipe carries the one demand: 36 m3/h, in the unit the file wrote it in (continuity).
+    let flow = report["pipes"][0]["flow"].as_f64().unwrap();
+    assert!((flow - 36.0).abs() < 1e-6, "{flow}");
+    let text = run(&["solve"]);
+    assert!(text.contains("m3/h"), "{text}");
+    let summary = run(&["check"]);
+    assert!(
+        summary.contains("total base demand 36.00 m3/h"),
+        "{summary}"
+    );
 }

@@ -223,7 +223,7 @@ fn coefficients_csv_parses_back_and_matches_the_result() {
     let header: Vec<String> = reader.headers().unwrap().iter().map(String::from).collect();
     assert_eq!(
         header.join(","),
-        "group,start,fitted,std_error,ci_low,ci_high,tests,status"
+        "group,start,fitted,std_error,ci_low,ci_high,tests,status,units,hazen_williams_constant"
     );
     let rows: Vec<csv::StringRecord> = reader.records().map(Result::unwrap).collect();
     assert_eq!(rows.len(), fx.result.groups.len());
@@ -244,12 +244,17 @@ fn coefficients_csv_parses_back_and_matches_the_result() {
         }
         assert_eq!(row[6].parse::<usize>().unwrap(), group.tests_informing);
         assert_eq!(&row[7], group.status.label());
+        // Every row says which Hazen-Williams constant its C belongs to: the network's, here the
+        // default of its unit system (10.44 us / 10.67 si).
+        assert_eq!(&row[8], fx.result.hazen_williams.units.key());
+        assert_eq!(row[9].parse::<f64>().unwrap(), fx.result.hazen_williams.k);
     }
     // The blank cells are there: the spur is not informed and the source group locked.
     let spur = rows.iter().find(|r| &r[0] == "spur").unwrap();
     assert_eq!((&spur[3], &spur[7]), ("", "not informed"));
     // Our own loader reads it as well.
     let set = parse_coefficients_csv(csv_text, COEFFICIENTS_CSV).unwrap();
+    assert_eq!(set.hazen_williams, Some(fx.result.hazen_williams));
     for (entry, group) in set.entries.iter().zip(&fx.result.groups) {
         assert_eq!(
             (entry.name.as_str(), entry.c),

@@ -8,7 +8,7 @@
 
 use std::sync::{Mutex, PoisonError};
 
-use crate::hydraulics::{GradientSolver, OperatingState, Solution, SolveError};
+use crate::hydraulics::{GradientSolver, OperatingState, Solution, SolveError, ValveState};
 use crate::network::Network;
 
 use super::{CalibrationTest, FitTarget};
@@ -21,6 +21,10 @@ pub struct TestEvaluation {
     pub residual_head_m: f64,
     pub d_static_d_c: Vec<f64>,
     pub d_residual_d_c: Vec<f64>,
+    /// Every control valve in the static state (empty for a network without valves).
+    pub valves_static: Vec<ValveState>,
+    /// Every control valve in the residual (flowing) state.
+    pub valves_residual: Vec<ValveState>,
 }
 
 /// Everything that stays fixed while the optimizer varies C: solver, states, which pipes belong to which
@@ -194,6 +198,8 @@ impl<'a> Evaluator<'a> {
             residual_head_m: residual_solution.head_m[j] - elevation,
             d_static_d_c: self.group_sensitivity(static_solution, c, j),
             d_residual_d_c: self.group_sensitivity(&residual_solution, c, j),
+            valves_static: static_solution.valve_states(self.net),
+            valves_residual: residual_solution.valve_states(self.net),
         };
         Ok((evaluation, residual_solution.into_warm_start()))
     }

@@ -174,7 +174,7 @@ fn estimate(
     else {
         return out;
     };
-    let to_flow = |q: f64| net.units.flow_from_m3s(q);
+    let to_flow = |q: f64| net.flows().from_m3s(q);
     out.flow = Some(to_flow(flow_m3s));
     let std_error = at_flow
         .as_ref()
@@ -244,6 +244,7 @@ mod tests {
                 pipe("B", NodeRef::Junction(0), NodeRef::Junction(1), 600.0, 90.0),
             ],
             pumps: vec![],
+            flow_unit: None,
             valves: Vec::new(),
             hazen_williams_constant: None,
             lonlat_origin: None,
@@ -283,7 +284,7 @@ mod tests {
         let estimates =
             fire_flow_estimates(&net, &tests, &c, &groups, &covariance, target_m).unwrap();
         let expected_q = closed_form_flow(c[0], c[1], target_m);
-        let q = net.units.flow_to_m3s(estimates[0].flow.unwrap());
+        let q = net.flows().to_m3s(estimates[0].flow.unwrap());
         // The root search stops within 0.1 % of the flow.
         assert!(
             (q - expected_q).abs() < 2e-3 * expected_q,

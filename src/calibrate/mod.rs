@@ -175,6 +175,11 @@ pub struct TestComparison {
     pub modelled_residual_after: f64,
     pub before: FitStatistics,
     pub after: FitStatistics,
+    /// Every control valve in the test's static state under the fitted C (internal units).
+    pub valves_static_after: Vec<crate::hydraulics::ValveState>,
+    /// Every control valve in the test's flowing state under the fitted C (internal units): a valve
+    /// that regulates, opens or closes while the hydrant flows shapes the residual the fit matched.
+    pub valves_residual_after: Vec<crate::hydraulics::ValveState>,
 }
 
 /// One optimizer iteration, as reported to a progress callback.

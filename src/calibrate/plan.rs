@@ -544,6 +544,7 @@ mod tests {
                 pipe(4, NodeRef::Junction(2), 3, 1, c_b),
             ],
             pumps: vec![],
+            flow_unit: None,
             valves: Vec::new(),
             hazen_williams_constant: None,
             lonlat_origin: None,

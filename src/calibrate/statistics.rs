@@ -148,6 +148,8 @@ impl Summary {
                 modelled_residual_after: after.residual_head_m * to_pressure,
                 before: FitStatistics::of(&errors_before, tight, loose),
                 after: FitStatistics::of(&errors_after, tight, loose),
+                valves_static_after: after.valves_static.clone(),
+                valves_residual_after: after.valves_residual.clone(),
             });
             all_before.extend(errors_before);
             all_after.extend(errors_after);

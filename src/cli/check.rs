@@ -41,7 +41,7 @@ pub fn run(network: &Path, output: Output) -> anyhow::Result<ExitCode> {
                 file: &loaded.sources.file,
                 problems: Vec::new(),
                 summary: Some(JsonSummary::of(summary)),
-                units: Some(summary.units.labels()),
+                units: Some(summary.units.labels_with_flow(summary.flows)),
                 valid: true,
             },
             (Err(diagnostics), _) => JsonReport {
@@ -212,7 +212,7 @@ fn render(summary: &NetworkSummary, file: &str) -> String {
         units.key(),
         length_unit,
         units.diameter_label(),
-        units.flow_label(),
+        summary.flows.label(),
         units.pressure_label()
     );
     let _ = writeln!(
@@ -236,7 +236,7 @@ fn render(summary: &NetworkSummary, file: &str) -> String {
         out,
         "total base demand {:.2} {}",
         summary.total_base_demand,
-        units.flow_label()
+        summary.flows.label()
     );
     let _ = writeln!(out);
     let mut groups = TextTable::new(&[

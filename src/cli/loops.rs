@@ -59,7 +59,7 @@ pub fn run(
     if json {
         let mut report = render_json(&net, &solution, converged);
         if converged {
-            report["max_imbalance"] = json!(net.units.flow_from_m3s(imbalance_m3s));
+            report["max_imbalance"] = json!(net.flows().from_m3s(imbalance_m3s));
         }
         println!("{report:#}");
     } else {
@@ -119,7 +119,7 @@ pub fn render_text(
     options: LoopOptions,
 ) -> String {
     let units = net.units;
-    let (flow_unit, head_unit) = (units.flow_label(), units.length_label());
+    let (flow_unit, head_unit) = (net.flows().label(), units.length_label());
     let mut out = String::new();
     let _ = writeln!(out, "Loop corrections (Hardy Cross, 1936): {}", net.title);
     let _ = writeln!(
@@ -163,7 +163,7 @@ pub fn render_text(
                 .corrections_m3s
                 .iter()
                 .enumerate()
-                .map(|(i, &dq)| format!("{} {:+.4}", loop_label(i), units.flow_from_m3s(dq)))
+                .map(|(i, &dq)| format!("{} {:+.4}", loop_label(i), net.flows().from_m3s(dq)))
                 .collect();
             for (line, chunk) in cells.chunks(CORRECTIONS_PER_LINE).enumerate() {
                 // A long list of corrections goes on under the first line of its iteration.
@@ -204,7 +204,7 @@ pub fn render_text(
     for (i, pipe) in net.pipes.iter().enumerate() {
         pipes.row(vec![
             pipe.id.clone(),
-            format!("{:.3}", units.flow_from_m3s(solution.pipe_flow_m3s[i])),
+            format!("{:.3}", net.flows().from_m3s(solution.pipe_flow_m3s[i])),
             format!("{:.4}", units.length_from_m(solution.pipe_head_loss_m[i])),
         ]);
     }
@@ -259,7 +259,7 @@ pub fn render_json(net: &Network, solution: &LoopSolution, converged: bool) -> V
                 .corrections_m3s
                 .iter()
                 .enumerate()
-                .map(|(i, &dq)| json!({"loop": loop_label(i), "correction": units.flow_from_m3s(dq)}))
+                .map(|(i, &dq)| json!({"loop": loop_label(i), "correction": net.flows().from_m3s(dq)}))
                 .collect();
             json!({
                 "iteration": record.iteration,
@@ -305,7 +305,7 @@ pub fn render_json(net: &Network, solution: &LoopSolution, converged: bool) -> V
         .map(|(i, pipe)| {
             json!({
                 "id": pipe.id,
-                "flow": units.flow_from_m3s(solution.pipe_flow_m3s[i]),
+                "flow": net.flows().from_m3s(solution.pipe_flow_m3s[i]),
                 "headloss": units.length_from_m(solution.pipe_head_loss_m[i]),
             })
         })
@@ -326,7 +326,7 @@ pub fn render_json(net: &Network, solution: &LoopSolution, converged: bool) -> V
         .collect();
     let mut report = json!({
         "converged": converged,
-        "units": units.labels(),
+        "units": net.unit_labels(),
         "caution": CAUTION,
         "iterations": iterations,
         "loops": loops,
@@ -390,6 +390,24 @@ mod tests {
         let flow_gpm = report["pipes"][0]["flow"].as_f64().unwrap_or(f64::NAN);
         assert!((UnitSystem::Us.flow_to_m3s(flow_gpm) - solution.pipe_flow_m3s[0]).abs() < 1e-12);
         assert!(report["pipes"][0]["headloss"].is_number());
+    }
+
+    #[test]
+    fn a_network_in_mgd_is_reported_in_mgd() {
+        let (mut net, solution, converged) = solved(UnitSystem::Us, 200);
+        net.flow_unit = Some(roughcal::network::FlowUnit::Mgd);
+        let report = render_json(&net, &solution, converged);
+        assert_eq!(report["units"]["flow"], json!("MGD"));
+        assert_eq!(report["units"]["length"], json!("ft"));
+        // 1 MGD = 1e6 US gal / 86 400 s = 0.0438126 m^3/s (NIST SP 811 Appendix B).
+        let flow_mgd = report["pipes"][0]["flow"].as_f64().unwrap_or(f64::NAN);
+        let expected = solution.pipe_flow_m3s[0] / 0.043_812_636_4;
+        assert!(
+            (flow_mgd - expected).abs() < 1e-9 * expected.abs().max(1.0),
+            "{flow_mgd}"
+        );
+        let text = render_text(&net, &solution, converged, LoopOptions::default());
+        assert!(text.contains("corrections (MGD)"), "{text}");
     }
 
     #[test]

@@ -109,7 +109,7 @@ fn plan_json(net: &Network, plan: &TestPlan) -> serde_json::Value {
                 "rank": c.rank,
                 "residual_node": net.junctions[c.residual_junction].id,
                 "flow_nodes": c.flow_junctions.iter().map(|&j| &net.junctions[j].id).collect::<Vec<_>>(),
-                "flow": units.flow_from_m3s(c.flow_m3s),
+                "flow": net.flows().from_m3s(c.flow_m3s),
                 "predicted_static": pressure(c.predicted_static_m),
                 "predicted_residual": pressure(c.predicted_residual_m),
                 "predicted_drop": pressure(c.predicted_drop_m),
@@ -130,14 +130,14 @@ fn plan_json(net: &Network, plan: &TestPlan) -> serde_json::Value {
         "current_std_error": current,
         "candidates_examined": plan.examined,
         "candidates_feasible": plan.feasible,
-        "units": units.labels(),
+        "units": net.unit_labels(),
         "caution": CAUTION,
     })
 }
 
 fn plan_text(net: &Network, plan: &TestPlan, options: &PlanOptions) -> String {
     let units = net.units;
-    let (p, q) = (units.pressure_label(), units.flow_label());
+    let (p, q) = (units.pressure_label(), net.flows().label());
     let pressure = |m: f64| format!("{:.1}", units.pressure_from_head_m(m));
     let mut out = String::new();
     let _ = writeln!(
@@ -182,7 +182,7 @@ fn plan_text(net: &Network, plan: &TestPlan, options: &PlanOptions) -> String {
                 .map(|&j| net.junctions[j].id.as_str())
                 .collect::<Vec<_>>()
                 .join(" + "),
-            format!("{:.0}", units.flow_from_m3s(c.flow_m3s)),
+            format!("{:.0}", net.flows().from_m3s(c.flow_m3s)),
             pressure(c.predicted_static_m),
             pressure(c.predicted_residual_m),
             pressure(c.predicted_drop_m),

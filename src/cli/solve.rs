@@ -69,7 +69,7 @@ fn parse_demand(net: &Network, text: &str) -> anyhow::Result<(usize, f64)> {
         .ok()
         .filter(|v: &f64| v.is_finite())
         .with_context(|| format!("--demand {text}: `{}` is not a number", flow.trim()))?;
-    Ok((junction, net.units.flow_to_m3s(value)))
+    Ok((junction, net.flows().to_m3s(value)))
 }
 
 /// The `--json` report. Keys in alphabetical order (the order every report of roughcal prints them in),
@@ -100,11 +100,11 @@ impl<'a> Report<'a> {
             caution: CAUTION,
             converged: true,
             iterations: solution.iterations,
-            max_imbalance: net.units.flow_from_m3s(solution.max_imbalance_m3s),
+            max_imbalance: net.flows().from_m3s(solution.max_imbalance_m3s),
             nodes: Nodes(context),
             pipes: Pipes(context),
             pumps: Pumps(context),
-            units: net.units.labels(),
+            units: net.unit_labels(),
             valves: Valves(context),
             warnings: warning_lines(net, solution),
         }
@@ -185,7 +185,7 @@ impl Serialize for Nodes<'_> {
             let pressure_head_m = solution.pressure_head_m(net, j);
             let pressure = pressure_head_m.map(|p| units.pressure_from_head_m(p));
             seq.serialize_element(&JunctionRow {
-                demand: units.flow_from_m3s(state.demand_m3s(net, j)),
+                demand: net.flows().from_m3s(state.demand_m3s(net, j)),
                 head: pressure_head_m.map(|_| units.length_from_m(solution.head_m[j])),
                 id: &junction.id,
                 isolated: solution.isolated[j],
@@ -211,7 +211,7 @@ impl Serialize for Pipes<'_> {
         let Solved { net, solution, .. } = self.0;
         let units = net.units;
         serializer.collect_seq(net.pipes.iter().enumerate().map(|(k, pipe)| LinkRow {
-            flow: units.flow_from_m3s(solution.pipe_flow_m3s[k]),
+            flow: net.flows().from_m3s(solution.pipe_flow_m3s[k]),
             head_gain: None,
             headloss: Some(units.length_from_m(solution.pipe_headloss_m[k])),
             id: &pipe.id,
@@ -225,7 +225,7 @@ impl Serialize for Pumps<'_> {
         let Solved { net, solution, .. } = self.0;
         let units = net.units;
         serializer.collect_seq(net.pumps.iter().enumerate().map(|(k, pump)| LinkRow {
-            flow: units.flow_from_m3s(solution.pump_flow_m3s[k]),
+            flow: net.flows().from_m3s(solution.pump_flow_m3s[k]),
             head_gain: Some(units.length_from_m(solution.pump_head_gain_m[k])),
             headloss: None,
             id: &pump.id,
@@ -241,7 +241,7 @@ impl Serialize for Valves<'_> {
         serializer.collect_seq(net.valves.iter().enumerate().map(|(k, valve)| {
             let loss_m = solution.valve_head_loss_m[k];
             ValveRow {
-                flow: units.flow_from_m3s(solution.valve_flow_m3s[k]),
+                flow: net.flows().from_m3s(solution.valve_flow_m3s[k]),
                 head_loss: loss_m.is_finite().then(|| units.length_from_m(loss_m)),
                 id: &valve.id,
                 kind: valve.kind.keyword(),
@@ -295,7 +295,7 @@ fn render(
     let units = net.units;
     let (len, flow, pressure) = (
         units.length_label(),
-        units.flow_label(),
+        net.flows().label(),
         units.pressure_label(),
     );
     let mut out = String::new();
@@ -311,7 +311,7 @@ fn render(
         condition
             .map(|c| format!(" under condition `{c}`"))
             .unwrap_or_default(),
-        units.flow_from_m3s(solution.max_imbalance_m3s),
+        net.flows().from_m3s(solution.max_imbalance_m3s),
     );
     let mut junctions = TextTable::new(&[
         ("junction", Align::Left),
@@ -328,7 +328,7 @@ fn render(
                     junction.id.clone(),
                     format!("{:.2}", units.length_from_m(solution.head_m[j])),
                     format!("{p:.2}"),
-                    format!("{:.2}", units.flow_from_m3s(state.demand_m3s(net, j))),
+                    format!("{:.2}", net.flows().from_m3s(state.demand_m3s(net, j))),
                     if p < 0.0 { "NEGATIVE" } else { "" }.to_string(),
                 ]);
             }
@@ -345,7 +345,7 @@ fn render(
     for (k, pipe) in net.pipes.iter().enumerate() {
         pipes.row(vec![
             pipe.id.clone(),
-            format!("{:.2}", units.flow_from_m3s(solution.pipe_flow_m3s[k])),
+            format!("{:.2}", net.flows().from_m3s(solution.pipe_flow_m3s[k])),
             format!("{:.3}", units.length_from_m(solution.pipe_headloss_m[k])),
             solution.pipe_status[k].label().to_string(),
         ]);
@@ -361,7 +361,7 @@ fn render(
         for (k, pump) in net.pumps.iter().enumerate() {
             pumps.row(vec![
                 pump.id.clone(),
-                format!("{:.2}", units.flow_from_m3s(solution.pump_flow_m3s[k])),
+                format!("{:.2}", net.flows().from_m3s(solution.pump_flow_m3s[k])),
                 format!("{:.2}", units.length_from_m(solution.pump_head_gain_m[k])),
                 solution.pump_status[k].label().to_string(),
             ]);
@@ -381,7 +381,7 @@ fn render(
             valves.row(vec![
                 valve.id.clone(),
                 valve.kind.keyword().to_string(),
-                format!("{:.2}", units.flow_from_m3s(solution.valve_flow_m3s[k])),
+                format!("{:.2}", net.flows().from_m3s(solution.valve_flow_m3s[k])),
                 if loss_m.is_finite() {
                     format!("{:.2}", units.length_from_m(loss_m))
                 } else {

@@ -9,8 +9,11 @@ use roughcal::fieldtest::{
     AvailableFlow, ModelComparison, Severity, compare_with_model, default_target, load_sheet,
     screen_sheet,
 };
+use roughcal::hydraulics::ValveState;
 use roughcal::network::file::load_network_file;
+use roughcal::network::{Network, UnitSystem};
 use roughcal::report::table::{Align, TextTable};
+use roughcal::report::valve_states_json;
 use serde_json::json;
 
 use super::fireflow::finding_json;
@@ -65,6 +68,8 @@ pub fn run(
                     "negative_pressure_in_model": c.negative_pressure_somewhere,
                     "gauge_isolated_in_model": c.gauge_isolated_in_model,
                     "findings": c.findings.iter().map(finding_json).collect::<Vec<_>>(),
+                    "valves_static": valves_json(net, units, &c.valves_static),
+                    "valves_residual": valves_json(net, units, &c.valves_residual),
                 })
             })
             .collect();
@@ -85,8 +90,55 @@ pub fn run(
                 units.flow_label()
             )
         );
+        if !net.valves.is_empty() {
+            print!("{}", valve_table(net, units, &comparisons));
+        }
     }
     Ok(ExitCode::SUCCESS)
+}
+
+/// The valves of one modelled state, flow in the sheet's flow unit and head loss in its length unit.
+fn valves_json(net: &Network, units: UnitSystem, states: &[ValveState]) -> serde_json::Value {
+    valve_states_json(
+        net,
+        states,
+        |q| units.flow_from_m3s(q),
+        |h| units.length_from_m(h),
+    )
+}
+
+/// Every valve in every modelled test, static and flowing: a valve that opens, closes or starts to
+/// regulate when the hydrant flows changes the drop the gauge sees.
+fn valve_table(net: &Network, units: UnitSystem, rows: &[ModelComparison]) -> String {
+    let flow = units.flow_label();
+    let length = units.length_label();
+    let mut table = TextTable::new(&[
+        ("test", Align::Left),
+        ("valve", Align::Left),
+        ("static", Align::Left),
+        ("flowing", Align::Left),
+        (&format!("q {flow}"), Align::Right),
+        (&format!("loss {length}"), Align::Right),
+    ]);
+    if rows.iter().all(|c| c.valves_residual.is_empty()) {
+        return String::new();
+    }
+    for c in rows {
+        for (still, flowing) in c.valves_static.iter().zip(&c.valves_residual) {
+            table.row(vec![
+                c.test_id.clone(),
+                net.valves[flowing.valve].id.clone(),
+                still.status.label().to_string(),
+                flowing.status.label().to_string(),
+                format!("{:.2}", units.flow_from_m3s(flowing.flow_m3s)),
+                number(flowing.head_loss_m.map(|h| units.length_from_m(h)), 2),
+            ]);
+        }
+    }
+    format!(
+        "\nControl valves in each modelled test (state static and flowing; flow and head loss while flowing)\n{}",
+        table.text("")
+    )
 }
 
 fn number(value: Option<f64>, decimals: usize) -> String {

@@ -9,7 +9,7 @@ use std::collections::HashMap;
 
 use crate::calibrate::CalibrationTest;
 use crate::hydraulics::headloss::HW_FLOW_EXPONENT;
-use crate::hydraulics::{GradientSolver, OperatingState, Solution, SolveError};
+use crate::hydraulics::{GradientSolver, OperatingState, Solution, SolveError, ValveState};
 use crate::network::Network;
 
 use super::fireflow::AvailableFlow;
@@ -47,6 +47,11 @@ pub struct ModelComparison {
     /// The gauge's junction has no open path to a fixed head in the static or the residual state, so
     /// the model has no pressure for it (a closed check valve or a pump that cannot lift cut it off).
     pub gauge_isolated_in_model: bool,
+    /// Every control valve in the modelled static state (empty when the row was not modelled): a
+    /// valve that changes state between static and flowing explains a drop the pipes alone do not.
+    pub valves_static: Vec<ValveState>,
+    /// Every control valve in the modelled residual (flowing) state.
+    pub valves_residual: Vec<ValveState>,
 }
 
 impl ModelComparison {
@@ -135,6 +140,8 @@ pub fn compare_with_model(
             findings,
             negative_pressure_somewhere: false,
             gauge_isolated_in_model: false,
+            valves_static: Vec::new(),
+            valves_residual: Vec::new(),
         });
     }
     Ok(out)
@@ -169,6 +176,8 @@ fn compare_tests(
             findings: Vec::new(),
             negative_pressure_somewhere: false,
             gauge_isolated_in_model: false,
+            valves_static: Vec::new(),
+            valves_residual: Vec::new(),
         };
         let resolved = if reading.row_has_error(test.row) {
             None
@@ -188,6 +197,8 @@ fn compare_tests(
             comparison.negative_pressure_somewhere =
                 !flowing.negative_pressure_junctions(net).is_empty();
             comparison.gauge_isolated_in_model = static_head.is_none() || residual_head.is_none();
+            comparison.valves_static = statics.valve_states(net);
+            comparison.valves_residual = flowing.valve_states(net);
             if let Some(h) = static_head
                 && let Some(finding) = check_modelled_static(test, h)
             {

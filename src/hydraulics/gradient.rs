@@ -366,7 +366,40 @@ struct FactorizedSystem {
     pinned: Vec<bool>,
 }
 
+/// One control valve in one solved state, in internal units: what `solve`, `tests`, the calibration's
+/// per-test records and the map report for it.
+#[derive(Debug, Clone, PartialEq)]
+pub struct ValveState {
+    /// Index into [`Network::valves`].
+    pub valve: usize,
+    pub status: LinkStatus,
+    /// Flow from `from` to `to` (m^3/s).
+    pub flow_m3s: f64,
+    /// Head at `from` minus head at `to` (m); `None` where an end is isolated.
+    pub head_loss_m: Option<f64>,
+}
+
 impl Solution {
+    /// Every control valve of `net` in this solution, in the network's order.
+    pub fn valve_states(&self, net: &Network) -> Vec<ValveState> {
+        (0..net.valves.len())
+            .map(|k| ValveState {
+                valve: k,
+                status: self
+                    .valve_status
+                    .get(k)
+                    .copied()
+                    .unwrap_or(LinkStatus::Closed),
+                flow_m3s: self.valve_flow_m3s.get(k).copied().unwrap_or(0.0),
+                head_loss_m: self
+                    .valve_head_loss_m
+                    .get(k)
+                    .copied()
+                    .filter(|h| h.is_finite()),
+            })
+            .collect()
+    }
+
     /// This solution kept only for warm-starting later solves: flows, heads and statuses, with the
     /// factorization (which can be large) dropped.
     pub fn into_warm_start(mut self) -> Solution {

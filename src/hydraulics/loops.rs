@@ -24,8 +24,11 @@
 //! The guard floors `|Q|` at [`LoopOptions::min_flow_m3s`] in the denominator only; the step is then
 //! too large at worst, and later Newton steps on the convex law walk it back.
 //!
-//! The method here handles pipes only: a running pump or a pipe with a check valve is an error; closed
-//! pipes and pumps that are off carry no flow and are left out.
+//! The method here handles plain Hazen-Williams pipes only. Each element without such a law is named in
+//! [`LoopError::Unsupported`] with the reason ([`UnsupportedElement`]): a running pump (no pump curve in
+//! a loop correction), a pipe with a check valve (no status switching), a control valve in service (no
+//! valve law) and a pipe with a minor loss (the correction assumes the single exponent 1.852). Closed
+//! pipes, closed valves and pumps that are off carry no flow and are left out.
 
 use thiserror::Error;
 
@@ -517,6 +520,7 @@ mod tests {
             pipes,
             pumps: Vec::new(),
             groups: Vec::new(),
+            flow_unit: None,
             valves: Vec::new(),
             hazen_williams_constant: None,
             conditions: Vec::new(),

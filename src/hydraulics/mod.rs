@@ -6,6 +6,6 @@ pub mod loops;
 
 pub use gradient::{
     GradientSolver, LinkRef, LinkStatus, OperatingState, Solution, SolveError, SolveWarning,
-    SolverSettings,
+    SolverSettings, ValveState,
 };
 pub use headloss::HazenWilliams;

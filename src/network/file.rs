@@ -41,7 +41,7 @@ use super::model::{
     Pipe, Pump, PumpCurve, RoughnessGroup, Valve, ValveKind,
 };
 use super::suggest::did_you_mean;
-use super::units::UnitSystem;
+use super::units::{FlowUnit, UnitSystem};
 
 type Span = Range<usize>;
 
@@ -418,6 +418,7 @@ const ROOT_KEYS: &[&str] = &[
     "title",
     "units",
     "hazen_williams_constant",
+    "flow_unit",
     "origin_lon",
     "origin_lat",
     "junction",
@@ -1223,6 +1224,23 @@ impl<'t> Reader<'t> {
         };
         // With no valid unit system the file is already rejected; read on in us to report the rest.
         let units_or_us = units.unwrap_or_default();
+        let flow_unit = match self.string(&root_rec, "flow_unit", false) {
+            Got::Value(text, span) => match FlowUnit::parse(&text) {
+                Some(unit) => Some(unit),
+                None => {
+                    let keys = FlowUnit::ALL.map(FlowUnit::key);
+                    let message = format!(
+                        "`flow_unit` must be one of {}, found \"{text}\"{}",
+                        keys.map(|k| format!("\"{k}\"")).join(", "),
+                        did_you_mean(&text, keys)
+                    );
+                    self.report(&span, message, None, Some("flow_unit"));
+                    None
+                }
+            },
+            _ => None,
+        };
+        let flows = flow_unit.unwrap_or_else(|| FlowUnit::of_system(units_or_us));
         let mut network = Network {
             title: title.unwrap_or_default(),
             units: units_or_us,
@@ -1235,6 +1253,7 @@ impl<'t> Reader<'t> {
             hazen_williams_constant: self
                 .positive(&root_rec, "hazen_williams_constant", false)
                 .value(),
+            flow_unit,
             conditions: Vec::new(),
             lonlat_origin: self.lonlat_origin(&root_rec),
         };
@@ -1276,7 +1295,7 @@ impl<'t> Reader<'t> {
                 network.junctions.push(Junction {
                     id: id.map(|(id, _)| id.into_owned()).unwrap_or_default(),
                     elevation_m: units_or_us.length_to_m(elevation.unwrap_or(f64::NAN)),
-                    demand_m3s: units_or_us.flow_to_m3s(demand.unwrap_or(0.0)),
+                    demand_m3s: flows.to_m3s(demand.unwrap_or(0.0)),
                     position,
                 });
             }
@@ -1377,7 +1396,7 @@ impl<'t> Reader<'t> {
                 let id = self.read_id(&mut rec, Section::Pump);
                 self.check_keys(&rec);
                 let ends = self.ends(&rec, &nodes);
-                let curve = self.pump_curve(&rec, units_or_us);
+                let curve = self.pump_curve(&rec, units_or_us, flows);
                 let off = self.boolean(&rec, "off").value().unwrap_or(false);
                 let index = network.pumps.len();
                 if let Some(id) = &id {
@@ -1411,7 +1430,8 @@ impl<'t> Reader<'t> {
                 let ends = self.ends(&rec, &nodes);
                 let diameter = self.positive(&rec, "diameter", true).value();
                 let kind = self.valve_kind(&rec);
-                let setting = kind.and_then(|kind| self.valve_setting(&rec, kind, units_or_us));
+                let setting =
+                    kind.and_then(|kind| self.valve_setting(&rec, kind, units_or_us, flows));
                 if let (Some(kind), Some((from, to))) = (kind, ends) {
                     self.check_controlled_end(&rec, kind, from, to);
                 }
@@ -1448,7 +1468,7 @@ impl<'t> Reader<'t> {
                 sources.conditions.push(self.location(rec.header.start));
                 let name = self.read_id(&mut rec, Section::Condition);
                 self.check_keys(&rec);
-                let condition = self.condition(&rec, &network, &nodes, &links, units_or_us);
+                let condition = self.condition(&rec, &network, &nodes, &links, units_or_us, flows);
                 let name_span = name.as_ref().map_or(rec.header.clone(), |(_, s)| s.clone());
                 if let Some(name) = &name {
                     conditions.register(self, "condition", name, network.conditions.len(), "name");
@@ -1634,7 +1654,12 @@ impl<'t> Reader<'t> {
 
     /// The `curve` of a pump: at least three [flow, head gain] points whose head gain falls as flow
     /// rises, fitted by least squares; the fit itself must not rise over the range of the points.
-    fn pump_curve(&mut self, rec: &Record<'_, '_>, units: UnitSystem) -> Option<PumpCurve> {
+    fn pump_curve(
+        &mut self,
+        rec: &Record<'_, '_>,
+        units: UnitSystem,
+        flows: FlowUnit,
+    ) -> Option<PumpCurve> {
         let Some(found) = self.get(rec, "curve") else {
             self.missing(rec, "curve");
             return None;
@@ -1706,7 +1731,7 @@ impl<'t> Reader<'t> {
         }
         let si_points: Vec<(f64, f64)> = points
             .iter()
-            .map(|(q, h, _)| (units.flow_to_m3s(*q), units.length_to_m(*h)))
+            .map(|(q, h, _)| (flows.to_m3s(*q), units.length_to_m(*h)))
             .collect();
         let (q_low, q_high, head_top) = match (si_points.first(), si_points.last()) {
             (Some(first), Some(last)) => (first.0, last.0, first.1),
@@ -1735,8 +1760,8 @@ impl<'t> Reader<'t> {
             let message = format!(
                 "the least-squares curve h = a + bQ + cQ^2 through pump `curve` rises with flow near \
                  {} {}: head gain must fall as flow rises over the whole range; correct or add points",
-                short_number(units.flow_from_m3s(q_worst)),
-                units.flow_label()
+                short_number(flows.from_m3s(q_worst)),
+                flows.label()
             );
             self.report_at(rec, &curve_span, message, "curve");
             return None;
@@ -1752,6 +1777,7 @@ impl<'t> Reader<'t> {
         nodes: &Namespace<NodeRef>,
         links: &Namespace<LinkRef>,
         units: UnitSystem,
+        flows: FlowUnit,
     ) -> Condition {
         let demand_factor = self
             .positive(rec, "demand_factor", false)
@@ -1824,7 +1850,7 @@ impl<'t> Reader<'t> {
             LinkRef::Pipe(i) | LinkRef::Pump(i) | LinkRef::Valve(i) => i,
         };
         let pumps_off = self.link_list(rec, "pumps_off", links, network, LinkKind::Pump);
-        let valve_settings = self.valve_settings(rec, links, network, units);
+        let valve_settings = self.valve_settings(rec, links, network, units, flows);
         Condition {
             name: String::new(),
             demand_factor,
@@ -1910,6 +1936,7 @@ impl<'t> Reader<'t> {
         rec: &Record<'_, '_>,
         kind: ValveKind,
         units: UnitSystem,
+        flows: FlowUnit,
     ) -> Option<f64> {
         let value = match self.finite(rec, "setting", true) {
             Got::Value(value, _) if value >= 0.0 => value,
@@ -1920,7 +1947,7 @@ impl<'t> Reader<'t> {
             }
             _ => return None,
         };
-        Some(valve_setting_to_internal(kind, value, units))
+        Some(valve_setting_to_internal(kind, value, units, flows))
     }
 
     /// A pressure valve's controlled end must be a junction: a fixed head's grade is already set.
@@ -1955,6 +1982,7 @@ impl<'t> Reader<'t> {
         links: &Namespace<LinkRef>,
         network: &Network,
         units: UnitSystem,
+        flows: FlowUnit,
     ) -> Vec<(usize, f64)> {
         let mut settings = Vec::new();
         let Some(found) = self.get(rec, "valve_settings") else {
@@ -1981,7 +2009,7 @@ impl<'t> Reader<'t> {
             match value.as_number() {
                 Some(setting) if setting.is_finite() && setting >= 0.0 => {
                     if let Some(valve) = network.valves.get(index) {
-                        let internal = valve_setting_to_internal(valve.kind, setting, units);
+                        let internal = valve_setting_to_internal(valve.kind, setting, units, flows);
                         settings.push((index, internal));
                     }
                 }
@@ -2116,12 +2144,17 @@ enum LinkKind {
 
 /// A valve setting as written (psi or kPa for prv and psv, the flow unit for fcv, K for tcv) in the
 /// model's internal units.
-fn valve_setting_to_internal(kind: ValveKind, value: f64, units: UnitSystem) -> f64 {
+fn valve_setting_to_internal(
+    kind: ValveKind,
+    value: f64,
+    units: UnitSystem,
+    flows: FlowUnit,
+) -> f64 {
     match kind {
         ValveKind::PressureReducing | ValveKind::PressureSustaining => {
             units.pressure_to_head_m(value)
         }
-        ValveKind::FlowControl => units.flow_to_m3s(value),
+        ValveKind::FlowControl => flows.to_m3s(value),
         ValveKind::Throttle => value,
     }
 }

@@ -17,4 +17,4 @@ pub mod write;
 
 pub use model::*;
 pub use read::{NetworkText, read_network};
-pub use units::{UnitLabels, UnitSystem};
+pub use units::{FlowUnit, UnitLabels, UnitSystem};

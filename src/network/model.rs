@@ -1,7 +1,7 @@
 //! The network as the core sees it: every quantity in internal units (metres, m^3/s), every reference
 //! resolved to an index. Built by the loader from a network file; never read from disk here.
 
-use super::units::UnitSystem;
+use super::units::{FlowUnit, UnitLabels, UnitSystem};
 
 /// Default calibration bounds of a roughness group that has no `[[group]]` entry bounds (Hazen-Williams C).
 pub const DEFAULT_GROUP_MIN_C: f64 = 40.0;
@@ -25,6 +25,9 @@ pub struct Network {
     /// The Hazen-Williams constant K of the file, in the formula of its unit system (see
     /// [`crate::hydraulics::headloss`]); `None` for the default of the unit system (10.44 us, 10.67 si).
     pub hazen_williams_constant: Option<f64>,
+    /// The file's `flow_unit`: the unit its flows are written and shown in; `None` for the flow unit of
+    /// the unit system (gpm in us, L/s in si).
+    pub flow_unit: Option<FlowUnit>,
     /// Where plan coordinates came from WGS84 longitude and latitude (a network imported with
     /// `coordinates = "lonlat"`): the origin of the local projection that turned them into x, y (see
     /// [`super::lonlat::LocalProjection`]), so exports can give lon/lat back. `None`: x, y are the file's
@@ -223,6 +226,18 @@ pub struct Condition {
 }
 
 impl Network {
+    /// The unit the network's flows are written and shown in: its `flow_unit`, or that of its unit
+    /// system.
+    pub fn flows(&self) -> FlowUnit {
+        self.flow_unit
+            .unwrap_or_else(|| FlowUnit::of_system(self.units))
+    }
+
+    /// The `units` object of JSON reports on this network: its unit system with its flow unit.
+    pub fn unit_labels(&self) -> UnitLabels {
+        self.units.labels_with_flow(self.flows())
+    }
+
     /// Id of a node reference.
     pub fn node_id(&self, node: NodeRef) -> &str {
         match node {

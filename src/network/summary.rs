@@ -1,7 +1,7 @@
 //! A short account of a network: what `roughcal check` prints for a valid file.
 
 use super::model::Network;
-use super::units::UnitSystem;
+use super::units::{FlowUnit, UnitSystem};
 
 /// Total pipe length of one roughness group, in the network's length unit (ft or m).
 #[derive(Debug, Clone, PartialEq)]
@@ -23,6 +23,8 @@ pub struct SourceHead {
 pub struct NetworkSummary {
     pub title: String,
     pub units: UnitSystem,
+    /// The unit of flows (the network's `flow_unit`, or that of its unit system).
+    pub flows: FlowUnit,
     pub junctions: usize,
     pub fixed_heads: usize,
     pub pipes: usize,
@@ -38,7 +40,7 @@ pub struct NetworkSummary {
     pub ungrouped: GroupLength,
     /// Every fixed head with its head.
     pub sources: Vec<SourceHead>,
-    /// Sum of the base demands of all junctions (gpm or L/s).
+    /// Sum of the base demands of all junctions, in [`Self::flows`].
     pub total_base_demand: f64,
 }
 
@@ -89,8 +91,10 @@ impl NetworkSummary {
                     head: units.length_from_m(f.head_m),
                 })
                 .collect(),
-            total_base_demand: units
-                .flow_from_m3s(network.junctions.iter().map(|j| j.demand_m3s).sum()),
+            flows: network.flows(),
+            total_base_demand: network
+                .flows()
+                .from_m3s(network.junctions.iter().map(|j| j.demand_m3s).sum()),
         }
     }
 

@@ -508,6 +508,7 @@ impl Draft {
                     locked: false,
                 })
                 .collect(),
+            flow_unit: None,
             valves: Vec::new(),
             hazen_williams_constant: None,
             conditions: Vec::new(),

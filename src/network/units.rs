@@ -39,6 +39,85 @@ pub enum UnitSystem {
     Si,
 }
 
+/// Cubic metres per second in one cubic metre per hour (exact).
+pub const M3S_PER_M3H: f64 = 1.0 / 3600.0;
+/// Cubic metres per second in one million US gallons per day: 1e6 x 3.785411784 L / 86 400 s (exact
+/// gallon, NIST SP 811 Appendix B), 0.043812636 m^3/s.
+pub const M3S_PER_MGD: f64 = 3.785_411_784e3 / 86_400.0;
+
+/// The unit flows are written and shown in: the flow unit of the unit system (gpm in `us`, L/s in `si`)
+/// unless a network file names another with `flow_unit`. Lengths, diameters and pressures, and the
+/// Hazen-Williams formula the constant is written in, stay those of the [`UnitSystem`].
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum FlowUnit {
+    /// US gallons per minute.
+    Gpm,
+    /// Litres per second.
+    Lps,
+    /// Cubic metres per hour.
+    M3h,
+    /// Million US gallons per day.
+    Mgd,
+}
+
+impl FlowUnit {
+    /// Every flow unit, in the order messages list them.
+    pub const ALL: [FlowUnit; 4] = [Self::Gpm, Self::Lps, Self::M3h, Self::Mgd];
+
+    /// The flow unit of a unit system: gpm in `us`, L/s in `si`.
+    pub fn of_system(units: UnitSystem) -> Self {
+        match units {
+            UnitSystem::Us => Self::Gpm,
+            UnitSystem::Si => Self::Lps,
+        }
+    }
+
+    /// Parses the `flow_unit` key of a network file.
+    pub fn parse(text: &str) -> Option<Self> {
+        Self::ALL.into_iter().find(|unit| unit.key() == text)
+    }
+
+    /// The key as written in files (`gpm`, `lps`, `m3h`, `mgd`).
+    pub fn key(self) -> &'static str {
+        match self {
+            Self::Gpm => "gpm",
+            Self::Lps => "lps",
+            Self::M3h => "m3h",
+            Self::Mgd => "mgd",
+        }
+    }
+
+    /// The label shown beside numbers (`gpm`, `L/s`, `m3/h`, `MGD`).
+    pub fn label(self) -> &'static str {
+        match self {
+            Self::Gpm => "gpm",
+            Self::Lps => "L/s",
+            Self::M3h => "m3/h",
+            Self::Mgd => "MGD",
+        }
+    }
+
+    /// m^3/s in one unit of this flow unit.
+    pub fn m3s_per_unit(self) -> f64 {
+        match self {
+            Self::Gpm => M3S_PER_GPM,
+            Self::Lps => 1e-3,
+            Self::M3h => M3S_PER_M3H,
+            Self::Mgd => M3S_PER_MGD,
+        }
+    }
+
+    /// A flow in this unit, to m^3/s.
+    pub fn to_m3s(self, value: f64) -> f64 {
+        value * self.m3s_per_unit()
+    }
+
+    /// m^3/s to this unit.
+    pub fn from_m3s(self, m3s: f64) -> f64 {
+        m3s / self.m3s_per_unit()
+    }
+}
+
 /// The `units` object of every `--json` report: the system's key and the label of each quantity, so
 /// that every number of a report is read against one of these five names (fields in alphabetical
 /// order, the order every JSON report prints its keys in).
@@ -46,7 +125,7 @@ pub enum UnitSystem {
 pub struct UnitLabels {
     /// Pipe diameters (`in` or `mm`).
     pub diameter: &'static str,
-    /// Flows (`gpm` or `L/s`).
+    /// Flows (`gpm`, `L/s`, `m3/h` or `MGD`).
     pub flow: &'static str,
     /// Lengths, elevations and heads (`ft` or `m`).
     pub length: &'static str,
@@ -65,6 +144,14 @@ impl UnitSystem {
             length: self.length_label(),
             pressure: self.pressure_label(),
             system: self.key(),
+        }
+    }
+
+    /// The labels of this system with flows in `flow` (a network's `flow_unit`).
+    pub fn labels_with_flow(self, flow: FlowUnit) -> UnitLabels {
+        UnitLabels {
+            flow: flow.label(),
+            ..self.labels()
         }
     }
 
@@ -210,6 +297,28 @@ mod tests {
         // NIST SP 811 Appendix B: 1 gal (US) = 3.785412 L, so 1000 gpm = 63.09 L/s.
         let lps = UnitSystem::Si.flow_from_m3s(UnitSystem::Us.flow_to_m3s(1000.0));
         assert!((lps - 63.0902).abs() < 1e-3, "{lps}");
+    }
+
+    #[test]
+    fn flow_units_against_their_definitions() {
+        // NIST SP 811 Appendix B: 1 gal (US) = 3.785412e-3 m^3; 1 MGD = 1e6 gal / 86 400 s
+        // = 43.81 L/s = 694.4 gpm (1e6 / 1440).
+        assert!((FlowUnit::Mgd.to_m3s(1.0) - 0.043_812_636).abs() < 1e-9);
+        let gpm = FlowUnit::Gpm.from_m3s(FlowUnit::Mgd.to_m3s(1.0));
+        assert!((gpm - 1e6 / 1440.0).abs() < 1e-9, "{gpm}");
+        // 1 m^3/h = 1000 L / 3600 s = 0.2778 L/s (definition of the litre and the hour).
+        let lps = FlowUnit::Lps.from_m3s(FlowUnit::M3h.to_m3s(1.0));
+        assert!((lps - 1.0 / 3.6).abs() < 1e-12, "{lps}");
+        for unit in FlowUnit::ALL {
+            assert_eq!(FlowUnit::parse(unit.key()), Some(unit));
+            assert!((unit.from_m3s(unit.to_m3s(12.5)) - 12.5).abs() < 1e-12);
+        }
+        assert_eq!(FlowUnit::parse("m3/h"), None);
+        for units in [UnitSystem::Us, UnitSystem::Si] {
+            let own = FlowUnit::of_system(units);
+            assert_eq!(own.label(), units.flow_label());
+            assert_eq!(own.to_m3s(7.0), units.flow_to_m3s(7.0));
+        }
     }
 
     #[test]

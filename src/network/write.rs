@@ -9,7 +9,7 @@
 use std::fmt::Write as _;
 
 use super::model::{Network, NodeRef, ValveKind};
-use super::units::UnitSystem;
+use super::units::{FlowUnit, UnitSystem};
 
 /// The network file text of `net`.
 pub fn network_toml(net: &Network) -> String {
@@ -20,6 +20,7 @@ pub fn network_toml(net: &Network) -> String {
 /// the top (an imported network says where it came from). An empty `comment` writes none.
 pub fn network_toml_with_comment(net: &Network, comment: &str) -> String {
     let units = net.units;
+    let flows = net.flows();
     // About 170 bytes a pipe and 90 a junction: reserve once for a city-sized file.
     let mut out = String::with_capacity(
         net.pipes.len() * 170 + net.junctions.len() * 90 + comment.len() + 1024,
@@ -43,6 +44,9 @@ pub fn network_toml_with_comment(net: &Network, comment: &str) -> String {
     );
     if let Some(k) = net.hazen_williams_constant {
         let _ = writeln!(out, "hazen_williams_constant = {}\n", number(k));
+    }
+    if let Some(flow_unit) = net.flow_unit {
+        let _ = writeln!(out, "flow_unit = \"{}\"\n", flow_unit.key());
     }
     if let Some(origin) = net.lonlat_origin {
         // Nine decimals of a degree: about 0.1 mm on the ground.
@@ -74,7 +78,7 @@ pub fn network_toml_with_comment(net: &Network, comment: &str) -> String {
             let _ = writeln!(
                 out,
                 "demand = {}",
-                number(units.flow_from_m3s(junction.demand_m3s))
+                number(flows.from_m3s(junction.demand_m3s))
             );
         }
         position(&mut out, junction.position);
@@ -124,7 +128,7 @@ pub fn network_toml_with_comment(net: &Network, comment: &str) -> String {
             .map(|&(q, h)| {
                 format!(
                     "[{}, {}]",
-                    number(units.flow_from_m3s(q)),
+                    number(flows.from_m3s(q)),
                     number(units.length_from_m(h))
                 )
             })
@@ -151,7 +155,12 @@ pub fn network_toml_with_comment(net: &Network, comment: &str) -> String {
             node(valve.to),
             number(units.diameter_from_m(valve.diameter_m)),
             valve.kind.keyword(),
-            number(valve_setting_as_written(valve.kind, valve.setting, units))
+            number(valve_setting_as_written(
+                valve.kind,
+                valve.setting,
+                units,
+                flows
+            ))
         );
         if valve.minor_loss != 0.0 {
             let _ = writeln!(out, "minor_loss = {}", number(valve.minor_loss));
@@ -217,7 +226,7 @@ pub fn network_toml_with_comment(net: &Network, comment: &str) -> String {
                 Some(format!(
                     "{} = {}",
                     quoted(&valve.id),
-                    number(valve_setting_as_written(valve.kind, setting, units))
+                    number(valve_setting_as_written(valve.kind, setting, units, flows))
                 ))
             })
             .collect();
@@ -230,12 +239,17 @@ pub fn network_toml_with_comment(net: &Network, comment: &str) -> String {
 }
 
 /// A valve setting in the file's units (the inverse of the loader's conversion).
-fn valve_setting_as_written(kind: ValveKind, setting: f64, units: UnitSystem) -> f64 {
+fn valve_setting_as_written(
+    kind: ValveKind,
+    setting: f64,
+    units: UnitSystem,
+    flows: FlowUnit,
+) -> f64 {
     match kind {
         ValveKind::PressureReducing | ValveKind::PressureSustaining => {
             units.pressure_from_head_m(setting)
         }
-        ValveKind::FlowControl => units.flow_from_m3s(setting),
+        ValveKind::FlowControl => flows.from_m3s(setting),
         ValveKind::Throttle => setting,
     }
 }
@@ -312,6 +326,7 @@ mod tests {
             .network;
         assert_eq!(loaded.title, original.title);
         assert_eq!(loaded.units, original.units);
+        assert_eq!(loaded.flow_unit, original.flow_unit);
         assert_eq!(loaded.groups, original.groups);
         assert_eq!(loaded.junctions.len(), original.junctions.len());
         assert_eq!(loaded.pipes.len(), original.pipes.len());
@@ -323,8 +338,8 @@ mod tests {
                 units.length_from_m(b.elevation_m)
             ));
             assert!(close(
-                units.flow_from_m3s(a.demand_m3s),
-                units.flow_from_m3s(b.demand_m3s)
+                original.flows().from_m3s(a.demand_m3s),
+                original.flows().from_m3s(b.demand_m3s)
             ));
             let (pa, pb) = (a.position.unwrap(), b.position.unwrap());
             assert!(close(pa.0, pb.0) && close(pa.1, pb.1));
@@ -405,6 +420,16 @@ mod tests {
                 closed_valves: Vec::new(),
             });
             assert_same(&net, &network_toml(&net));
+            // The same network with its flows in every other unit: demands, the fcv setting and the
+            // condition's setting come back alike.
+            net.valves[0].kind = ValveKind::FlowControl;
+            net.valves[0].setting = 0.012;
+            for flow_unit in FlowUnit::ALL {
+                net.flow_unit = Some(flow_unit);
+                let text = network_toml(&net);
+                assert!(text.contains(&format!("flow_unit = \"{}\"", flow_unit.key())));
+                assert_same(&net, &text);
+            }
         }
     }
 

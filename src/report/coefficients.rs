@@ -15,8 +15,10 @@ use crate::calibrate::{CAUTION, CalibrationResult, GroupStatus};
 use crate::hydraulics::headloss::HwConstant;
 use crate::network::{Network, UnitSystem};
 
-/// Header of `coefficients.csv`, in order.
-pub const CSV_HEADER: [&str; 8] = [
+/// Header of `coefficients.csv`, in order. `units` and `hazen_williams_constant` repeat on every row
+/// (a CSV has no header block): the Hazen-Williams constant, and the unit system of its formula, that
+/// the C values belong to.
+pub const CSV_HEADER: [&str; 10] = [
     "group",
     "start",
     "fitted",
@@ -25,6 +27,8 @@ pub const CSV_HEADER: [&str; 8] = [
     "ci_high",
     "tests",
     "status",
+    "units",
+    "hazen_williams_constant",
 ];
 
 /// Keys a `[[group]]` entry of `coefficients.toml` may hold.
@@ -239,6 +243,10 @@ pub enum CoefficientErrorKind {
     NotConverged { name: String },
     #[error("the file lists no group")]
     NoGroups,
+    #[error(
+        "differs from line {first_line}: one coefficient set belongs to one Hazen-Williams constant"
+    )]
+    ConstantDiffersBetweenRows { first_line: usize },
 }
 
 /// Reads a coefficient set, choosing the schema by extension (`.toml` or `.csv`).
@@ -659,6 +667,8 @@ pub fn parse_coefficients_csv(text: &str, file: &str) -> Result<CoefficientSet, 
         }
     }
     let mut entries = Vec::new();
+    // The set's constant and the line it was first read on.
+    let mut constant: Option<(Option<HwConstant>, usize)> = None;
     for record in records {
         let record = record.map_err(|e| {
             let line = e.position().map_or(header_line, |p| p.line() as usize);
@@ -690,6 +700,55 @@ pub fn parse_coefficients_csv(text: &str, file: &str) -> Result<CoefficientSet, 
         let name = cell("group")
             .ok_or_else(|| error("group", CoefficientErrorKind::Missing))?
             .to_string();
+        let units = match cell("units") {
+            None => None,
+            Some(text) => Some(UnitSystem::parse(text).ok_or_else(|| {
+                error(
+                    "units",
+                    CoefficientErrorKind::WrongType {
+                        expected: "\"us\" or \"si\"",
+                        found: format!("`{text}`"),
+                    },
+                )
+            })?),
+        };
+        let k = match number("hazen_williams_constant")? {
+            Some(k) if !(k.is_finite() && k > 0.0) => {
+                return Err(error(
+                    "hazen_williams_constant",
+                    CoefficientErrorKind::NotPositive(k),
+                ));
+            }
+            k => k,
+        };
+        let row_constant = match (units, k) {
+            (Some(units), Some(k)) => Some(HwConstant { units, k }),
+            (None, None) => None,
+            (None, Some(_)) => {
+                return Err(error("units", CoefficientErrorKind::ConstantWithoutUnits));
+            }
+            (Some(_), None) => {
+                return Err(error(
+                    "hazen_williams_constant",
+                    CoefficientErrorKind::ConstantWithoutUnits,
+                ));
+            }
+        };
+        match constant {
+            None => constant = Some((row_constant, line)),
+            Some((first, first_line)) if first != row_constant => {
+                let field = if row_constant.map(|c| c.units) == first.map(|c| c.units) {
+                    "hazen_williams_constant"
+                } else {
+                    "units"
+                };
+                return Err(error(
+                    field,
+                    CoefficientErrorKind::ConstantDiffersBetweenRows { first_line },
+                ));
+            }
+            Some(_) => {}
+        }
         let c = number("fitted")?.ok_or_else(|| error("fitted", CoefficientErrorKind::Missing))?;
         let tests = match cell("tests") {
             None => None,
@@ -720,12 +779,15 @@ pub fn parse_coefficients_csv(text: &str, file: &str) -> Result<CoefficientSet, 
         let renamed = |key: &str, kind| error(if key == "c" { "fitted" } else { key }, kind);
         entries.push(raw.check(renamed, line, line)?);
     }
-    finish(&place, entries)
+    let mut set = finish(&place, entries)?;
+    set.hazen_williams = constant.and_then(|(constant, _)| constant);
+    Ok(set)
 }
 
 /// `coefficients.csv`: [`CSV_HEADER`], then one row per group of the result. Numbers are written in
 /// full precision (the shortest decimal that reads back as the same value); blank cells where the fit
-/// gives no standard error or interval.
+/// gives no standard error or interval. Every row carries the fit's Hazen-Williams constant and its
+/// unit system, so that `apply` can compare them with the target network's.
 pub fn coefficients_csv(result: &CalibrationResult) -> String {
     let mut writer = csv::Writer::from_writer(Vec::new());
     let mut rows = vec![CSV_HEADER.iter().map(|s| s.to_string()).collect::<Vec<_>>()];
@@ -740,6 +802,8 @@ pub fn coefficients_csv(result: &CalibrationResult) -> String {
             opt(group.ci95.map(|ci| ci.1)),
             group.tests_informing.to_string(),
             status_label(result, group.status).to_string(),
+            result.hazen_williams.units.key().to_string(),
+            result.hazen_williams.k.to_string(),
         ]);
     }
     for row in rows {
@@ -1034,7 +1098,7 @@ mod tests {
         assert_eq!(
             csv_error("group,fitted,colour\nci,80,red\n"),
             "set.csv:1: colour: unknown key; expected one of group, start, fitted, std_error, \
-             ci_low, ci_high, tests, status"
+             ci_low, ci_high, tests, status, units, hazen_williams_constant"
         );
         assert_eq!(
             csv_error("group,start\nci,80\n"),
@@ -1067,6 +1131,7 @@ mod tests {
                 max_c: 140.0,
                 locked: false,
             }],
+            flow_unit: None,
             valves: Vec::new(),
             hazen_williams_constant: None,
             conditions: vec![],
@@ -1099,6 +1164,7 @@ mod tests {
             pipes: vec![],
             pumps: vec![],
             groups: vec![],
+            flow_unit: None,
             valves: Vec::new(),
             hazen_williams_constant: k,
             lonlat_origin: None,
@@ -1133,5 +1199,49 @@ mod tests {
         let old =
             parse_coefficients_toml("[[group]]\nname = \"ci\"\nc = 80\n", "set.toml").unwrap();
         assert_eq!(old.constant_mismatch(&net(UnitSystem::Us, None)), None);
+    }
+
+    #[test]
+    fn a_csv_set_carries_its_constant_on_every_row() {
+        use crate::network::UnitSystem;
+        let header = "group,fitted,units,hazen_williams_constant\n";
+        let set = parse_coefficients_csv(
+            &format!("{header}ci,80,si,10.5088\npvc,140,si,10.5088\n"),
+            "s.csv",
+        )
+        .unwrap();
+        assert_eq!(
+            set.hazen_williams,
+            Some(HwConstant {
+                units: UnitSystem::Si,
+                k: 10.5088
+            })
+        );
+        // A set written before the columns existed says nothing about its constant.
+        let old = parse_coefficients_csv("group,fitted\nci,80\n", "s.csv").unwrap();
+        assert_eq!(old.hazen_williams, None);
+        assert_eq!(
+            csv_error(&format!("{header}ci,80,si,10.5088\npvc,140,si,10.67\n")),
+            "set.csv:3: hazen_williams_constant: differs from line 2: one coefficient set belongs to \
+             one Hazen-Williams constant"
+        );
+        assert_eq!(
+            csv_error(&format!("{header}ci,80,si,10.5088\npvc,140,us,10.5088\n")),
+            "set.csv:3: units: differs from line 2: one coefficient set belongs to one \
+             Hazen-Williams constant"
+        );
+        assert_eq!(
+            csv_error(&format!("{header}ci,80,,10.5088\n")),
+            "set.csv:2: units: `units` and `hazen_williams_constant` go together: the constant \
+             means nothing without the unit system of its formula"
+        );
+        assert_eq!(
+            csv_error(&format!("{header}ci,80,metric,10.67\n")),
+            "set.csv:2: units: expected \"us\" or \"si\", found `metric`"
+        );
+        assert_eq!(
+            csv_error(&format!("{header}ci,80,si,0\n")),
+            "set.csv:2: hazen_williams_constant: must be a positive finite number, got 0"
+        );
     }
 }

@@ -5,6 +5,31 @@ use serde_json::{Value, json};
 use crate::calibrate::{CAUTION, FitStatistics};
 
 use super::RunContext;
+use crate::hydraulics::ValveState;
+use crate::network::Network;
+
+/// The valves of one solved state as `{id, state, flow, head_loss}`, the shape of `solve --json`'s
+/// `valves`: `flow` and `head_loss` through the caller's conversions from m^3/s and m (the network's
+/// units in the calibration report, the sheet's in `tests`); `head_loss` is null where an end is
+/// isolated.
+pub fn valve_states_json(
+    net: &Network,
+    states: &[ValveState],
+    flow_from_m3s: impl Fn(f64) -> f64,
+    length_from_m: impl Fn(f64) -> f64,
+) -> Value {
+    states
+        .iter()
+        .map(|v| {
+            json!({
+                "id": net.valves.get(v.valve).map(|valve| valve.id.as_str()),
+                "state": v.status.label(),
+                "flow": flow_from_m3s(v.flow_m3s),
+                "head_loss": v.head_loss_m.map(&length_from_m),
+            })
+        })
+        .collect()
+}
 
 fn statistics(s: &FitStatistics) -> Value {
     json!({
@@ -45,6 +70,15 @@ pub fn json_summary(run: &RunContext<'_>) -> Value {
             })
         })
         .collect();
+    let net = run.network;
+    let valves = |states: &[ValveState]| {
+        valve_states_json(
+            net,
+            states,
+            |q| net.flows().from_m3s(q),
+            |h| net.units.length_from_m(h),
+        )
+    };
     let tests: Vec<Value> = result
         .tests
         .iter()
@@ -73,6 +107,8 @@ pub fn json_summary(run: &RunContext<'_>) -> Value {
                 "modelled_static_after": t.modelled_static_after,
                 "rmse_before": t.before.rmse,
                 "rmse_after": t.after.rmse,
+                "valves_static_after": valves(&t.valves_static_after),
+                "valves_residual_after": valves(&t.valves_residual_after),
             })
         })
         .collect();
@@ -91,7 +127,7 @@ pub fn json_summary(run: &RunContext<'_>) -> Value {
         "before": statistics(&result.before),
         "after": statistics(&result.after),
         "tests": tests,
-        "units": run.network.units.labels(),
+        "units": run.network.unit_labels(),
         "fire_flow_target": run.options.target_residual_m * run.network.units.pressure_per_head_m(),
         "fit": result.fit.label(),
         "converged": result.converged,

@@ -38,7 +38,7 @@ pub fn report_markdown(run: &RunContext<'_>) -> String {
         out,
         "- Units: {} (pressures in {unit}, flows in {})",
         units.key(),
-        units.flow_label()
+        run.network.flows().label()
     );
     let _ = writeln!(out, "- Fit target: {}", sections::fit_target(result.fit));
     let _ = writeln!(out, "- Settings: {}", sections::settings_line(run));

@@ -31,7 +31,7 @@ pub use coefficients::{
     CoefficientEntry, CoefficientError, CoefficientErrorKind, CoefficientSet, coefficients_csv,
     coefficients_toml, load_coefficients, parse_coefficients_csv, parse_coefficients_toml,
 };
-pub use json::json_summary;
+pub use json::{json_summary, valve_states_json};
 pub use markdown::report_markdown;
 pub use per_pipe::{PIPES_CSV_HEADER, pipes_csv, results_geojson};
 pub use plot::fit_svg;

@@ -9,17 +9,27 @@
 use geojson::{GeometryValue, JsonObject, JsonValue};
 
 use crate::calibrate::CalibrationTest;
+use crate::hydraulics::headloss::HwConstant;
 use crate::network::gis::{feature, feature_collection_text, json_number as number};
 use crate::network::lonlat::LocalProjection;
 use crate::network::{Network, NodeRef};
 
 use super::{ReportError, RunContext};
 
-/// Header of `pipes.csv` (a contract: GIS joins rely on it).
-pub const PIPES_CSV_HEADER: [&str; 4] = ["pipe", "group", "c_before", "c_after"];
+/// Header of `pipes.csv` (a contract: GIS joins rely on it; new columns only ever go at the end).
+pub const PIPES_CSV_HEADER: [&str; 6] = [
+    "pipe",
+    "group",
+    "c_before",
+    "c_after",
+    "units",
+    "hazen_williams_constant",
+];
 
 /// `pipes.csv`: one row per pipe (pumps are not pipes), in the network's order. C values are written
-/// in full (shortest text that reads back to the same number), as in `calibrated.toml`.
+/// in full (shortest text that reads back to the same number), as in `calibrated.toml`. Every row names
+/// the Hazen-Williams constant (and the unit system of its formula) the C values belong to: C scales
+/// with the constant to the power 1/1.852, so a C without its constant is ambiguous.
 pub fn pipes_csv(network: &Network, pipe_c_after: &[f64]) -> Result<String, ReportError> {
     if pipe_c_after.len() != network.pipes.len() {
         return Err(ReportError::PipeCount {
@@ -29,6 +39,7 @@ pub fn pipes_csv(network: &Network, pipe_c_after: &[f64]) -> Result<String, Repo
     }
     let mut writer = csv::Writer::from_writer(Vec::with_capacity(network.pipes.len() * 40));
     let mut rows = vec![PIPES_CSV_HEADER.map(String::from)];
+    let constant = HwConstant::of_network(network);
     for (pipe, c_after) in network.pipes.iter().zip(pipe_c_after) {
         let group = pipe
             .group
@@ -39,6 +50,8 @@ pub fn pipes_csv(network: &Network, pipe_c_after: &[f64]) -> Result<String, Repo
             group,
             pipe.c_factor.to_string(),
             c_after.to_string(),
+            constant.units.key().to_string(),
+            constant.k.to_string(),
         ]);
     }
     for row in &rows {
@@ -107,7 +120,7 @@ pub fn results_geojson(run: &RunContext<'_>) -> Option<String> {
         );
         properties.insert(
             "flow".into(),
-            number(units.flow_from_m3s(total_flow_m3s(test))),
+            number(network.flows().from_m3s(total_flow_m3s(test))),
         );
         features.push(feature(GeometryValue::new_point(at), properties));
     }

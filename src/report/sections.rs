@@ -168,7 +168,7 @@ pub fn fire_flow_heading(run: &RunContext<'_>) -> String {
         "Model fire flow after the fit at {:.0} {} residual ({}, 95 % interval from the C covariance)",
         run.options.target_residual_m * units.pressure_per_head_m(),
         units.pressure_label(),
-        units.flow_label()
+        run.network.flows().label()
     )
 }
 
@@ -257,12 +257,12 @@ pub fn not_informed_lines(result: &CalibrationResult) -> Vec<String> {
 /// Tests used: residual junction, flowing hydrants and their flow, condition.
 pub fn used_tests_table(run: &RunContext<'_>) -> TextTable {
     let net = run.network;
-    let units = net.units;
+    let flows = net.flows();
     let mut table = TextTable::new(&[
         ("test", Align::Left),
         ("residual hydrant", Align::Left),
         ("flowing", Align::Left),
-        (&format!("flow ({})", units.flow_label()), Align::Right),
+        (&format!("flow ({})", flows.label()), Align::Right),
         ("condition", Align::Left),
     ]);
     for test in run.tests {
@@ -277,7 +277,7 @@ pub fn used_tests_table(run: &RunContext<'_>) -> TextTable {
             test.id.clone(),
             junction(test.residual_junction).to_string(),
             flowing.join(", "),
-            format!("{:.0}", units.flow_from_m3s(flow)),
+            format!("{:.0}", flows.from_m3s(flow)),
             test.condition
                 .and_then(|c| net.conditions.get(c))
                 .map_or_else(|| "base".to_string(), |c| c.name.clone()),

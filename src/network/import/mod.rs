@@ -1623,6 +1623,7 @@ impl Builder<'_> {
             fixed_heads,
             pipes: network_pipes,
             pumps: Vec::new(),
+            flow_unit: None,
             valves: Vec::new(),
             groups,
             conditions: Vec::new(),
