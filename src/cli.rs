@@ -21,7 +21,13 @@ mod ui;
 ///
 /// With no command, opens the terminal workbench on the bundled demo district.
 #[derive(Debug, Parser)]
-#[command(name = "roughcal", version, about, long_about = None)]
+#[command(
+    name = "roughcal",
+    version,
+    about,
+    long_about = None,
+    after_help = "Run `roughcal` with no command to open the terminal workbench on the bundled demo district."
+)]
 pub struct Cli {
     #[command(subcommand)]
     pub command: Option<Command>,
@@ -53,6 +59,7 @@ pub enum Command {
     },
     /// Solve the steady state of a network (global gradient algorithm).
     Solve {
+        /// Network file (TOML).
         network: PathBuf,
         /// Boundary state to apply (a `[[condition]]` of the network).
         #[arg(long)]
@@ -66,6 +73,7 @@ pub enum Command {
     },
     /// Solve by loop corrections (Hardy Cross) and show each iteration.
     Loops {
+        /// Network file (TOML).
         network: PathBuf,
         /// Iteration limit (loop corrections converge slowly on large grids).
         #[arg(long, default_value_t = 500)]
@@ -73,32 +81,40 @@ pub enum Command {
         /// Balance the network under this `[[condition]]` of the file.
         #[arg(long)]
         condition: Option<String>,
+        /// Machine-readable output (JSON on stdout).
         #[arg(long)]
         json: bool,
     },
     /// Compare every field test of a sheet with the model.
     Tests {
+        /// Network file (TOML).
         network: PathBuf,
+        /// Field sheet (CSV).
         sheet: PathBuf,
         /// Target residual pressure for available flow (psi or kPa, the sheet's unit).
         // A negative value reaches the command's own message instead of being taken for a flag.
         #[arg(long, allow_negative_numbers = true)]
         target: Option<f64>,
+        /// Machine-readable output (JSON on stdout).
         #[arg(long)]
         json: bool,
     },
     /// Fire flow available at a target residual, from the sheet alone.
     Fireflow {
+        /// Field sheet (CSV).
         sheet: PathBuf,
         /// Target residual pressure (psi or kPa, the sheet's unit); default 20 psi / 140 kPa.
         #[arg(long, allow_negative_numbers = true)]
         target: Option<f64>,
+        /// Machine-readable output (JSON on stdout).
         #[arg(long)]
         json: bool,
     },
     /// Fit the C-factor of each roughness group to the field sheet.
     Calibrate {
+        /// Network file (TOML).
         network: PathBuf,
+        /// Field sheet (CSV).
         sheet: PathBuf,
         /// Folder to write the coefficient set, calibrated network, report and plot into.
         #[arg(long)]
@@ -106,6 +122,7 @@ pub enum Command {
         /// Overwrite outputs already in the folder.
         #[arg(long)]
         force: bool,
+        /// What the fit compares: static and residual pressures, or the drop alone.
         #[arg(long, value_enum, default_value_t = FitTarget::Pressures)]
         fit: FitTarget,
         /// Gauge accuracy, one standard deviation (psi or kPa); default 1 psi / 7 kPa.
@@ -120,12 +137,15 @@ pub enum Command {
         /// Iteration limit of the optimizer.
         #[arg(long = "max-iterations", default_value_t = 50)]
         max_iterations: u64,
+        /// Machine-readable output (JSON on stdout).
         #[arg(long)]
         json: bool,
     },
     /// Rank candidate flow tests by the information they would add to the fit of the sheet.
     Plan {
+        /// Network file (TOML).
         network: PathBuf,
+        /// Field sheet (CSV).
         sheet: PathBuf,
         /// Number of tests to plan (chosen greedily, each given the ones before).
         #[arg(long, default_value_t = 5)]
@@ -143,16 +163,20 @@ pub enum Command {
         /// No junction may fall below this while the hydrants flow (psi or kPa); default 20 psi / 140 kPa.
         #[arg(long = "min-residual", allow_negative_numbers = true)]
         min_residual: Option<f64>,
+        /// Machine-readable output (JSON on stdout).
         #[arg(long)]
         json: bool,
     },
     /// Write a network with a coefficient set applied.
     Apply {
+        /// Network file (TOML).
         network: PathBuf,
         /// A `coefficients.toml` or `coefficients.csv` from `calibrate`.
         coefficients: PathBuf,
+        /// The network file to write.
         #[arg(long)]
         out: PathBuf,
+        /// Overwrite the output if it exists.
         #[arg(long)]
         force: bool,
     },
@@ -178,9 +202,19 @@ pub enum Command {
         json: bool,
     },
     /// Open the terminal workbench on a network and a field sheet (edits are saved to SHEET).
-    Open { network: PathBuf, sheet: PathBuf },
+    Open {
+        /// Network file (TOML).
+        network: PathBuf,
+        /// Field sheet (CSV); edits are saved to it.
+        sheet: PathBuf,
+    },
     /// Start a new, empty field sheet from the template and open the workbench on it.
-    New { network: PathBuf, sheet: PathBuf },
+    New {
+        /// Network file (TOML).
+        network: PathBuf,
+        /// The field sheet to start (CSV).
+        sheet: PathBuf,
+    },
     /// Regenerate the bundled demo district, its true C-factors and its field sheet (for maintainers).
     #[command(hide = true)]
     MakeDemo {
@@ -194,10 +228,13 @@ pub enum Command {
         /// The folder to write `city.toml` and `city.csv` into (created if needed).
         #[arg(long)]
         out: PathBuf,
+        /// Number of junctions.
         #[arg(long, default_value_t = 90_000)]
         junctions: usize,
+        /// Number of roughness groups.
         #[arg(long, default_value_t = 8)]
         groups: usize,
+        /// Number of field tests on the sheet.
         #[arg(long, default_value_t = 20)]
         tests: usize,
     },

@@ -14,8 +14,8 @@ use roughcal::fieldtest::{
 use roughcal::network::Network;
 use roughcal::network::file::parse_network;
 use roughcal::report::{
-    CalibrationOutputs, OutputWriteError, RunContext, existing_outputs, json_summary, text_summary,
-    write_outputs,
+    CalibrationOutputs, OutputWriteError, Provenance, RunContext, civil_date, existing_outputs,
+    json_summary, sha256_hex, text_summary, write_outputs,
 };
 
 use super::{FitTarget, load_network_or_report};
@@ -96,7 +96,17 @@ pub fn run(args: Args) -> anyhow::Result<ExitCode> {
         print!("{}", text_summary(&run));
     }
     if let Some(out) = &args.out {
-        let outputs = CalibrationOutputs::build(&run, &network_text)?;
+        let provenance = Provenance {
+            run_date: today_utc(),
+            network_sha256: Some(sha256_hex(network_text.as_bytes())),
+            sheet_sha256: std::fs::read(&args.sheet).ok().map(|b| sha256_hex(&b)),
+            test_dates: reading
+                .tests
+                .iter()
+                .map(|t| (t.test_id.clone(), t.date.clone()))
+                .collect(),
+        };
+        let outputs = CalibrationOutputs::build_delivered(&run, &network_text, &provenance)?;
         let written = write_outputs(out, &outputs, args.force)?;
         for path in written {
             // Keep stdout a single JSON document under --json.
@@ -112,6 +122,14 @@ pub fn run(args: Args) -> anyhow::Result<ExitCode> {
         return Ok(ExitCode::from(1));
     }
     Ok(ExitCode::SUCCESS)
+}
+
+/// Today's date (UTC) as YYYY-MM-DD, from the system clock.
+fn today_utc() -> String {
+    let seconds = std::time::SystemTime::now()
+        .duration_since(std::time::UNIX_EPOCH)
+        .map_or(0, |d| d.as_secs());
+    civil_date(i64::try_from(seconds / 86_400).unwrap_or(0))
 }
 
 fn roughcal_not_converged(result: &core::CalibrationResult) -> String {

@@ -61,7 +61,11 @@ pub fn run(
                     "total_flow": c.total_flow,
                     "field_available_flow": c.field_available.value(),
                     "model_available_flow": c.model_available,
-                    "usable": c.read && !c.has_error() && !c.gauge_isolated_in_model,
+                    "use": !reading.is_left_out(c.row),
+                    "usable": c.read
+                        && !c.has_error()
+                        && !c.gauge_isolated_in_model
+                        && !reading.is_left_out(c.row),
                     "negative_pressure_in_model": c.negative_pressure_somewhere,
                     "gauge_isolated_in_model": c.gauge_isolated_in_model,
                     "findings": c.findings.iter().map(finding_json).collect::<Vec<_>>(),
@@ -80,6 +84,7 @@ pub fn run(
             "{}",
             table(
                 &comparisons,
+                &|row| reading.is_left_out(row),
                 target,
                 units.pressure_label(),
                 units.flow_label()
@@ -93,28 +98,48 @@ fn number(value: Option<f64>, decimals: usize) -> String {
     value.map_or_else(|| "-".into(), |v| format!("{v:.decimals$}"))
 }
 
-fn table(rows: &[ModelComparison], target: f64, pressure: &str, flow: &str) -> String {
+fn table(
+    rows: &[ModelComparison],
+    left_out: &dyn Fn(usize) -> bool,
+    target: f64,
+    pressure: &str,
+    flow: &str,
+) -> String {
     let mut out = String::new();
     let _ = writeln!(
         out,
         "Field tests against the model (pressures {pressure}, flows {flow}; available flow at {target} {pressure})\n"
     );
-    let right = |name| (name, Align::Right);
-    let mut table = TextTable::new(&[
-        ("test", Align::Left),
-        ("gauge", Align::Left),
-        right("S meas"),
-        right("S mod"),
-        right("R meas"),
-        right("R mod"),
-        right("dS"),
-        right("dR"),
-        right("drop"),
-        right("drop m"),
-        right("Q fld"),
-        right("Q mod"),
-        ("findings", Align::Left),
-    ])
+    let p = |name: &str| format!("{name} ({pressure})");
+    let q = |name: &str| format!("{name} ({flow})");
+    let headers = [
+        "test".to_string(),
+        "residual hydrant".to_string(),
+        p("static"),
+        p("static model"),
+        p("residual"),
+        p("residual model"),
+        p("static err"),
+        p("residual err"),
+        p("drop"),
+        p("drop model"),
+        q("avail field"),
+        q("avail model"),
+        "findings".to_string(),
+    ];
+    let columns: Vec<(&str, Align)> = headers
+        .iter()
+        .enumerate()
+        .map(|(i, h)| {
+            let align = if i < 2 || i == 12 {
+                Align::Left
+            } else {
+                Align::Right
+            };
+            (h.as_str(), align)
+        })
+        .collect();
+    let mut table = TextTable::new(&columns)
     .free_text_last();
     for c in rows {
         let mut flags: Vec<String> = c
@@ -136,6 +161,12 @@ fn table(rows: &[ModelComparison], target: f64, pressure: &str, flow: &str) -> S
         }
         if c.negative_pressure_somewhere {
             flags.push("warn: the model shows negative pressure somewhere while flowing".into());
+        }
+        if left_out(c.row) {
+            flags.insert(
+                0,
+                "LEFT OUT use: left out on the sheet (use = no); not used by calibrate".into(),
+            );
         }
         let field_available = match c.field_available {
             AvailableFlow::Undefined => None,
@@ -170,7 +201,7 @@ fn table(rows: &[ModelComparison], target: f64, pressure: &str, flow: &str) -> S
     let _ = write!(out, "{}", table.text(""));
     let _ = writeln!(
         out,
-        "\nS static, R residual, d = measured - modelled, Q fld = NFPA 291 extrapolation of the field\nreadings, Q mod = the model's flow at the target.\nCaution: {CAUTION}"
+        "\nerr = measured minus modelled; avail field = NFPA 291 extrapolation of the field readings to the\ntarget, avail model = the model's flow at the target.\nCaution: {CAUTION}"
     );
     out
 }

@@ -286,6 +286,8 @@ pub struct ExcludedTest {
     pub test_id: String,
     pub row: usize,
     pub reason: String,
+    /// Left out by choice (`use = no` on the sheet) rather than screened out by an error.
+    pub left_out: bool,
 }
 
 /// The modelled static pressure head at every junction, for the network as written and for each of its
@@ -368,6 +370,9 @@ pub fn with_static_findings(
     reading
 }
 
+/// Why a test with `use = no` is not in the fit (the words "left out" are a contract of `--json`).
+pub const LEFT_OUT_REASON: &str = "left out on the sheet (use = no)";
+
 /// What a calibration is given from a screened sheet.
 #[derive(Debug, Clone, Default, PartialEq)]
 pub struct CalibrationInput {
@@ -409,10 +414,20 @@ pub fn calibration_input(net: &Network, reading: &SheetReading) -> CalibrationIn
             },
             |t| t.test_id.clone(),
         );
+        if reading.is_left_out(row) {
+            excluded.push(ExcludedTest {
+                test_id,
+                row,
+                reason: LEFT_OUT_REASON.to_string(),
+                left_out: true,
+            });
+            continue;
+        }
         if !errors.is_empty() {
             excluded.push(ExcludedTest {
                 test_id,
                 row,
+                left_out: false,
                 reason: errors
                     .iter()
                     .map(|f| format!("{}: {}", f.column, f.reason))
@@ -437,6 +452,7 @@ pub fn calibration_input(net: &Network, reading: &SheetReading) -> CalibrationIn
             None => excluded.push(ExcludedTest {
                 test_id,
                 row,
+                left_out: false,
                 reason: "a node or condition of the test is not in the network".into(),
             }),
         }
