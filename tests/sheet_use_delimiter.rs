@@ -121,13 +121,13 @@ fn use_yes_blank_and_case_keep_a_test_anything_else_is_an_error() {
 
 const COMMA: &str = "test,residual_node,flow_node,static_psi,residual_psi,flow_gpm,note\n\
                      T1,H1,H2,60.5,45.5,1000,\"a, b\"\n\
-                     T2,H3,H4;H5,72,50,1200,\n";
+                     T2,H3,H4;H5,72,50,600;600,\n";
 const SEMICOLON: &str = "test;residual_node;flow_node;static_psi;residual_psi;flow_gpm;note\n\
                          T1;H1;H2;60,5;45,5;1000;a, b\n\
-                         T2;H3;\"H4;H5\";72;50;1200;\n";
+                         T2;H3;\"H4;H5\";72;50;\"600;600\";\n";
 const TAB: &str = "test\tresidual_node\tflow_node\tstatic_psi\tresidual_psi\tflow_gpm\tnote\n\
                    T1\tH1\tH2\t60,5\t45.5\t1000\ta, b\n\
-                   T2\tH3\tH4;H5\t72\t50\t1200\t\n";
+                   T2\tH3\tH4;H5\t72\t50\t600;600\t\n";
 
 #[test]
 fn the_separator_is_read_from_the_header_line() {
