@@ -157,6 +157,11 @@ pub enum SheetErrorKind {
         other: String,
         other_units: &'static str,
     },
+    #[error(
+        "the header line is a single column whose name holds `{0}`: cells seem separated by `{0}`; \
+         separate them with commas, semicolons or tabs"
+    )]
+    UnknownSeparator(char),
     #[error("a row is longer than the sheet reader accepts ({0} bytes)")]
     RowTooLong(usize),
 }
@@ -302,13 +307,13 @@ pub fn detect_delimiter(text: &str) -> u8 {
     }
 }
 
-/// The separator's name as a crew would say it, for messages and summaries.
-pub fn delimiter_name(delimiter: u8) -> &'static str {
-    match delimiter {
-        b';' => "semicolon",
-        b'\t' => "tab",
-        _ => "comma",
-    }
+/// For a header read as one column: the first character of its name that no column name holds (a
+/// separator other than `,`, `;` or tab, such as `|`), if any.
+fn unknown_separator(headers: &[String]) -> Option<char> {
+    let [only] = headers else { return None };
+    only.trim()
+        .chars()
+        .find(|c| !(c.is_alphanumeric() || *c == '_' || *c == ' '))
 }
 
 fn column_slot(column: SheetColumn) -> usize {
@@ -405,8 +410,17 @@ impl FieldSheet {
         let Some((headers, header_line)) = headers else {
             return Err(error(Some(1), None, SheetErrorKind::Empty));
         };
-        let (units, columns) = Self::classify_header(&headers)
-            .map_err(|(column, kind)| error(Some(header_line), Some(column), kind))?;
+        let (units, columns) =
+            Self::classify_header(&headers).map_err(|(column, kind)| {
+                match (&kind, unknown_separator(&headers)) {
+                    (SheetErrorKind::MissingColumn(_), Some(separator)) => error(
+                        Some(header_line),
+                        None,
+                        SheetErrorKind::UnknownSeparator(separator),
+                    ),
+                    _ => error(Some(header_line), Some(column), kind),
+                }
+            })?;
         Ok(FieldSheet {
             file_name: file_name.to_string(),
             headers,
