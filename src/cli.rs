@@ -291,6 +291,20 @@ fn make_demo(root: &std::path::Path) -> anyhow::Result<ExitCode> {
     Ok(ExitCode::SUCCESS)
 }
 
+/// Today's UTC date as YYYY-MM-DD; `SOURCE_DATE_EPOCH` (seconds, the reproducible-builds convention)
+/// overrides the clock so a re-run can give the same bytes.
+pub fn today_utc() -> String {
+    let seconds = std::env::var("SOURCE_DATE_EPOCH")
+        .ok()
+        .and_then(|s| s.trim().parse::<i64>().ok())
+        .unwrap_or_else(|| {
+            std::time::SystemTime::now()
+                .duration_since(std::time::UNIX_EPOCH)
+                .map_or(0, |d| i64::try_from(d.as_secs()).unwrap_or(0))
+        });
+    roughcal::report::civil_date(seconds.div_euclid(86_400))
+}
+
 /// Loads a network file; an invalid file has every diagnostic printed to stderr and yields `None` (the
 /// caller exits 1), an unreadable one is an error.
 pub fn load_network_or_report(

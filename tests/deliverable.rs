@@ -90,10 +90,7 @@ fn a_test_with_use_no_is_left_out_apart_from_screened_out_ones_everywhere() {
         out.to_str().unwrap(),
     ]));
     let excluded = calibrated["excluded"].as_array().unwrap();
-    let left: Vec<&Value> = excluded
-        .iter()
-        .filter(|e| e["test"] == "AF-05")
-        .collect();
+    let left: Vec<&Value> = excluded.iter().filter(|e| e["test"] == "AF-05").collect();
     assert_eq!(left.len(), 1, "{excluded:?}");
     assert!(left[0]["reason"].as_str().unwrap().contains("left out"));
     assert_eq!(left[0]["left_out"], true);
@@ -107,7 +104,10 @@ fn a_test_with_use_no_is_left_out_apart_from_screened_out_ones_everywhere() {
         .iter()
         .map(|t| t["test"].as_str().unwrap())
         .collect();
-    assert!(!used.contains(&"AF-05") && used.contains(&"AF-06"), "{used:?}");
+    assert!(
+        !used.contains(&"AF-05") && used.contains(&"AF-06"),
+        "{used:?}"
+    );
 
     let tests = json_of(&roughcal(&["tests", NETWORK, sheet, "--json"]));
     let row = |id: &str| {
@@ -149,7 +149,12 @@ fn fire_flow_per_test_from_the_field_and_the_model_before_and_after() {
         out.to_str().unwrap(),
     ]));
     let path = out.join("calibrated.toml");
-    let after = json_of(&roughcal(&["tests", path.to_str().unwrap(), SHEET, "--json"]));
+    let after = json_of(&roughcal(&[
+        "tests",
+        path.to_str().unwrap(),
+        SHEET,
+        "--json",
+    ]));
     let tests = calibrated["tests"].as_array().unwrap();
     assert_eq!(tests.len(), 17);
     for t in tests {
@@ -194,7 +199,10 @@ fn fire_flow_per_test_from_the_field_and_the_model_before_and_after() {
         "{first}"
     );
     let report = std::fs::read_to_string(out.join("report.md")).unwrap();
-    assert!(report.contains("| field | model before | model after |"), "{report}");
+    assert!(
+        report.contains("| field | model before | model after |"),
+        "{report}"
+    );
 }
 
 #[test]
@@ -284,7 +292,9 @@ fn the_report_and_calibrated_toml_say_what_was_run_when_on_which_files() {
     let calibrated = std::fs::read_to_string(out.join("calibrated.toml")).unwrap();
     let header = calibrated.lines().next().unwrap();
     assert!(
-        header.starts_with(&format!("# Calibration of {NETWORK} from the field sheet {SHEET}")),
+        header.starts_with(&format!(
+            "# Calibration of {NETWORK} from the field sheet {SHEET}"
+        )),
         "{header}"
     );
     assert!(header.contains(date), "{header}");
@@ -353,7 +363,8 @@ fn every_argument_and_flag_has_help_text_and_a_bare_roughcal_opens_the_demo() {
                 in_list = false;
             }
             let entry = line.trim_start();
-            let is_entry = entry.starts_with('-') || entry.starts_with('<') || entry.starts_with('[');
+            let is_entry =
+                entry.starts_with('-') || entry.starts_with('<') || entry.starts_with('[');
             if !in_list || !is_entry {
                 continue;
             }
@@ -370,4 +381,31 @@ fn every_argument_and_flag_has_help_text_and_a_bare_roughcal_opens_the_demo() {
             );
         }
     }
+}
+
+#[test]
+fn the_run_date_follows_source_date_epoch() {
+    // 2000-03-01 is day 11017 of the Unix epoch (see civil_dates_from_days_since_1970).
+    let dir = tempfile::tempdir().unwrap();
+    let out = dir.path().join("out");
+    let run = Command::new(env!("CARGO_BIN_EXE_roughcal"))
+        .current_dir(root())
+        .env(
+            "SOURCE_DATE_EPOCH",
+            (11_017_i64 * 86_400 + 3_600).to_string(),
+        )
+        .args(["calibrate", NETWORK, SHEET, "--out", out.to_str().unwrap()])
+        .output()
+        .unwrap();
+    assert!(run.status.success());
+    let report = std::fs::read_to_string(out.join("report.md")).unwrap();
+    assert!(report.contains("- Run: 2000-03-01, roughcal "), "{report}");
+    let calibrated = std::fs::read_to_string(out.join("calibrated.toml")).unwrap();
+    assert!(
+        calibrated
+            .lines()
+            .next()
+            .unwrap()
+            .contains("made on 2000-03-01")
+    );
 }

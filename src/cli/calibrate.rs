@@ -14,8 +14,8 @@ use roughcal::fieldtest::{
 use roughcal::network::Network;
 use roughcal::network::file::parse_network;
 use roughcal::report::{
-    CalibrationOutputs, OutputWriteError, Provenance, RunContext, civil_date, existing_outputs,
-    json_summary, sha256_hex, text_summary, write_outputs,
+    CalibrationOutputs, OutputWriteError, Provenance, RunContext, existing_outputs, json_summary,
+    sha256_hex, text_summary, write_outputs,
 };
 
 use super::{FitTarget, load_network_or_report};
@@ -97,7 +97,7 @@ pub fn run(args: Args) -> anyhow::Result<ExitCode> {
     }
     if let Some(out) = &args.out {
         let provenance = Provenance {
-            run_date: today_utc(),
+            run_date: super::today_utc(),
             network_sha256: Some(sha256_hex(network_text.as_bytes())),
             sheet_sha256: std::fs::read(&args.sheet).ok().map(|b| sha256_hex(&b)),
             test_dates: reading
@@ -122,14 +122,6 @@ pub fn run(args: Args) -> anyhow::Result<ExitCode> {
         return Ok(ExitCode::from(1));
     }
     Ok(ExitCode::SUCCESS)
-}
-
-/// Today's date (UTC) as YYYY-MM-DD, from the system clock.
-fn today_utc() -> String {
-    let seconds = std::time::SystemTime::now()
-        .duration_since(std::time::UNIX_EPOCH)
-        .map_or(0, |d| d.as_secs());
-    civil_date(i64::try_from(seconds / 86_400).unwrap_or(0))
 }
 
 fn roughcal_not_converged(result: &core::CalibrationResult) -> String {

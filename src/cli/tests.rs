@@ -139,8 +139,7 @@ fn table(
             (h.as_str(), align)
         })
         .collect();
-    let mut table = TextTable::new(&columns)
-    .free_text_last();
+    let mut table = TextTable::new(&columns).free_text_last();
     for c in rows {
         let mut flags: Vec<String> = c
             .findings

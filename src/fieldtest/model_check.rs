@@ -285,6 +285,8 @@ pub(crate) fn model_available_flow(
 pub struct ExcludedTest {
     pub test_id: String,
     pub row: usize,
+    /// 1-based line of the sheet file (the row numbering every output uses).
+    pub line: usize,
     pub reason: String,
     /// Left out by choice (`use = no` on the sheet) rather than screened out by an error.
     pub left_out: bool,
@@ -414,10 +416,16 @@ pub fn calibration_input(net: &Network, reading: &SheetReading) -> CalibrationIn
             },
             |t| t.test_id.clone(),
         );
+        // A row that read as no test still has findings, and every finding has its line.
+        let line = test
+            .map(|t| t.line)
+            .or_else(|| reading.findings_for_row(row).next().map(|f| f.line))
+            .unwrap_or(row + 2);
         if reading.is_left_out(row) {
             excluded.push(ExcludedTest {
                 test_id,
                 row,
+                line,
                 reason: LEFT_OUT_REASON.to_string(),
                 left_out: true,
             });
@@ -427,6 +435,7 @@ pub fn calibration_input(net: &Network, reading: &SheetReading) -> CalibrationIn
             excluded.push(ExcludedTest {
                 test_id,
                 row,
+                line,
                 left_out: false,
                 reason: errors
                     .iter()
@@ -452,6 +461,7 @@ pub fn calibration_input(net: &Network, reading: &SheetReading) -> CalibrationIn
             None => excluded.push(ExcludedTest {
                 test_id,
                 row,
+                line,
                 left_out: false,
                 reason: "a node or condition of the test is not in the network".into(),
             }),

@@ -91,7 +91,7 @@ pub fn json_summary(run: &RunContext<'_>) -> Value {
     let excluded: Vec<Value> = run
         .excluded
         .iter()
-        .map(|e| json!({"test": e.test_id, "data_row": e.row + 1, "reason": e.reason, "left_out": e.left_out}))
+        .map(|e| json!({"test": e.test_id, "data_row": e.row + 1, "line": e.line, "reason": e.reason, "left_out": e.left_out}))
         .collect();
     json!({
         "groups": groups,

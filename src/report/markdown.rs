@@ -4,9 +4,9 @@ use std::fmt::Write as _;
 
 use crate::calibrate::{CAUTION, INFORMED_C_CHANGE};
 
-use super::{Provenance, RunContext, VERSION, count_of};
 use super::sections;
 use super::table::{Align, TextTable};
+use super::{Provenance, RunContext, VERSION, count_of};
 
 /// The whole report: caution first, then inputs and method, groups, correlation, statistics before and
 /// after (overall and per test), groups no test informs, and the optimizer's iterations.
@@ -47,9 +47,7 @@ fn report(run: &RunContext<'_>, provenance: Option<&Provenance>) -> String {
         .filter(|d| !d.is_empty())
         .unwrap_or("not recorded");
     let _ = writeln!(out, "- Run: {run_date}, roughcal {VERSION}");
-    let hash = |h: Option<&String>| {
-        h.map_or_else(String::new, |h| format!(", SHA-256 `{h}`"))
-    };
+    let hash = |h: Option<&String>| h.map_or_else(String::new, |h| format!(", SHA-256 `{h}`"));
     let _ = writeln!(
         out,
         "- Network: `{}`{}",
@@ -227,13 +225,13 @@ fn report(run: &RunContext<'_>, provenance: Option<&Provenance>) -> String {
 fn excluded_table(excluded: &[&super::ExcludedTest]) -> TextTable {
     let mut table = TextTable::new(&[
         ("test", Align::Left),
-        ("sheet data row", Align::Right),
+        ("sheet line", Align::Right),
         ("reason", Align::Left),
     ]);
     for e in excluded {
         table.row(vec![
             e.test_id.clone(),
-            (e.row + 1).to_string(),
+            e.line.to_string(),
             e.reason.clone(),
         ]);
     }

@@ -214,7 +214,10 @@ fn strip_leading_comments(text: &str) -> &str {
             break;
         }
         rest = &rest[line.len()..];
-        rest = rest.strip_prefix("\r\n").or_else(|| rest.strip_prefix('\n')).unwrap_or(rest);
+        rest = rest
+            .strip_prefix("\r\n")
+            .or_else(|| rest.strip_prefix('\n'))
+            .unwrap_or(rest);
         if rest.is_empty() {
             break;
         }

@@ -19,7 +19,7 @@ use super::{ReportError, RunContext};
 pub const PIPES_CSV_HEADER: [&str; 4] = ["pipe", "group", "c_before", "c_after"];
 
 /// `pipes.csv`: one row per pipe (pumps are not pipes), in the network's order. C values are written
-/// in full (shortest text that reads back to the same number), as in `calibrated.toml`.
+/// in full (shortest text that reads back to the same number), as in `coefficients.toml`.
 pub fn pipes_csv(network: &Network, pipe_c_after: &[f64]) -> Result<String, ReportError> {
     if pipe_c_after.len() != network.pipes.len() {
         return Err(ReportError::PipeCount {

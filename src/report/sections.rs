@@ -238,13 +238,13 @@ pub fn standardised_residuals(run: &RunContext<'_>, i: usize) -> Vec<(&'static s
     let Some(t) = run.result.tests.get(i) else {
         return Vec::new();
     };
-    let sd = run.network.units.pressure_from_head_m(run.options.gauge_sd_m);
+    let sd = run
+        .network
+        .units
+        .pressure_from_head_m(run.options.gauge_sd_m);
     match run.result.fit {
         FitTarget::Pressures => vec![
-            (
-                "static",
-                (t.measured_static - t.modelled_static_after) / sd,
-            ),
+            ("static", (t.measured_static - t.modelled_static_after) / sd),
             (
                 "residual",
                 (t.measured_residual - t.modelled_residual_after) / sd,
@@ -253,7 +253,10 @@ pub fn standardised_residuals(run: &RunContext<'_>, i: usize) -> Vec<(&'static s
         FitTarget::Drop => {
             let measured = t.measured_static - t.measured_residual;
             let modelled = t.modelled_static_after - t.modelled_residual_after;
-            vec![("drop", (measured - modelled) / (sd * std::f64::consts::SQRT_2))]
+            vec![(
+                "drop",
+                (measured - modelled) / (sd * std::f64::consts::SQRT_2),
+            )]
         }
     }
 }

@@ -33,7 +33,11 @@ pub fn text_summary(run: &RunContext<'_>) -> String {
         } else {
             "excluded"
         };
-        let _ = writeln!(out, "    {word} {}: {}", excluded.test_id, excluded.reason);
+        let _ = writeln!(
+            out,
+            "    {word} {} (line {}): {}",
+            excluded.test_id, excluded.line, excluded.reason
+        );
     }
     for warning in sections::warning_lines(run) {
         let _ = writeln!(out, "    warning (kept in the fit) {warning}");
