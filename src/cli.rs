@@ -163,6 +163,13 @@ pub enum Command {
         /// No junction may fall below this while the hydrants flow (psi or kPa); default 20 psi / 140 kPa.
         #[arg(long = "min-residual", allow_negative_numbers = true)]
         min_residual: Option<f64>,
+        /// Write a printable plan to this markdown file and, beside it with the extension .csv, a field
+        /// sheet of the planned tests with the readings left blank for the crew.
+        #[arg(long, value_name = "PLAN.md")]
+        out: Option<PathBuf>,
+        /// Overwrite the plan files if they exist.
+        #[arg(long, requires = "out")]
+        force: bool,
         /// Machine-readable output (JSON on stdout).
         #[arg(long)]
         json: bool,
@@ -405,6 +412,8 @@ pub fn run(cli: Cli) -> anyhow::Result<ExitCode> {
             max_distance,
             min_drop,
             min_residual,
+            out,
+            force,
             json,
         }) => plan::run(plan::Args {
             network,
@@ -414,6 +423,8 @@ pub fn run(cli: Cli) -> anyhow::Result<ExitCode> {
             max_distance,
             min_drop,
             min_residual,
+            out,
+            force,
             json,
         }),
         Some(Command::Apply {
