@@ -95,6 +95,10 @@ pub enum Command {
         // A negative value reaches the command's own message instead of being taken for a flag.
         #[arg(long, allow_negative_numbers = true)]
         target: Option<f64>,
+        /// The `coefficients.toml` of the fit that made NETWORK: its covariance gives each model
+        /// available flow a 95 % interval.
+        #[arg(long)]
+        coefficients: Option<PathBuf>,
         /// Machine-readable output (JSON on stdout).
         #[arg(long)]
         json: bool,
@@ -298,18 +302,9 @@ fn make_demo(root: &std::path::Path) -> anyhow::Result<ExitCode> {
     Ok(ExitCode::SUCCESS)
 }
 
-/// Today's UTC date as YYYY-MM-DD; `SOURCE_DATE_EPOCH` (seconds, the reproducible-builds convention)
-/// overrides the clock so a re-run can give the same bytes.
+/// Today's UTC date as YYYY-MM-DD ([`roughcal::storage::today_utc`]).
 pub fn today_utc() -> String {
-    let seconds = std::env::var("SOURCE_DATE_EPOCH")
-        .ok()
-        .and_then(|s| s.trim().parse::<i64>().ok())
-        .unwrap_or_else(|| {
-            std::time::SystemTime::now()
-                .duration_since(std::time::UNIX_EPOCH)
-                .map_or(0, |d| i64::try_from(d.as_secs()).unwrap_or(0))
-        });
-    roughcal::report::civil_date(seconds.div_euclid(86_400))
+    roughcal::storage::today_utc()
 }
 
 /// Loads a network file; an invalid file has every diagnostic printed to stderr and yields `None` (the
@@ -374,8 +369,9 @@ pub fn run(cli: Cli) -> anyhow::Result<ExitCode> {
             network,
             sheet,
             target,
+            coefficients,
             json,
-        }) => tests::run(&network, &sheet, target, json),
+        }) => tests::run(&network, &sheet, target, coefficients.as_deref(), json),
         Some(Command::Fireflow {
             sheet,
             target,

@@ -192,6 +192,48 @@ fn fire_flow_per_test_from_the_field_and_the_model_before_and_after() {
         let (lo, hi) = (ci[0].as_f64().unwrap(), ci[1].as_f64().unwrap());
         assert!(lo <= model_after && model_after <= hi, "{id}: {lo} {hi}");
     }
+    // Issue 15: the same 95 % interval from `tests` on calibrated.toml with the fit's coefficient set
+    // (its [covariance]); first order through the C covariance (the delta method, e.g. Casella and
+    // Berger, Statistical Inference, 5.5.4, from memory), so it matches calibrate's within the 0.1
+    // rounding of calibrated.toml's C.
+    let coefficients = out.join("coefficients.toml");
+    let with_ci = json_of(&roughcal(&[
+        "tests",
+        path.to_str().unwrap(),
+        SHEET,
+        "--coefficients",
+        coefficients.to_str().unwrap(),
+        "--json",
+    ]));
+    for t in tests {
+        let row = with_ci["tests"]
+            .as_array()
+            .unwrap()
+            .iter()
+            .find(|r| r["test"] == t["test"])
+            .unwrap();
+        for k in 0..2 {
+            let ours = row["model_available_flow_ci"][k].as_f64().unwrap();
+            let theirs = t["model_available_flow_ci"][k].as_f64().unwrap();
+            assert!((ours - theirs).abs() <= 0.005 * theirs, "{row} {t}");
+        }
+    }
+    // Without the set no interval is claimed; a set without [covariance] is refused by name.
+    let row = &after["tests"][0];
+    assert!(row["model_available_flow_ci"].is_null(), "{row}");
+    let bare = dir.path().join("bare.toml");
+    let text = std::fs::read_to_string(&coefficients).unwrap();
+    std::fs::write(&bare, &text[..text.find("[covariance]").unwrap()]).unwrap();
+    let refused = roughcal(&[
+        "tests",
+        path.to_str().unwrap(),
+        SHEET,
+        "--coefficients",
+        bare.to_str().unwrap(),
+    ]);
+    assert_eq!(refused.status.code(), Some(1));
+    assert!(String::from_utf8_lossy(&refused.stderr).contains("no [covariance]"));
+
     let first = &tests[0];
     assert!(
         first["model_available_flow_before"].as_f64().unwrap()

@@ -15,7 +15,7 @@ use roughcal::network::Network;
 use roughcal::network::file::parse_network;
 use roughcal::report::{
     CalibrationOutputs, OutputWriteError, Provenance, RunContext, existing_outputs, json_summary,
-    sha256_hex, text_summary, write_outputs,
+    text_summary, write_outputs,
 };
 
 use super::{FitTarget, load_network_or_report};
@@ -96,16 +96,14 @@ pub fn run(args: Args) -> anyhow::Result<ExitCode> {
         print!("{}", text_summary(&run));
     }
     if let Some(out) = &args.out {
-        let provenance = Provenance {
-            run_date: super::today_utc(),
-            network_sha256: Some(sha256_hex(network_text.as_bytes())),
-            sheet_sha256: std::fs::read(&args.sheet).ok().map(|b| sha256_hex(&b)),
-            test_dates: reading
-                .tests
-                .iter()
-                .map(|t| (t.test_id.clone(), t.date.clone()))
-                .collect(),
-        };
+        let sheet_bytes = std::fs::read(&args.sheet)
+            .with_context(|| format!("cannot read field sheet {sheet_file}"))?;
+        let provenance = Provenance::of(
+            super::today_utc(),
+            network_text.as_bytes(),
+            &sheet_bytes,
+            &reading,
+        );
         let outputs = CalibrationOutputs::build_delivered(&run, &network_text, &provenance)?;
         let written = write_outputs(out, &outputs, args.force)?;
         for path in written {

@@ -1,15 +1,19 @@
 //! `roughcal tests NETWORK SHEET [--target T] [--json]`: every field test next to the model.
 
+use std::collections::BTreeMap;
 use std::fmt::Write as _;
 use std::path::Path;
 use std::process::ExitCode;
 
 use anyhow::bail;
+use roughcal::calibrate::fireflow::fire_flow_estimates;
 use roughcal::fieldtest::{
-    AvailableFlow, ModelComparison, Severity, compare_with_model, default_target, load_sheet,
-    screen_sheet,
+    AvailableFlow, ModelComparison, Severity, SheetReading, calibration_input, compare_with_model,
+    default_target, load_sheet, screen_sheet,
 };
+use roughcal::network::Network;
 use roughcal::network::file::load_network_file;
+use roughcal::report::load_coefficients;
 use roughcal::report::table::{Align, TextTable};
 use serde_json::json;
 
@@ -21,6 +25,7 @@ pub fn run(
     network_path: &Path,
     sheet_path: &Path,
     target: Option<f64>,
+    coefficients: Option<&Path>,
     json: bool,
 ) -> anyhow::Result<ExitCode> {
     let Some(loaded) = load_network_or_report(network_path, load_network_file)? else {
@@ -41,6 +46,11 @@ pub fn run(
     let net = &loaded.network;
     let reading = screen_sheet(&sheet, Some(net));
     let comparisons = compare_with_model(net, &reading, target)?;
+    let intervals = match coefficients {
+        Some(path) => intervals(net, &reading, path, units.pressure_to_head_m(target))?,
+        None => BTreeMap::new(),
+    };
+    let interval = |id: &str| intervals.get(id).copied();
     if json {
         let tests: Vec<_> = comparisons
             .iter()
@@ -61,6 +71,7 @@ pub fn run(
                     "total_flow": c.total_flow,
                     "field_available_flow": c.field_available.value(),
                     "model_available_flow": c.model_available,
+                    "model_available_flow_ci": interval(&c.test_id).map(|(lo, hi)| [lo, hi]),
                     "use": !reading.is_left_out(c.row),
                     "usable": c.read
                         && !c.has_error()
@@ -85,6 +96,7 @@ pub fn run(
             table(
                 &comparisons,
                 &|row| reading.is_left_out(row),
+                &interval,
                 target,
                 units.pressure_label(),
                 units.flow_label()
@@ -94,6 +106,54 @@ pub fn run(
     Ok(ExitCode::SUCCESS)
 }
 
+/// The 95 % interval of each usable test's model available flow (network flow unit), by test id,
+/// propagated to first order from the covariance in the coefficient set (the delta method, as in
+/// `calibrate`).
+fn intervals(
+    net: &Network,
+    reading: &SheetReading,
+    path: &Path,
+    target_head_m: f64,
+) -> anyhow::Result<BTreeMap<String, (f64, f64)>> {
+    let set = load_coefficients(path)?;
+    let Some(covariance) = set.covariance else {
+        bail!(
+            "{}: no [covariance] to give intervals with; use the coefficients.toml that `calibrate --out` wrote",
+            path.display()
+        );
+    };
+    let mut group_pipes = Vec::with_capacity(covariance.groups.len());
+    for name in &covariance.groups {
+        let Some(g) = net.groups.iter().position(|g| &g.name == name) else {
+            bail!(
+                "{}: [covariance] names group `{name}`, which the network does not have",
+                path.display()
+            );
+        };
+        group_pipes.push(
+            net.pipes
+                .iter()
+                .enumerate()
+                .filter(|(_, p)| p.group == Some(g))
+                .map(|(k, _)| k)
+                .collect(),
+        );
+    }
+    let input = calibration_input(net, reading);
+    let estimates = fire_flow_estimates(
+        net,
+        &input.tests,
+        &net.c_factors(),
+        &group_pipes,
+        &covariance.matrix,
+        target_head_m,
+    )?;
+    Ok(estimates
+        .into_iter()
+        .filter_map(|e| e.ci95.map(|ci| (e.test_id, ci)))
+        .collect())
+}
+
 fn number(value: Option<f64>, decimals: usize) -> String {
     value.map_or_else(|| "-".into(), |v| format!("{v:.decimals$}"))
 }
@@ -101,6 +161,7 @@ fn number(value: Option<f64>, decimals: usize) -> String {
 fn table(
     rows: &[ModelComparison],
     left_out: &dyn Fn(usize) -> bool,
+    interval: &dyn Fn(&str) -> Option<(f64, f64)>,
     target: f64,
     pressure: &str,
     flow: &str,
@@ -125,13 +186,14 @@ fn table(
         p("drop model"),
         q("avail field"),
         q("avail model"),
+        q("avail model 95 %"),
         "findings".to_string(),
     ];
     let columns: Vec<(&str, Align)> = headers
         .iter()
         .enumerate()
         .map(|(i, h)| {
-            let align = if i < 2 || i == 12 {
+            let align = if i < 2 || i == 13 {
                 Align::Left
             } else {
                 Align::Right
@@ -188,11 +250,13 @@ fn table(
             number(c.modelled_drop(), 1),
             number(field_available, 0),
             number(c.model_available, 0),
+            interval(&c.test_id)
+                .map_or_else(|| "-".to_string(), |(lo, hi)| format!("{lo:.0} to {hi:.0}")),
             flags.first().cloned().unwrap_or_default(),
         ]);
         // Further findings of the same test go on under its first.
         for flag in flags.iter().skip(1) {
-            let mut cells = vec![String::new(); 12];
+            let mut cells = vec![String::new(); 13];
             cells.push(flag.clone());
             table.row(cells);
         }
@@ -200,7 +264,7 @@ fn table(
     let _ = write!(out, "{}", table.text(""));
     let _ = writeln!(
         out,
-        "\nerr = measured minus modelled; avail field = NFPA 291 extrapolation of the field readings to the\ntarget, avail model = the model's flow at the target.\nCaution: {CAUTION}"
+        "\nerr = measured minus modelled; avail field = NFPA 291 extrapolation of the field readings to the\ntarget, avail model = the model's flow at the target; its 95 % interval (with --coefficients) is\nfirst order through the fit's C covariance.\nCaution: {CAUTION}"
     );
     out
 }

@@ -113,6 +113,27 @@ pub struct Provenance {
     pub test_dates: BTreeMap<String, String>,
 }
 
+impl Provenance {
+    /// The provenance of a run on `network` and `sheet` (the bytes as read) whose tests are `reading`.
+    pub fn of(
+        run_date: String,
+        network: &[u8],
+        sheet: &[u8],
+        reading: &crate::fieldtest::SheetReading,
+    ) -> Self {
+        Self {
+            run_date,
+            network_sha256: Some(sha256_hex(network)),
+            sheet_sha256: Some(sha256_hex(sheet)),
+            test_dates: reading
+                .tests
+                .iter()
+                .map(|t| (t.test_id.clone(), t.date.clone()))
+                .collect(),
+        }
+    }
+}
+
 /// SHA-256 of `bytes` as lower-case hex (FIPS 180-4).
 pub fn sha256_hex(bytes: &[u8]) -> String {
     use sha2::Digest as _;
