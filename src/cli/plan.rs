@@ -17,7 +17,6 @@ use roughcal::fieldtest::{
 };
 use roughcal::network::Network;
 use roughcal::network::file::load_network_file;
-use roughcal::report::civil_date;
 use roughcal::report::table::{Align, TextTable};
 use roughcal::storage;
 use serde_json::json;
@@ -98,7 +97,7 @@ pub fn run(args: Args) -> anyhow::Result<ExitCode> {
         let context = PlanFiles {
             network_file: &args.network.display().to_string(),
             sheet_file: &args.sheet.display().to_string(),
-            run_date: &today_utc(),
+            run_date: &super::today_utc(),
         };
         let files = [
             (md, plan_markdown(&net, &plan, &options, &context)),
@@ -115,14 +114,6 @@ pub fn run(args: Args) -> anyhow::Result<ExitCode> {
         }
     }
     Ok(ExitCode::SUCCESS)
-}
-
-/// Today's date (UTC) as YYYY-MM-DD, from the system clock.
-fn today_utc() -> String {
-    let seconds = std::time::SystemTime::now()
-        .duration_since(std::time::UNIX_EPOCH)
-        .map_or(0, |d| d.as_secs());
-    civil_date(i64::try_from(seconds / 86_400).unwrap_or(0))
 }
 
 /// Where a printable plan came from.
