@@ -284,7 +284,7 @@ impl CalibrationOutputs {
                     *c = (*c * 10.0).round() / 10.0;
                 }
                 let text = calibrated_network(network_text, run.network, &rounded)?;
-                let body = text.trim_start_matches(|c: char| c == '\n');
+                let body = text.trim_start_matches('\n');
                 let body = strip_leading_comments(body);
                 format!("{}\n{body}", calibrated_header(run, p))
             }
