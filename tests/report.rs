@@ -643,7 +643,8 @@ fn calibrate_cli_writes_refuses_and_fails_when_not_converged() {
     ]);
     assert!(apply.status.success());
     let from_apply = crate::network(&std::fs::read_to_string(&applied).unwrap());
-    let mut delivered = crate::network(&std::fs::read_to_string(out.join(CALIBRATED_NETWORK)).unwrap());
+    let mut delivered =
+        crate::network(&std::fs::read_to_string(out.join(CALIBRATED_NETWORK)).unwrap());
     for (a, d) in from_apply.pipes.iter().zip(&mut delivered.pipes) {
         assert!((a.c_factor - d.c_factor).abs() <= 0.05 + 1e-9, "{}", a.id);
         assert_eq!(d.c_factor, (a.c_factor * 10.0).round() / 10.0, "{}", a.id);
