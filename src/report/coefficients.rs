@@ -1069,7 +1069,8 @@ mod tests {
         );
         assert_eq!(
             toml_error("title = \"x\"\n[[group]]\nname = \"ci\"\nc = 80\n"),
-            "set.toml:1: title: unknown key; expected one of group, units, hazen_williams_constant"
+            "set.toml:1: title: unknown key; expected one of group, units, hazen_williams_constant, \
+             covariance"
         );
         assert!(
             toml_error("[[group]]\nname = \"ci\nc = 80\n")
