@@ -22,7 +22,13 @@ mod ui;
 ///
 /// With no command, opens the terminal workbench on the bundled demo district.
 #[derive(Debug, Parser)]
-#[command(name = "roughcal", version, about, long_about = None)]
+#[command(
+    name = "roughcal",
+    version,
+    about,
+    long_about = None,
+    after_help = "Run `roughcal` with no command to open the terminal workbench on the bundled demo district."
+)]
 pub struct Cli {
     #[command(subcommand)]
     pub command: Option<Command>,
@@ -61,6 +67,7 @@ pub enum Command {
     },
     /// Solve the steady state of a network (global gradient algorithm).
     Solve {
+        /// Network file (TOML).
         network: PathBuf,
         /// Boundary state to apply (a `[[condition]]` of the network).
         #[arg(long)]
@@ -74,6 +81,7 @@ pub enum Command {
     },
     /// Solve by loop corrections (Hardy Cross) and show each iteration.
     Loops {
+        /// Network file (TOML).
         network: PathBuf,
         /// Iteration limit (loop corrections converge slowly on large grids).
         #[arg(long, default_value_t = 500)]
@@ -81,32 +89,44 @@ pub enum Command {
         /// Balance the network under this `[[condition]]` of the file.
         #[arg(long)]
         condition: Option<String>,
+        /// Machine-readable output (JSON on stdout).
         #[arg(long)]
         json: bool,
     },
     /// Compare every field test of a sheet with the model.
     Tests {
+        /// Network file (TOML).
         network: PathBuf,
+        /// Field sheet (CSV).
         sheet: PathBuf,
         /// Target residual pressure for available flow (psi or kPa, the sheet's unit).
         // A negative value reaches the command's own message instead of being taken for a flag.
         #[arg(long, allow_negative_numbers = true)]
         target: Option<f64>,
+        /// The `coefficients.toml` of the fit that made NETWORK: its covariance gives each model
+        /// available flow a 95 % interval.
+        #[arg(long)]
+        coefficients: Option<PathBuf>,
+        /// Machine-readable output (JSON on stdout).
         #[arg(long)]
         json: bool,
     },
     /// Fire flow available at a target residual, from the sheet alone.
     Fireflow {
+        /// Field sheet (CSV).
         sheet: PathBuf,
         /// Target residual pressure (psi or kPa, the sheet's unit); default 20 psi / 140 kPa.
         #[arg(long, allow_negative_numbers = true)]
         target: Option<f64>,
+        /// Machine-readable output (JSON on stdout).
         #[arg(long)]
         json: bool,
     },
     /// Fit the C-factor of each roughness group to the field sheet.
     Calibrate {
+        /// Network file (TOML).
         network: PathBuf,
+        /// Field sheet (CSV).
         sheet: PathBuf,
         /// Folder to write the coefficient set, calibrated network, report and plot into.
         #[arg(long)]
@@ -114,7 +134,7 @@ pub enum Command {
         /// Overwrite outputs already in the folder.
         #[arg(long)]
         force: bool,
-        /// How the calibration compares model and field.
+        /// What the fit compares: static and residual pressures, or the drop alone.
         #[arg(long, value_parser = fit_target(), default_value = "pressures")]
         fit: FitTarget,
         /// Gauge accuracy, one standard deviation (psi or kPa); default 1 psi / 7 kPa.
@@ -129,12 +149,15 @@ pub enum Command {
         /// Iteration limit of the optimizer.
         #[arg(long = "max-iterations", default_value_t = 50)]
         max_iterations: u64,
+        /// Machine-readable output (JSON on stdout).
         #[arg(long)]
         json: bool,
     },
     /// Rank candidate flow tests by the information they would add to the fit of the sheet.
     Plan {
+        /// Network file (TOML).
         network: PathBuf,
+        /// Field sheet (CSV).
         sheet: PathBuf,
         /// Number of tests to plan (chosen greedily, each given the ones before).
         #[arg(long, default_value_t = 5)]
@@ -152,16 +175,27 @@ pub enum Command {
         /// No junction may fall below this while the hydrants flow (psi or kPa); default 20 psi / 140 kPa.
         #[arg(long = "min-residual", allow_negative_numbers = true)]
         min_residual: Option<f64>,
+        /// Write a printable plan to this markdown file and, beside it with the extension .csv, a field
+        /// sheet of the planned tests with the readings left blank for the crew.
+        #[arg(long, value_name = "PLAN.md")]
+        out: Option<PathBuf>,
+        /// Overwrite the plan files if they exist.
+        #[arg(long, requires = "out")]
+        force: bool,
+        /// Machine-readable output (JSON on stdout).
         #[arg(long)]
         json: bool,
     },
     /// Write a network with a coefficient set applied.
     Apply {
+        /// Network file (TOML).
         network: PathBuf,
         /// A `coefficients.toml` or `coefficients.csv` from `calibrate`.
         coefficients: PathBuf,
+        /// The network file to write.
         #[arg(long)]
         out: PathBuf,
+        /// Overwrite the output if it exists.
         #[arg(long)]
         force: bool,
     },
@@ -187,9 +221,19 @@ pub enum Command {
         json: bool,
     },
     /// Open the terminal workbench on a network and a field sheet (edits are saved to SHEET).
-    Open { network: PathBuf, sheet: PathBuf },
+    Open {
+        /// Network file (TOML).
+        network: PathBuf,
+        /// Field sheet (CSV); edits are saved to it.
+        sheet: PathBuf,
+    },
     /// Start a new, empty field sheet from the template and open the workbench on it.
-    New { network: PathBuf, sheet: PathBuf },
+    New {
+        /// Network file (TOML).
+        network: PathBuf,
+        /// The field sheet to start (CSV).
+        sheet: PathBuf,
+    },
     /// Regenerate the bundled demo district, its true C-factors and its field sheet (for maintainers).
     #[command(hide = true)]
     MakeDemo {
@@ -203,10 +247,13 @@ pub enum Command {
         /// The folder to write `city.toml` and `city.csv` into (created if needed).
         #[arg(long)]
         out: PathBuf,
+        /// Number of junctions.
         #[arg(long, default_value_t = 90_000)]
         junctions: usize,
+        /// Number of roughness groups.
         #[arg(long, default_value_t = 8)]
         groups: usize,
+        /// Number of field tests on the sheet.
         #[arg(long, default_value_t = 20)]
         tests: usize,
     },
@@ -261,6 +308,11 @@ fn make_demo(root: &std::path::Path) -> anyhow::Result<ExitCode> {
         println!("wrote {}", path.display());
     }
     Ok(ExitCode::SUCCESS)
+}
+
+/// Today's UTC date as YYYY-MM-DD ([`roughcal::storage::today_utc`]).
+pub fn today_utc() -> String {
+    roughcal::storage::today_utc()
 }
 
 /// A network file's load result for a command: an invalid file has every diagnostic printed to stderr
@@ -320,8 +372,9 @@ pub fn run(cli: Cli) -> anyhow::Result<ExitCode> {
             network,
             sheet,
             target,
+            coefficients,
             json,
-        }) => tests::run(&network, &sheet, target, json),
+        }) => tests::run(&network, &sheet, target, coefficients.as_deref(), json),
         Some(Command::Fireflow {
             sheet,
             target,
@@ -358,6 +411,8 @@ pub fn run(cli: Cli) -> anyhow::Result<ExitCode> {
             max_distance,
             min_drop,
             min_residual,
+            out,
+            force,
             json,
         }) => plan::run(plan::Args {
             network,
@@ -367,6 +422,8 @@ pub fn run(cli: Cli) -> anyhow::Result<ExitCode> {
             max_distance,
             min_drop,
             min_residual,
+            out,
+            force,
             json,
         }),
         Some(Command::Apply {

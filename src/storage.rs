@@ -305,6 +305,20 @@ fn create_temporary(folder: &Path, file_name: &str) -> io::Result<(PathBuf, File
     ))
 }
 
+/// Today's UTC date as YYYY-MM-DD, for the run date of outputs. `SOURCE_DATE_EPOCH` (seconds, the
+/// reproducible-builds convention) overrides the clock so a re-run can give the same bytes.
+pub fn today_utc() -> String {
+    let seconds = std::env::var("SOURCE_DATE_EPOCH")
+        .ok()
+        .and_then(|s| s.trim().parse::<i64>().ok())
+        .unwrap_or_else(|| {
+            SystemTime::now()
+                .duration_since(std::time::UNIX_EPOCH)
+                .map_or(0, |d| i64::try_from(d.as_secs()).unwrap_or(0))
+        });
+    crate::report::civil_date(seconds.div_euclid(86_400))
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;

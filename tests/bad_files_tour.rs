@@ -102,11 +102,11 @@ fn cases() -> Vec<Case> {
             says: "the file is empty",
         },
         Case {
-            what: "a spreadsheet export with semicolons",
-            file: ("export.csv", sheet(&us_sheet.replace(',', ";"))),
+            what: "an export with cells separated by |",
+            file: ("export.csv", sheet(&us_sheet.replace(',', "|"))),
             command: &["fireflow", "{}"],
             place: "export.csv:1:".into(),
-            says: "required column missing",
+            says: "cells seem separated by `|`",
         },
         Case {
             what: "a network with a typo'd key",

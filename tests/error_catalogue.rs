@@ -232,11 +232,20 @@ fn cli_outcomes(s: &Scratch) -> Vec<Outcome> {
         "findings (fireflow)",
         &["fireflow", sheet.to_str().unwrap()],
     ));
+    let use_sheet = s.file(
+        "use.csv",
+        format!("{HEADER},use\nHT-24,,,J-1,J-2,70,55,500,,,,,,maybe\n").as_bytes(),
+    );
+    out.push(s.run("use cell", &["tests", net, use_sheet.to_str().unwrap()]));
 
     let sheets: Vec<(&str, Vec<u8>)> = vec![
         ("binary sheet", b"test,static_psi\n\xff\xfe\x00".to_vec()),
         ("empty sheet", Vec::new()),
-        ("semicolons", HEADER.replace(',', ";").into_bytes()),
+        ("pipes", HEADER.replace(',', "|").into_bytes()),
+        (
+            "missing column",
+            HEADER.replace("residual_node,", "").into_bytes(),
+        ),
         (
             "duplicate column",
             format!("{HEADER},static_psi\n").into_bytes(),
@@ -975,28 +984,37 @@ fn every_row_finding_has_the_severity_the_catalogue_gives_it() {
         findings.push('\n');
     }
     let sheet = scratch.file("findings.csv", findings.as_bytes());
-    let out = Command::new(env!("CARGO_BIN_EXE_roughcal"))
-        .args([
-            "tests",
-            net.to_str().unwrap(),
-            sheet.to_str().unwrap(),
-            "--json",
-        ])
-        .output()
-        .unwrap();
-    let json: serde_json::Value = serde_json::from_slice(&out.stdout).expect("stdout is JSON");
-    let given: Vec<(String, String)> = json["tests"]
-        .as_array()
-        .unwrap()
-        .iter()
-        .flat_map(|t| t["findings"].as_array().unwrap().clone())
-        .map(|f| {
-            (
-                f["reason"].as_str().unwrap().to_string(),
-                f["severity"].as_str().unwrap().to_string(),
-            )
-        })
-        .collect();
+    // The `use` column is optional, so its finding comes from a sheet of its own.
+    let use_sheet = scratch.file(
+        "use.csv",
+        format!("{HEADER},use\nHT-24,,,J-1,J-2,70,55,500,,,,,,maybe\n").as_bytes(),
+    );
+    let mut given: Vec<(String, String)> = Vec::new();
+    for sheet in [sheet, use_sheet] {
+        let out = Command::new(env!("CARGO_BIN_EXE_roughcal"))
+            .args([
+                "tests",
+                net.to_str().unwrap(),
+                sheet.to_str().unwrap(),
+                "--json",
+            ])
+            .output()
+            .unwrap();
+        let json: serde_json::Value = serde_json::from_slice(&out.stdout).expect("stdout is JSON");
+        given.extend(
+            json["tests"]
+                .as_array()
+                .unwrap()
+                .iter()
+                .flat_map(|t| t["findings"].as_array().unwrap().clone())
+                .map(|f| {
+                    (
+                        f["reason"].as_str().unwrap().to_string(),
+                        f["severity"].as_str().unwrap().to_string(),
+                    )
+                }),
+        );
+    }
     for (phrase, severity) in severities {
         let matching: Vec<&(String, String)> = given
             .iter()

@@ -315,12 +315,18 @@ fn every_hostile_value_in_every_sheet_cell() {
 }
 
 #[test]
-fn spreadsheet_exports_with_semicolons_are_rejected_at_the_header() {
+fn spreadsheet_exports_with_semicolons_are_read_and_other_separators_named() {
+    // A `;` export is read with `;` between cells (the separator is taken from the header line).
     let text = SHEET.replace(',', ";");
+    let sheet = FieldSheet::parse(&text, "s.csv").unwrap();
+    assert_eq!(sheet.delimiter(), b';');
+    assert!(sheet.headers().len() > 1);
+    // A separator roughcal does not read is refused with the separator named.
+    let text = SHEET.replace(',', "|");
     let error = FieldSheet::parse(&text, "s.csv").unwrap_err();
     let shown = error.to_string();
     assert!(shown.starts_with("s.csv:1: "), "{shown}");
-    assert!(shown.contains("required column missing"), "{shown}");
+    assert!(shown.contains("cells seem separated by `|`"), "{shown}");
 }
 
 #[test]

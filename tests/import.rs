@@ -697,6 +697,7 @@ fn empty_result() -> roughcal::calibrate::CalibrationResult {
         correlation: vec![],
         covariance: vec![],
         fire_flow: vec![],
+        fire_flow_before: vec![],
         strongly_correlated: vec![],
         before: FitStatistics::of(&[], 1.0, 2.0),
         after: FitStatistics::of(&[], 1.0, 2.0),

@@ -336,9 +336,13 @@ fn groups_edits_are_written_into_the_network_file() {
     let dir = tempfile::tempdir().unwrap();
     let mut app = workbench(dir.path(), SHEET);
     let mut runner = Runner::new();
+    let before = std::fs::read_to_string(&app.session.network_path).unwrap();
     set_max_125_then_lock_ci_1950(&mut app, &mut runner);
     let text = std::fs::read_to_string(&app.session.network_path).unwrap();
     assert!(text.contains("max = 125"), "{:?}", app.message);
+    // The network as it was before the first edit is kept beside it, and later edits leave that copy.
+    let orig = roughcal::storage::original_copy_path(&app.session.network_path);
+    assert_eq!(std::fs::read_to_string(&orig).unwrap(), before);
     assert!(text.contains(
         "name = \"ci-1950\"  # unlined cast iron laid around 1950\nmin = 40.0\nmax = 125"
     ));
@@ -353,6 +357,7 @@ fn groups_edits_are_written_into_the_network_file() {
         std::fs::read_to_string(&app.session.network_path).unwrap(),
         text
     );
+    assert_eq!(std::fs::read_to_string(&orig).unwrap(), before);
 }
 
 #[test]

@@ -17,6 +17,7 @@ use crate::hydraulics::{GradientSolver, OperatingState, Solution, SolveError};
 use crate::network::Network;
 
 use super::CalibrationTest;
+use super::evaluate::map_over_threads;
 
 /// The model's flow available at the target residual for one test, after the fit.
 #[derive(Debug, Clone, PartialEq)]
@@ -106,51 +107,28 @@ pub fn fire_flow_estimates(
             (condition, base, solution)
         })
         .collect();
-    let threads = std::thread::available_parallelism()
-        .map_or(1, |n| n.get())
-        .clamp(1, tests.len().max(1));
-    let estimate_share = |share: usize| -> Vec<(usize, FireFlowEstimate)> {
-        (share..tests.len())
-            .step_by(threads)
-            .map(|t| {
-                let test = &tests[t];
-                let static_state = statics.iter().find(|(c, _, _)| *c == test.condition);
-                let estimate = match static_state {
-                    Some((_, base, Some(statics))) => estimate(
-                        &solver,
-                        net,
-                        test,
-                        (base, statics),
-                        pipe_c,
-                        (group_pipes, covariance),
-                        target_head_m,
-                    ),
-                    _ => FireFlowEstimate {
-                        test_id: test.id.clone(),
-                        flow: None,
-                        std_error: None,
-                        ci95: None,
-                    },
-                };
-                (t, estimate)
-            })
-            .collect()
-    };
-    let mut estimates: Vec<(usize, FireFlowEstimate)> = if threads == 1 {
-        estimate_share(0)
-    } else {
-        std::thread::scope(|scope| {
-            let handles: Vec<_> = (0..threads)
-                .map(|share| scope.spawn(move || estimate_share(share)))
-                .collect();
-            handles
-                .into_iter()
-                .flat_map(|h| h.join().unwrap_or_else(|e| std::panic::resume_unwind(e)))
-                .collect()
-        })
-    };
-    estimates.sort_by_key(|(t, _)| *t);
-    Ok(estimates.into_iter().map(|(_, e)| e).collect())
+    let threads = std::thread::available_parallelism().map_or(1, |n| n.get());
+    Ok(map_over_threads(tests.len(), threads, |t| {
+        let test = &tests[t];
+        let static_state = statics.iter().find(|(c, _, _)| *c == test.condition);
+        match static_state {
+            Some((_, base, Some(statics))) => estimate(
+                &solver,
+                net,
+                test,
+                (base, statics),
+                pipe_c,
+                (group_pipes, covariance),
+                target_head_m,
+            ),
+            _ => FireFlowEstimate {
+                test_id: test.id.clone(),
+                flow: None,
+                std_error: None,
+                ci95: None,
+            },
+        }
+    }))
 }
 
 fn estimate(

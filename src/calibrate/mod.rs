@@ -207,6 +207,9 @@ pub struct CalibrationResult {
     /// The model's flow available at [`CalibrationOptions::target_residual_m`] for every test, after
     /// the fit, with its first-order 95 % interval ([`fireflow`]); in test order.
     pub fire_flow: Vec<FireFlowEstimate>,
+    /// The same flow with every pipe at its C as written in the network (before the fit), without an
+    /// interval; in test order.
+    pub fire_flow_before: Vec<FireFlowEstimate>,
     /// Pairs whose correlation exceeds 0.9 in magnitude: the tests cannot tell them apart.
     pub strongly_correlated: Vec<(String, String, f64)>,
     pub before: FitStatistics,
@@ -390,6 +393,14 @@ pub fn calibrate(
         &interval_covariance,
         options.target_residual_m,
     )?;
+    let fire_flow_before = fireflow::fire_flow_estimates(
+        net,
+        tests,
+        &net.c_factors(),
+        &[],
+        &[],
+        options.target_residual_m,
+    )?;
 
     let (iterations, converged, termination) = match outcome {
         Some(o) => (o.iterations, o.converged, o.termination),
@@ -406,6 +417,7 @@ pub fn calibrate(
         correlation: report.correlation,
         covariance: report.covariance,
         fire_flow,
+        fire_flow_before,
         strongly_correlated: report.strongly_correlated,
         before: report.before,
         after: report.after,

@@ -7,12 +7,13 @@ use std::path::PathBuf;
 use std::process::ExitCode;
 use std::sync::atomic::AtomicBool;
 
-use anyhow::bail;
+use anyhow::{Context as _, bail};
 use roughcal::calibrate::{self as core, CalibrationOptions, FitTarget, Job};
-use roughcal::fieldtest::{StaticHeads, load_sheet};
+use roughcal::fieldtest::{StaticHeads, load_sheet, screen_sheet, with_static_findings};
 use roughcal::network::{Network, read_network};
 use roughcal::report::{
-    CalibrationOutputs, RunContext, check_no_outputs, json_summary, text_summary, write_outputs,
+    CalibrationOutputs, Provenance, RunContext, check_no_outputs, json_summary, text_summary,
+    write_outputs,
 };
 
 use super::network_or_report;
@@ -67,7 +68,21 @@ pub fn run(args: Args) -> anyhow::Result<ExitCode> {
         print!("{}", text_summary(&run));
     }
     if let Some(out) = &args.out {
-        let outputs = CalibrationOutputs::build(&run, &job.network_text)?;
+        let sheet_bytes = std::fs::read(&args.sheet)
+            .with_context(|| format!("cannot read field sheet {sheet_file}"))?;
+        // The test dates come from the screened sheet, as the job read it.
+        let reading = with_static_findings(
+            &job.network,
+            screen_sheet(&sheet, Some(&job.network)),
+            &static_heads,
+        );
+        let provenance = Provenance::of(
+            super::today_utc(),
+            job.network_text.as_bytes(),
+            &sheet_bytes,
+            &reading,
+        );
+        let outputs = CalibrationOutputs::build_delivered(&run, &job.network_text, &provenance)?;
         let written = write_outputs(out, &outputs, args.force)?;
         for path in written {
             // Keep stdout a single JSON document under --json.

@@ -125,7 +125,17 @@ pub(super) fn finding_json(f: &roughcal::fieldtest::Finding) -> Value {
     })
 }
 
-/// A number of the table: whole gpm and psi; L/s and kPa to one decimal.
+/// A pressure reading of the table, to one decimal as gauges are read (0.5 psi steps show as keyed).
+fn reading_cell(value: Option<f64>) -> String {
+    value.map_or_else(|| "-".to_string(), |v| format!("{v:.1}"))
+}
+
+/// `1 error`, `2 errors`.
+fn count(n: usize, word: &str) -> String {
+    format!("{n} {word}{}", if n == 1 { "" } else { "s" })
+}
+
+/// A flow of the table: whole gpm; L/s to one decimal.
 fn cell(value: Option<f64>, units: UnitSystem) -> String {
     let decimals = match units {
         UnitSystem::Us => 0,
@@ -157,9 +167,9 @@ fn table(sheet: &FieldSheet, reading: &SheetReading, target: f64) -> String {
             });
         let findings = match (errors, warnings) {
             (0, 0) => String::new(),
-            (e, 0) => format!("{e} error(s)"),
-            (0, w) => format!("{w} warning(s)"),
-            (e, w) => format!("{e} error(s), {w} warning(s)"),
+            (e, 0) => count(e, "error"),
+            (0, w) => count(w, "warning"),
+            (e, w) => format!("{}, {}", count(e, "error"), count(w, "warning")),
         };
         lines.push([
             if r.test.is_empty() {
@@ -169,8 +179,8 @@ fn table(sheet: &FieldSheet, reading: &SheetReading, target: f64) -> String {
             },
             r.line.to_string(),
             cell(r.total_flow, units),
-            cell(r.static_pressure, units),
-            cell(r.residual_pressure, units),
+            reading_cell(r.static_pressure),
+            reading_cell(r.residual_pressure),
             cell(r.available.and_then(AvailableFlow::value), units),
             findings,
         ]);

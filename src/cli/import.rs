@@ -4,7 +4,6 @@
 
 use std::path::Path;
 use std::process::ExitCode;
-use std::time::{SystemTime, UNIX_EPOCH};
 
 use anyhow::Context as _;
 use roughcal::calibrate::CAUTION;
@@ -73,8 +72,12 @@ pub fn run(args: Args<'_>) -> anyhow::Result<ExitCode> {
             format: nodes_format,
         },
     };
-    let written = import_network(&input)
-        .and_then(|imported| Ok((imported.network_toml(&input, &today())?, imported)));
+    let written = import_network(&input).and_then(|imported| {
+        Ok((
+            imported.network_toml(&input, &super::today_utc())?,
+            imported,
+        ))
+    });
     let (text, imported) = match written {
         Ok(done) => done,
         Err(ImportError::Refused { problems }) => {
@@ -139,48 +142,4 @@ pub fn run(args: Args<'_>) -> anyhow::Result<ExitCode> {
     }
     println!("Caution: {CAUTION}");
     Ok(ExitCode::SUCCESS)
-}
-
-/// Today's UTC date as YYYY-MM-DD; `SOURCE_DATE_EPOCH` (seconds, the reproducible-builds convention)
-/// overrides the clock so a re-import can give the same bytes.
-fn today() -> String {
-    let seconds = std::env::var("SOURCE_DATE_EPOCH")
-        .ok()
-        .and_then(|s| s.trim().parse::<i64>().ok())
-        .unwrap_or_else(|| {
-            SystemTime::now()
-                .duration_since(UNIX_EPOCH)
-                .map_or(0, |d| i64::try_from(d.as_secs()).unwrap_or(0))
-        });
-    let (y, m, d) = civil_from_days(seconds.div_euclid(86_400));
-    format!("{y:04}-{m:02}-{d:02}")
-}
-
-/// Proleptic Gregorian date of a day count from 1970-01-01 (H. Hinnant, "chrono-Compatible Low-Level
-/// Date Algorithms", civil_from_days).
-fn civil_from_days(days: i64) -> (i64, u32, u32) {
-    let z = days + 719_468;
-    let era = z.div_euclid(146_097);
-    let doe = z.rem_euclid(146_097);
-    let yoe = (doe - doe / 1460 + doe / 36_524 - doe / 146_096) / 365;
-    let doy = doe - (365 * yoe + yoe / 4 - yoe / 100);
-    let mp = (5 * doy + 2) / 153;
-    let d = (doy - (153 * mp + 2) / 5 + 1) as u32;
-    let m = if mp < 10 { mp + 3 } else { mp - 9 } as u32;
-    let y = yoe + era * 400 + i64::from(m <= 2);
-    (y, m, d)
-}
-
-#[cfg(test)]
-mod tests {
-    use super::civil_from_days;
-
-    #[test]
-    fn civil_dates() {
-        // Hinnant's paper: day 0 is 1970-01-01; 2000-03-01 is day 11017 (from memory, checked by
-        // counting: 30 years of 365 days + 7 leap days + 31 + 29 = 11017).
-        assert_eq!(civil_from_days(0), (1970, 1, 1));
-        assert_eq!(civil_from_days(11_017), (2000, 3, 1));
-        assert_eq!(civil_from_days(-1), (1969, 12, 31));
-    }
 }

@@ -1,17 +1,20 @@
 //! `roughcal tests NETWORK SHEET [--target T] [--json]`: every field test next to the model.
 
+use std::collections::BTreeMap;
 use std::fmt::Write as _;
 use std::path::Path;
 use std::process::ExitCode;
 
 use anyhow::bail;
+use roughcal::calibrate::fireflow::fire_flow_estimates;
 use roughcal::fieldtest::{
-    AvailableFlow, ModelComparison, Severity, compare_with_model, default_target, load_sheet,
-    screen_sheet,
+    AvailableFlow, ModelComparison, Severity, SheetReading, calibration_input, compare_with_model,
+    default_target, load_sheet, screen_sheet,
 };
 use roughcal::hydraulics::ValveState;
 use roughcal::network::file::load_network_file;
 use roughcal::network::{Network, UnitSystem};
+use roughcal::report::load_coefficients;
 use roughcal::report::table::{Align, TextTable};
 use roughcal::report::valve_states_json;
 use serde_json::json;
@@ -24,6 +27,7 @@ pub fn run(
     network_path: &Path,
     sheet_path: &Path,
     target: Option<f64>,
+    coefficients: Option<&Path>,
     json: bool,
 ) -> anyhow::Result<ExitCode> {
     let Some(loaded) = network_or_report(network_path, load_network_file(network_path))? else {
@@ -44,6 +48,11 @@ pub fn run(
     let net = &loaded.network;
     let reading = screen_sheet(&sheet, Some(net));
     let comparisons = compare_with_model(net, &reading, target)?;
+    let intervals = match coefficients {
+        Some(path) => intervals(net, &reading, path, units.pressure_to_head_m(target))?,
+        None => BTreeMap::new(),
+    };
+    let interval = |id: &str| intervals.get(id).copied();
     if json {
         let tests: Vec<_> = comparisons
             .iter()
@@ -64,7 +73,12 @@ pub fn run(
                     "total_flow": c.total_flow,
                     "field_available_flow": c.field_available.value(),
                     "model_available_flow": c.model_available,
-                    "usable": c.read && !c.has_error() && !c.gauge_isolated_in_model,
+                    "model_available_flow_ci": interval(&c.test_id).map(|(lo, hi)| [lo, hi]),
+                    "use": !reading.is_left_out(c.row),
+                    "usable": c.read
+                        && !c.has_error()
+                        && !c.gauge_isolated_in_model
+                        && !reading.is_left_out(c.row),
                     "negative_pressure_in_model": c.negative_pressure_somewhere,
                     "gauge_isolated_in_model": c.gauge_isolated_in_model,
                     "findings": c.findings.iter().map(finding_json).collect::<Vec<_>>(),
@@ -85,6 +99,8 @@ pub fn run(
             "{}",
             table(
                 &comparisons,
+                &|row| reading.is_left_out(row),
+                &interval,
                 target,
                 units.pressure_label(),
                 units.flow_label()
@@ -141,33 +157,102 @@ fn valve_table(net: &Network, units: UnitSystem, rows: &[ModelComparison]) -> St
     )
 }
 
+/// The 95 % interval of each usable test's model available flow (network flow unit), by test id,
+/// propagated to first order from the covariance in the coefficient set (the delta method, as in
+/// `calibrate`).
+fn intervals(
+    net: &Network,
+    reading: &SheetReading,
+    path: &Path,
+    target_head_m: f64,
+) -> anyhow::Result<BTreeMap<String, (f64, f64)>> {
+    let set = load_coefficients(path)?;
+    let Some(covariance) = set.covariance else {
+        bail!(
+            "{}: no [covariance] to give intervals with; use the coefficients.toml that `calibrate --out` wrote",
+            path.display()
+        );
+    };
+    let mut group_pipes = Vec::with_capacity(covariance.groups.len());
+    for name in &covariance.groups {
+        let Some(g) = net.groups.iter().position(|g| &g.name == name) else {
+            bail!(
+                "{}: [covariance] names group `{name}`, which the network does not have",
+                path.display()
+            );
+        };
+        group_pipes.push(
+            net.pipes
+                .iter()
+                .enumerate()
+                .filter(|(_, p)| p.group == Some(g))
+                .map(|(k, _)| k)
+                .collect(),
+        );
+    }
+    let input = calibration_input(net, reading);
+    let estimates = fire_flow_estimates(
+        net,
+        &input.tests,
+        &net.c_factors(),
+        &group_pipes,
+        &covariance.matrix,
+        target_head_m,
+    )?;
+    Ok(estimates
+        .into_iter()
+        .filter_map(|e| e.ci95.map(|ci| (e.test_id, ci)))
+        .collect())
+}
+
 fn number(value: Option<f64>, decimals: usize) -> String {
     value.map_or_else(|| "-".into(), |v| format!("{v:.decimals$}"))
 }
 
-fn table(rows: &[ModelComparison], target: f64, pressure: &str, flow: &str) -> String {
+fn table(
+    rows: &[ModelComparison],
+    left_out: &dyn Fn(usize) -> bool,
+    interval: &dyn Fn(&str) -> Option<(f64, f64)>,
+    target: f64,
+    pressure: &str,
+    flow: &str,
+) -> String {
     let mut out = String::new();
     let _ = writeln!(
         out,
         "Field tests against the model (pressures {pressure}, flows {flow}; available flow at {target} {pressure})\n"
     );
-    let right = |name| (name, Align::Right);
-    let mut table = TextTable::new(&[
-        ("test", Align::Left),
-        ("gauge", Align::Left),
-        right("S meas"),
-        right("S mod"),
-        right("R meas"),
-        right("R mod"),
-        right("dS"),
-        right("dR"),
-        right("drop"),
-        right("drop m"),
-        right("Q fld"),
-        right("Q mod"),
-        ("findings", Align::Left),
-    ])
-    .free_text_last();
+    let p = |name: &str| format!("{name} ({pressure})");
+    let q = |name: &str| format!("{name} ({flow})");
+    let headers = [
+        "test".to_string(),
+        "residual hydrant".to_string(),
+        p("static"),
+        p("static model"),
+        p("residual"),
+        p("residual model"),
+        p("static err"),
+        p("residual err"),
+        p("drop"),
+        p("drop model"),
+        q("avail field"),
+        q("avail model"),
+        q("avail model 95 %"),
+        "findings".to_string(),
+    ];
+    let columns: Vec<(&str, Align)> = headers
+        .iter()
+        .enumerate()
+        .map(|(i, h)| {
+            let align = if i < 2 || i == 13 {
+                Align::Left
+            } else {
+                Align::Right
+            };
+            (h.as_str(), align)
+        })
+        .collect();
+    let mut table = TextTable::new(&columns).free_text_last();
     for c in rows {
         let mut flags: Vec<String> = c
             .findings
@@ -188,6 +273,12 @@ fn table(rows: &[ModelComparison], target: f64, pressure: &str, flow: &str) -> S
         }
         if c.negative_pressure_somewhere {
             flags.push("warn: the model shows negative pressure somewhere while flowing".into());
+        }
+        if left_out(c.row) {
+            flags.insert(
+                0,
+                "LEFT OUT use: left out on the sheet (use = no); not used by calibrate".into(),
+            );
         }
         let field_available = match c.field_available {
             AvailableFlow::Undefined => None,
@@ -210,11 +301,13 @@ fn table(rows: &[ModelComparison], target: f64, pressure: &str, flow: &str) -> S
             number(c.modelled_drop(), 1),
             number(field_available, 0),
             number(c.model_available, 0),
+            interval(&c.test_id)
+                .map_or_else(|| "-".to_string(), |(lo, hi)| format!("{lo:.0} to {hi:.0}")),
             flags.first().cloned().unwrap_or_default(),
         ]);
         // Further findings of the same test go on under its first.
         for flag in flags.iter().skip(1) {
-            let mut cells = vec![String::new(); 12];
+            let mut cells = vec![String::new(); 13];
             cells.push(flag.clone());
             table.row(cells);
         }
@@ -222,7 +315,7 @@ fn table(rows: &[ModelComparison], target: f64, pressure: &str, flow: &str) -> S
     let _ = write!(out, "{}", table.text(""));
     let _ = writeln!(
         out,
-        "\nS static, R residual, d = measured - modelled, Q fld = NFPA 291 extrapolation of the field\nreadings, Q mod = the model's flow at the target.\nCaution: {CAUTION}"
+        "\nerr = measured minus modelled; avail field = NFPA 291 extrapolation of the field readings to the\ntarget, avail model = the model's flow at the target; its 95 % interval (with --coefficients) is\nfirst order through the fit's C covariance.\nCaution: {CAUTION}"
     );
     out
 }

@@ -350,7 +350,11 @@ fn secant_search(
 pub struct ExcludedTest {
     pub test_id: String,
     pub row: usize,
+    /// 1-based line of the sheet file (the row numbering every output uses).
+    pub line: usize,
     pub reason: String,
+    /// Left out by choice (`use = no` on the sheet) rather than screened out by an error.
+    pub left_out: bool,
 }
 
 /// The modelled static pressure head at every junction, for the network as written and for each of its
@@ -433,6 +437,9 @@ pub fn with_static_findings(
     reading
 }
 
+/// Why a test with `use = no` is not in the fit (the words "left out" are a contract of `--json`).
+pub const LEFT_OUT_REASON: &str = "left out on the sheet (use = no)";
+
 /// What a calibration is given from a screened sheet.
 #[derive(Debug, Clone, Default, PartialEq)]
 pub struct CalibrationInput {
@@ -474,10 +481,27 @@ pub fn calibration_input(net: &Network, reading: &SheetReading) -> CalibrationIn
             },
             |t| t.test_id.clone(),
         );
+        // A row that read as no test still has findings, and every finding has its line.
+        let line = test
+            .map(|t| t.line)
+            .or_else(|| reading.findings_for_row(row).next().map(|f| f.line))
+            .unwrap_or(row + 2);
+        if reading.is_left_out(row) {
+            excluded.push(ExcludedTest {
+                test_id,
+                row,
+                line,
+                reason: LEFT_OUT_REASON.to_string(),
+                left_out: true,
+            });
+            continue;
+        }
         if !errors.is_empty() {
             excluded.push(ExcludedTest {
                 test_id,
                 row,
+                line,
+                left_out: false,
                 reason: errors
                     .iter()
                     .map(|f| format!("{}: {}", f.column, f.reason))
@@ -502,6 +526,8 @@ pub fn calibration_input(net: &Network, reading: &SheetReading) -> CalibrationIn
             None => excluded.push(ExcludedTest {
                 test_id,
                 row,
+                line,
+                left_out: false,
                 reason: "a node or condition of the test is not in the network".into(),
             }),
         }

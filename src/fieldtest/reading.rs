@@ -122,6 +122,9 @@ pub struct SheetReading {
     pub units: UnitSystem,
     pub tests: Vec<FlowTest>,
     pub findings: Vec<Finding>,
+    /// Data rows (0-based, ascending) whose `use` cell says `no`: left out of the fit by choice, whatever
+    /// else the row holds. Their tests and findings are still read and shown.
+    pub left_out: Vec<usize>,
 }
 
 impl SheetReading {
@@ -140,9 +143,16 @@ impl SheetReading {
             .any(|f| f.severity == Severity::Error)
     }
 
-    /// Tests with no error finding: the ones calibration may use.
+    /// Tests with no error finding and not left out by the `use` column: the ones calibration may use.
     pub fn usable_tests(&self) -> impl Iterator<Item = &FlowTest> {
-        self.tests.iter().filter(|t| !self.row_has_error(t.row))
+        self.tests
+            .iter()
+            .filter(|t| !self.row_has_error(t.row) && !self.is_left_out(t.row))
+    }
+
+    /// Whether the row's `use` cell says `no`.
+    pub fn is_left_out(&self, row: usize) -> bool {
+        self.left_out.binary_search(&row).is_ok()
     }
 
     /// Rows that have a test or a finding, in order (rows left wholly blank are not tests).
@@ -180,10 +190,27 @@ pub fn screen_sheet(sheet: &FieldSheet, network: Option<&Network>) -> SheetReadi
 pub fn read_tests(sheet: &FieldSheet) -> SheetReading {
     let mut tests = Vec::new();
     let mut findings = Vec::new();
+    let mut left_out = Vec::new();
     let mut first_line_of_id: HashMap<String, usize> = HashMap::new();
     for row in 0..sheet.row_count() {
         let test_id = sheet.cell(row, SheetColumn::Test).unwrap_or("").trim();
         let line = sheet.line(row).unwrap_or_default();
+        match use_cell(sheet.cell(row, SheetColumn::Use).unwrap_or("")) {
+            Some(true) => {}
+            Some(false) => left_out.push(row),
+            None => findings.push(Finding::new(
+                Rule::UseNotYesNo,
+                test_id,
+                row,
+                line,
+                sheet.column_name(SheetColumn::Use),
+                format!(
+                    "use {:?} is neither yes nor no; write yes (or leave blank) to fit the test, no \
+                     to leave it out",
+                    sheet.cell(row, SheetColumn::Use).unwrap_or("").trim()
+                ),
+            )),
+        }
         if !test_id.is_empty() {
             match first_line_of_id.get(test_id) {
                 Some(&first_line) => findings.push(Finding::new(
@@ -218,6 +245,17 @@ pub fn read_tests(sheet: &FieldSheet) -> SheetReading {
         units: sheet.units(),
         tests,
         findings,
+        left_out,
+    }
+}
+
+/// The `use` cell: blank or `yes` keeps the test in, `no` leaves it out (letter case and surrounding
+/// spaces ignored); anything else is `None`.
+pub fn use_cell(text: &str) -> Option<bool> {
+    match text.trim().to_ascii_lowercase().as_str() {
+        "" | "yes" => Some(true),
+        "no" => Some(false),
+        _ => None,
     }
 }
 
@@ -339,7 +377,15 @@ impl RowReader<'_> {
     /// [`MAX_READING`].
     fn number(&mut self, column: SheetColumn, text: &str, what: &str) -> Option<f64> {
         let name = self.name(column);
-        match text.parse::<f64>() {
+        // A sheet separated by `;` or tabs comes from a locale whose decimal mark may be a comma
+        // (`65,5`); a comma cannot be a field separator there, so it can only be that mark.
+        let decimal_comma = self.sheet.delimiter() != b',' && !text.contains('.');
+        let parsed = if decimal_comma {
+            text.replacen(',', ".", 1).parse::<f64>()
+        } else {
+            text.parse::<f64>()
+        };
+        match parsed {
             Ok(value) if value.is_finite() && value < 0.0 => {
                 self.push(
                     Rule::Negative,

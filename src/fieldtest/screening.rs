@@ -68,6 +68,9 @@ pub enum Rule {
     ImplausibleFlow,
     /// A test id used by an earlier row (warning).
     DuplicateTestId,
+    /// A `use` cell that is neither `yes`, `no` nor blank (error: whether the crew meant the test in
+    /// or out cannot be guessed).
+    UseNotYesNo,
 }
 
 impl Rule {
@@ -109,6 +112,7 @@ impl Rule {
             Self::PitotAboveStatic => "pitot-above-static",
             Self::ImplausibleFlow => "implausible-flow",
             Self::DuplicateTestId => "duplicate-test-id",
+            Self::UseNotYesNo => "use-not-yes-no",
         }
     }
 }

@@ -30,6 +30,9 @@ pub enum SheetColumn {
     Coefficient,
     Condition,
     Note,
+    /// Optional: `yes` (or blank) keeps the test in the fit, `no` leaves it out (the crew's or the
+    /// engineer's choice, kept apart from tests screened out by an error).
+    Use,
 }
 
 impl SheetColumn {
@@ -48,6 +51,25 @@ impl SheetColumn {
         Self::Coefficient,
         Self::Condition,
         Self::Note,
+    ];
+
+    /// Every column the reader recognises: the template's ([`SheetColumn::ALL`]) and the optional ones
+    /// a sheet may add (`use`).
+    pub const KNOWN: [SheetColumn; 14] = [
+        Self::Test,
+        Self::Date,
+        Self::Time,
+        Self::ResidualNode,
+        Self::FlowNode,
+        Self::Static,
+        Self::Residual,
+        Self::Flow,
+        Self::Pitot,
+        Self::Outlet,
+        Self::Coefficient,
+        Self::Condition,
+        Self::Note,
+        Self::Use,
     ];
 
     /// Whether the column name carries a unit suffix.
@@ -79,6 +101,7 @@ impl SheetColumn {
             (Self::Coefficient, _) => "coefficient",
             (Self::Condition, _) => "condition",
             (Self::Note, _) => "note",
+            (Self::Use, _) => "use",
         }
     }
 
@@ -86,7 +109,7 @@ impl SheetColumn {
     /// Matching ignores surrounding spaces and letter case (`Static_PSI` is `static_psi`).
     pub fn from_header(name: &str) -> Option<(SheetColumn, Option<UnitSystem>)> {
         let name = name.trim().to_ascii_lowercase();
-        for column in Self::ALL {
+        for column in Self::KNOWN {
             if column.has_units() {
                 for units in [UnitSystem::Us, UnitSystem::Si] {
                     if name == column.header_name(units) {
@@ -134,6 +157,11 @@ pub enum SheetErrorKind {
         other: String,
         other_units: &'static str,
     },
+    #[error(
+        "the header line is a single column whose name holds `{0}`: cells seem separated by `{0}`; \
+         separate them with commas, semicolons or tabs"
+    )]
+    UnknownSeparator(char),
     #[error("a row is longer than the sheet reader accepts ({0} bytes)")]
     RowTooLong(usize),
 }
@@ -244,15 +272,52 @@ pub struct FieldSheet {
     rows: Vec<Row>,
     units: UnitSystem,
     /// Index in `headers` of each known column.
-    columns: [Option<usize>; 13],
+    columns: [Option<usize>; 14],
     /// 1-based file line on which each row starts.
     lines: Vec<usize>,
     crlf: bool,
     byte_order_mark: bool,
+    /// The field separator of the file as loaded (`,`, `;` or tab), kept when saving.
+    delimiter: u8,
+}
+
+/// The field separator of a sheet, from its header line: a comma, unless the header holds no comma
+/// outside quotes and does hold semicolons or tabs (spreadsheet exports in locales whose decimal mark is
+/// a comma write `;`, and "text, tab separated" writes tabs). A header names at least the five required
+/// columns, so a real header always has four separators or more.
+pub fn detect_delimiter(text: &str) -> u8 {
+    let header = text.split('\n').next().unwrap_or_default();
+    let (mut commas, mut semicolons, mut tabs) = (0usize, 0usize, 0usize);
+    let mut quoted = false;
+    for b in header.bytes() {
+        match b {
+            b'"' => quoted = !quoted,
+            b',' if !quoted => commas += 1,
+            b';' if !quoted => semicolons += 1,
+            b'\t' if !quoted => tabs += 1,
+            _ => {}
+        }
+    }
+    if commas > 0 || (semicolons == 0 && tabs == 0) {
+        b','
+    } else if tabs >= semicolons {
+        b'\t'
+    } else {
+        b';'
+    }
+}
+
+/// For a header read as one column: the first character of its name that no column name holds (a
+/// separator other than `,`, `;` or tab, such as `|`), if any.
+fn unknown_separator(headers: &[String]) -> Option<char> {
+    let [only] = headers else { return None };
+    only.trim()
+        .chars()
+        .find(|c| !(c.is_alphanumeric() || *c == '_' || *c == ' '))
 }
 
 fn column_slot(column: SheetColumn) -> usize {
-    SheetColumn::ALL
+    SheetColumn::KNOWN
         .iter()
         .position(|&c| c == column)
         .unwrap_or_default()
@@ -265,8 +330,8 @@ impl FieldSheet {
             .into_iter()
             .map(str::to_string)
             .collect();
-        let mut columns = [None; 13];
-        for (i, slot) in columns.iter_mut().enumerate() {
+        let mut columns = [None; 14];
+        for (i, slot) in columns.iter_mut().take(SheetColumn::ALL.len()).enumerate() {
             *slot = Some(i);
         }
         FieldSheet {
@@ -278,6 +343,7 @@ impl FieldSheet {
             lines: Vec::new(),
             crlf: false,
             byte_order_mark: false,
+            delimiter: b',',
         }
     }
 
@@ -307,7 +373,9 @@ impl FieldSheet {
             ));
         }
         let crlf = text.split('\n').next().is_some_and(|l| l.ends_with('\r'));
+        let delimiter = detect_delimiter(text);
         let mut reader = csv::ReaderBuilder::new()
+            .delimiter(delimiter)
             .has_headers(false)
             .flexible(true)
             .from_reader(text.as_bytes());
@@ -342,8 +410,17 @@ impl FieldSheet {
         let Some((headers, header_line)) = headers else {
             return Err(error(Some(1), None, SheetErrorKind::Empty));
         };
-        let (units, columns) = Self::classify_header(&headers)
-            .map_err(|(column, kind)| error(Some(header_line), Some(column), kind))?;
+        let (units, columns) =
+            Self::classify_header(&headers).map_err(|(column, kind)| {
+                match (&kind, unknown_separator(&headers)) {
+                    (SheetErrorKind::MissingColumn(_), Some(separator)) => error(
+                        Some(header_line),
+                        None,
+                        SheetErrorKind::UnknownSeparator(separator),
+                    ),
+                    _ => error(Some(header_line), Some(column), kind),
+                }
+            })?;
         Ok(FieldSheet {
             file_name: file_name.to_string(),
             headers,
@@ -353,6 +430,7 @@ impl FieldSheet {
             lines,
             crlf,
             byte_order_mark,
+            delimiter,
         })
     }
 
@@ -360,8 +438,8 @@ impl FieldSheet {
     #[allow(clippy::type_complexity)]
     fn classify_header(
         headers: &[String],
-    ) -> Result<(UnitSystem, [Option<usize>; 13]), (String, SheetErrorKind)> {
-        let mut columns: [Option<usize>; 13] = [None; 13];
+    ) -> Result<(UnitSystem, [Option<usize>; 14]), (String, SheetErrorKind)> {
+        let mut columns: [Option<usize>; 14] = [None; 14];
         let mut units: Option<(UnitSystem, usize)> = None;
         let mut seen: HashMap<String, usize> = HashMap::with_capacity(headers.len());
         for (i, name) in headers.iter().enumerate() {
@@ -392,7 +470,7 @@ impl FieldSheet {
                 }
             }
             let Some(slot) = columns.get_mut(column_slot(column)) else {
-                continue; // column_slot is a position in SheetColumn::ALL, which has 13 entries.
+                continue; // column_slot is a position in SheetColumn::KNOWN, which has 14 entries.
             };
             if let Some(first) = *slot {
                 return Err((
@@ -452,6 +530,7 @@ impl FieldSheet {
             csv::Terminator::Any(b'\n')
         };
         let mut writer = csv::WriterBuilder::new()
+            .delimiter(self.delimiter)
             .flexible(true)
             .terminator(terminator)
             .quote_style(csv::QuoteStyle::Necessary)
@@ -468,6 +547,11 @@ impl FieldSheet {
             text.insert(0, '\u{feff}');
         }
         text
+    }
+
+    /// The field separator of the file as loaded (`b','` for a new sheet); see [`detect_delimiter`].
+    pub fn delimiter(&self) -> u8 {
+        self.delimiter
     }
 
     /// The file name given to [`FieldSheet::parse`] (or set by [`FieldSheet::set_file_name`]).
@@ -534,7 +618,7 @@ impl FieldSheet {
 
     /// The known column at a header index, if it is one.
     pub fn column_at(&self, index: usize) -> Option<SheetColumn> {
-        SheetColumn::ALL
+        SheetColumn::KNOWN
             .into_iter()
             .find(|&c| self.column_index(c) == Some(index))
     }

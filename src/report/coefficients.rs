@@ -102,6 +102,17 @@ pub struct CoefficientSet {
     /// The Hazen-Williams constant the C values belong to, when the set says (`coefficients.toml`
     /// written since the constant was recorded; a CSV set does not say).
     pub hazen_williams: Option<HwConstant>,
+    /// Covariance of the fitted groups' C (`[covariance]` of `coefficients.toml`), for intervals on
+    /// what the calibrated network predicts; `None` in a CSV set or a set written without one.
+    pub covariance: Option<GroupCovariance>,
+}
+
+/// The covariance of the C of the groups a fit moved, in the order of `groups`.
+#[derive(Debug, Clone, PartialEq)]
+pub struct GroupCovariance {
+    pub groups: Vec<String>,
+    /// Square, `groups.len()` on a side, in units of C squared.
+    pub matrix: Vec<Vec<f64>>,
 }
 
 impl CoefficientSet {
@@ -364,11 +375,65 @@ pub fn parse_coefficients_toml(text: &str, file: &str) -> Result<CoefficientSet,
     }
     let mut set = finish(&place, entries)?;
     set.hazen_williams = hazen_williams;
+    set.covariance = toml_covariance(&place, root)?;
     Ok(set)
 }
 
+/// `[covariance]`: `groups` (names) and `matrix` (rows of numbers, square, one row per group).
+fn toml_covariance(
+    place: &Place<'_>,
+    root: &toml_edit::Table,
+) -> Result<Option<GroupCovariance>, CoefficientError> {
+    let Some(item) = root.get("covariance") else {
+        return Ok(None);
+    };
+    let line = place.line_of(item.span().map_or(0, |s| s.start));
+    let wrong = |found: &str| {
+        place.error(
+            line,
+            "covariance",
+            CoefficientErrorKind::WrongType {
+                expected: "a table of `groups` (names) and `matrix` (one row of numbers per group)",
+                found: found.to_string(),
+            },
+        )
+    };
+    let Some(table) = item.as_table_like() else {
+        return Err(wrong(item.type_name()));
+    };
+    let groups: Option<Vec<String>> = table
+        .get("groups")
+        .and_then(Item::as_array)
+        .map(|a| a.iter().map(|v| v.as_str().map(str::to_string)).collect())
+        .and_then(|v: Vec<Option<String>>| v.into_iter().collect());
+    let number = |v: &Value| v.as_float().or_else(|| v.as_integer().map(|i| i as f64));
+    let matrix: Option<Vec<Vec<f64>>> = table
+        .get("matrix")
+        .and_then(Item::as_array)
+        .map(|rows| {
+            rows.iter()
+                .map(|row| {
+                    row.as_array()
+                        .and_then(|r| r.iter().map(number).collect::<Option<Vec<f64>>>())
+                })
+                .collect::<Option<Vec<_>>>()
+        })
+        .and_then(|m| m);
+    match (groups, matrix) {
+        (Some(groups), Some(matrix))
+            if matrix.len() == groups.len()
+                && matrix
+                    .iter()
+                    .all(|r| r.len() == groups.len() && r.iter().all(|v| v.is_finite())) =>
+        {
+            Ok(Some(GroupCovariance { groups, matrix }))
+        }
+        _ => Err(wrong("another shape")),
+    }
+}
+
 /// Top-level keys of `coefficients.toml`.
-pub const TOML_TOP_KEYS: [&str; 3] = ["group", "units", "hazen_williams_constant"];
+pub const TOML_TOP_KEYS: [&str; 4] = ["group", "units", "hazen_williams_constant", "covariance"];
 
 /// `units` and `hazen_williams_constant` of a set: both or neither.
 fn toml_constant(
@@ -611,6 +676,7 @@ fn finish(
         file: place.file.to_string(),
         entries,
         hazen_williams: None,
+        covariance: None,
     })
 }
 
@@ -856,6 +922,25 @@ pub fn coefficients_toml(result: &CalibrationResult, network_file: &str) -> Stri
         toml_edit::value(result.hazen_williams.k),
     );
     document.insert("group", Item::ArrayOfTables(groups));
+    if !result.covariance.is_empty() {
+        // For intervals on what the calibrated network predicts (`roughcal tests --coefficients`).
+        let mut table = Table::new();
+        let mut names = toml_edit::Array::new();
+        for name in &result.correlation_groups {
+            names.push(name.as_str());
+        }
+        let mut rows = toml_edit::Array::new();
+        for row in &result.covariance {
+            let mut values = toml_edit::Array::new();
+            for &v in row {
+                values.push(v);
+            }
+            rows.push(values);
+        }
+        table.insert("groups", toml_edit::value(names));
+        table.insert("matrix", toml_edit::value(rows));
+        document.insert("covariance", Item::Table(table));
+    }
     let mut out = String::new();
     out.push_str(&format!(
         "# Roughness coefficient set fitted by roughcal to the field tests of {}.\n",
@@ -1048,7 +1133,8 @@ mod tests {
         );
         assert_eq!(
             toml_error("title = \"x\"\n[[group]]\nname = \"ci\"\nc = 80\n"),
-            "set.toml:1: title: unknown key; expected one of group, units, hazen_williams_constant"
+            "set.toml:1: title: unknown key; expected one of group, units, hazen_williams_constant, \
+             covariance"
         );
         assert!(
             toml_error("[[group]]\nname = \"ci\nc = 80\n")

@@ -5,6 +5,7 @@ use serde_json::{Value, json};
 use crate::calibrate::{CAUTION, FitStatistics};
 
 use super::RunContext;
+use super::sections::{self, field_available_flow};
 use crate::hydraulics::ValveState;
 use crate::network::Network;
 
@@ -93,9 +94,14 @@ pub fn json_summary(run: &RunContext<'_>) -> Value {
                 .map(|w| json!({"rule": w.rule.key(), "column": w.column, "reason": w.reason}))
                 .collect();
             let fire_flow = result.fire_flow.get(i);
+            let before = result.fire_flow_before.get(i);
+            let field = run.tests.get(i).and_then(|t| field_available_flow(run, t));
+            let residuals = sections::standardised_residuals(run, i);
             json!({
                 "test": t.id,
                 "warnings": warnings,
+                "field_available_flow": field,
+                "model_available_flow_before": before.and_then(|f| f.flow),
                 "model_available_flow_after": fire_flow.and_then(|f| f.flow),
                 "model_available_flow_std_error": fire_flow.and_then(|f| f.std_error),
                 "model_available_flow_ci": fire_flow.and_then(|f| f.ci95).map(|(lo, hi)| [lo, hi]),
@@ -109,6 +115,7 @@ pub fn json_summary(run: &RunContext<'_>) -> Value {
                 "rmse_after": t.after.rmse,
                 "valves_static_after": valves(&t.valves_static_after),
                 "valves_residual_after": valves(&t.valves_residual_after),
+                "standardised_residuals": residuals,
             })
         })
         .collect();
@@ -120,7 +127,7 @@ pub fn json_summary(run: &RunContext<'_>) -> Value {
     let excluded: Vec<Value> = run
         .excluded
         .iter()
-        .map(|e| json!({"test": e.test_id, "data_row": e.row + 1, "reason": e.reason}))
+        .map(|e| json!({"test": e.test_id, "data_row": e.row + 1, "line": e.line, "reason": e.reason, "left_out": e.left_out}))
         .collect();
     json!({
         "groups": groups,
@@ -140,6 +147,7 @@ pub fn json_summary(run: &RunContext<'_>) -> Value {
             "strongly_correlated": strongly,
         },
         "excluded": excluded,
+        "misfit_caution": sections::misfit_caution(run),
         "caution": CAUTION,
     })
 }

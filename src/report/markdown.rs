@@ -4,13 +4,23 @@ use std::fmt::Write as _;
 
 use crate::calibrate::{CAUTION, INFORMED_C_CHANGE};
 
-use super::RunContext;
 use super::sections;
 use super::table::{Align, TextTable};
+use super::{Provenance, RunContext, VERSION, count_of};
 
 /// The whole report: caution first, then inputs and method, groups, correlation, statistics before and
 /// after (overall and per test), groups no test informs, and the optimizer's iterations.
 pub fn report_markdown(run: &RunContext<'_>) -> String {
+    report(run, None)
+}
+
+/// The report as a deliverable: as [`report_markdown`], with the run date, the inputs' SHA-256 and the
+/// test dates from `provenance`.
+pub fn report_markdown_delivered(run: &RunContext<'_>, provenance: &Provenance) -> String {
+    report(run, Some(provenance))
+}
+
+fn report(run: &RunContext<'_>, provenance: Option<&Provenance>) -> String {
     let result = run.result;
     let units = run.network.units;
     let unit = units.pressure_label();
@@ -32,8 +42,24 @@ pub fn report_markdown(run: &RunContext<'_>) -> String {
     let _ = writeln!(out, "> **Caution.** {CAUTION}\n");
 
     let _ = writeln!(out, "## What was fitted and how\n");
-    let _ = writeln!(out, "- Network: `{}`", run.network_file);
-    let _ = writeln!(out, "- Field sheet: `{}`", run.sheet_file);
+    let run_date = provenance
+        .map(|p| p.run_date.as_str())
+        .filter(|d| !d.is_empty())
+        .unwrap_or("not recorded");
+    let _ = writeln!(out, "- Run: {run_date}, roughcal {VERSION}");
+    let hash = |h: Option<&String>| h.map_or_else(String::new, |h| format!(", SHA-256 `{h}`"));
+    let _ = writeln!(
+        out,
+        "- Network: `{}`{}",
+        run.network_file,
+        hash(provenance.and_then(|p| p.network_sha256.as_ref()))
+    );
+    let _ = writeln!(
+        out,
+        "- Field sheet: `{}`{}",
+        run.sheet_file,
+        hash(provenance.and_then(|p| p.sheet_sha256.as_ref()))
+    );
     let _ = writeln!(
         out,
         "- Units: {} (pressures in {unit}, flows in {})",
@@ -65,8 +91,8 @@ pub fn report_markdown(run: &RunContext<'_>) -> String {
     let _ = writeln!(out);
 
     let _ = writeln!(out, "## Tests\n");
-    let _ = writeln!(out, "{} test(s) used:\n", run.tests.len());
-    out.push_str(&sections::used_tests_table(run).markdown());
+    let _ = writeln!(out, "{} used:\n", count_of(run.tests.len(), "test"));
+    out.push_str(&sections::used_tests_table(run, provenance.map(|p| &p.test_dates)).markdown());
     let _ = writeln!(out);
     let warnings = sections::warning_lines(run);
     if !warnings.is_empty() {
@@ -79,23 +105,25 @@ pub fn report_markdown(run: &RunContext<'_>) -> String {
         }
         let _ = writeln!(out);
     }
-    if run.excluded.is_empty() {
-        let _ = writeln!(out, "No test was excluded.\n");
+    let (left_out, screened): (Vec<_>, Vec<_>) = run.excluded.iter().partition(|e| e.left_out);
+    if !left_out.is_empty() {
+        let _ = writeln!(
+            out,
+            "{} left out on the sheet (`use` = no), by choice:\n",
+            count_of(left_out.len(), "test")
+        );
+        out.push_str(&excluded_table(&left_out).markdown());
+        let _ = writeln!(out);
+    }
+    if screened.is_empty() {
+        let _ = writeln!(out, "No test was screened out.\n");
     } else {
-        let _ = writeln!(out, "{} test(s) excluded:\n", run.excluded.len());
-        let mut table = TextTable::new(&[
-            ("test", Align::Left),
-            ("sheet data row", Align::Right),
-            ("reason", Align::Left),
-        ]);
-        for excluded in run.excluded {
-            table.row(vec![
-                excluded.test_id.clone(),
-                (excluded.row + 1).to_string(),
-                excluded.reason.clone(),
-            ]);
-        }
-        out.push_str(&table.markdown());
+        let _ = writeln!(
+            out,
+            "{} screened out (an error finding):\n",
+            count_of(screened.len(), "test")
+        );
+        out.push_str(&excluded_table(&screened).markdown());
         let _ = writeln!(out);
     }
 
@@ -129,15 +157,19 @@ pub fn report_markdown(run: &RunContext<'_>) -> String {
 
     let _ = writeln!(out, "## Fit before and after\n");
     out.push_str(&sections::statistics_table(result, units).markdown());
+    if let Some(caution) = sections::misfit_caution(run) {
+        let _ = writeln!(out, "\n> **Caution:** {caution}");
+    }
     let _ = writeln!(out, "\n### Per test ({unit})\n");
     out.push_str(&sections::per_test_table(result).markdown());
     let _ = writeln!(out);
 
     let _ = writeln!(out, "## {}\n", sections::fire_flow_heading(run));
-    out.push_str(&sections::fire_flow_table(result).markdown());
+    out.push_str(&sections::fire_flow_table(run).markdown());
     let _ = writeln!(
         out,
-        "\nThe model's total hydrant flow (split as in the test) at which the modelled residual at the \
+        "\nField: the test's own flow extrapolated to the target from its static and residual readings, \
+         Q_R = Q_F ((S - T) / (S - R))^0.54 (NFPA 291). Model: the model's total hydrant flow (split as in the test) at which the modelled residual at the \
          gauge falls to the target, with the fitted C. The interval is first order (the delta method): \
          the flow's sensitivity to each group's C, from the same adjoint solves as the fit, through the \
          covariance of the fitted C; plus or minus 1.96 standard errors. It covers the C uncertainty \
@@ -176,6 +208,32 @@ pub fn report_markdown(run: &RunContext<'_>) -> String {
         let _ = writeln!(out);
     }
 
+    let _ = writeln!(out, "## Review\n");
+    let _ = writeln!(
+        out,
+        "To be completed by the reviewing engineer before the results are used.\n\n\
+         - Reviewing engineer: ______________________________\n\
+         - Licence number: ______________________________\n\
+         - Date: ______________________________\n\
+         - Signature: ______________________________\n"
+    );
     let _ = writeln!(out, "---\n\n**Caution.** {CAUTION}");
     out
+}
+
+/// Test, sheet line and reason of each test not used.
+fn excluded_table(excluded: &[&super::ExcludedTest]) -> TextTable {
+    let mut table = TextTable::new(&[
+        ("test", Align::Left),
+        ("sheet line", Align::Right),
+        ("reason", Align::Left),
+    ]);
+    for e in excluded {
+        table.row(vec![
+            e.test_id.clone(),
+            e.line.to_string(),
+            e.reason.clone(),
+        ]);
+    }
+    table
 }

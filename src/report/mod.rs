@@ -119,6 +119,93 @@ impl<'a> RunContext<'a> {
     }
 }
 
+/// The version of roughcal that wrote an output, as the report and `calibrated.toml` name it.
+pub const VERSION: &str = env!("CARGO_PKG_VERSION");
+
+/// Where a run's inputs came from and when it ran: what makes a report a deliverable. Built at the
+/// edge (the clock and the file bytes are read there); empty fields are reported as not recorded.
+#[derive(Debug, Clone, Default, PartialEq)]
+pub struct Provenance {
+    /// The run date, YYYY-MM-DD (UTC).
+    pub run_date: String,
+    /// SHA-256 of the network file as read, lower-case hex.
+    pub network_sha256: Option<String>,
+    /// SHA-256 of the field sheet as read, lower-case hex.
+    pub sheet_sha256: Option<String>,
+    /// The sheet's `date` cell of each test, by test id.
+    pub test_dates: BTreeMap<String, String>,
+}
+
+impl Provenance {
+    /// The provenance of a run on `network` and `sheet` (the bytes as read) whose tests are `reading`.
+    pub fn of(
+        run_date: String,
+        network: &[u8],
+        sheet: &[u8],
+        reading: &crate::fieldtest::SheetReading,
+    ) -> Self {
+        Self {
+            run_date,
+            network_sha256: Some(sha256_hex(network)),
+            sheet_sha256: Some(sha256_hex(sheet)),
+            test_dates: reading
+                .tests
+                .iter()
+                .map(|t| (t.test_id.clone(), t.date.clone()))
+                .collect(),
+        }
+    }
+}
+
+/// SHA-256 of `bytes` as lower-case hex (FIPS 180-4).
+pub fn sha256_hex(bytes: &[u8]) -> String {
+    use sha2::Digest as _;
+    sha2::Sha256::digest(bytes)
+        .iter()
+        .map(|b| format!("{b:02x}"))
+        .collect()
+}
+
+/// The calendar date (proleptic Gregorian, UTC) `days` days after 1970-01-01, as YYYY-MM-DD.
+/// Days-from-civil inverse (H. Hinnant, "chrono-Compatible Low-Level Date Algorithms", from memory).
+pub fn civil_date(days: i64) -> String {
+    let z = days + 719_468;
+    let era = z.div_euclid(146_097);
+    let doe = z.rem_euclid(146_097);
+    let yoe = (doe - doe / 1460 + doe / 36_524 - doe / 146_096) / 365;
+    let doy = doe - (365 * yoe + yoe / 4 - yoe / 100);
+    let mp = (5 * doy + 2) / 153;
+    let day = doy - (153 * mp + 2) / 5 + 1;
+    let month = if mp < 10 { mp + 3 } else { mp - 9 };
+    let year = yoe + era * 400 + i64::from(month <= 2);
+    format!("{year:04}-{month:02}-{day:02}")
+}
+
+/// "1 test", "2 tests": a count with its noun, singular or plural.
+pub fn count_of(count: usize, noun: &str) -> String {
+    if count == 1 {
+        format!("1 {noun}")
+    } else {
+        format!("{count} {noun}s")
+    }
+}
+
+/// The header `calibrated.toml` starts with: which network, from which sheet, on which date, by which
+/// version. Replaces the input's own leading comment block (it described the uncalibrated file).
+pub fn calibrated_header(run: &RunContext<'_>, provenance: &Provenance) -> String {
+    let date = if provenance.run_date.is_empty() {
+        "an unrecorded date"
+    } else {
+        provenance.run_date.as_str()
+    };
+    format!(
+        "# Calibration of {} from the field sheet {}, made on {date} by roughcal {VERSION}.\n\
+         # Fitted C-factors written to 0.1. Results are an aid, to be reviewed by a licensed engineer;\n\
+         # local codes and the fire authority govern.\n",
+        run.network_file, run.sheet_file
+    )
+}
+
 /// Why an output could not be built.
 #[derive(Debug, Clone, PartialEq, thiserror::Error)]
 pub enum ReportError {
@@ -163,6 +250,25 @@ pub fn calibrated_network(
     apply_c_factors(network_text, &changed).map_err(ReportError::Edit)
 }
 
+/// `text` without its leading block of `#` comment lines (and the blank lines after it).
+fn strip_leading_comments(text: &str) -> &str {
+    let mut rest = text;
+    while let Some(line) = rest.lines().next() {
+        if !line.trim_start().starts_with('#') && !line.trim().is_empty() {
+            break;
+        }
+        rest = &rest[line.len()..];
+        rest = rest
+            .strip_prefix("\r\n")
+            .or_else(|| rest.strip_prefix('\n'))
+            .unwrap_or(rest);
+        if rest.is_empty() {
+            break;
+        }
+    }
+    rest
+}
+
 /// The output files of a run, named and built, ready for [`write_outputs`].
 #[derive(Debug, Clone, PartialEq)]
 pub struct CalibrationOutputs {
@@ -175,6 +281,41 @@ pub struct CalibrationOutputs {
 impl CalibrationOutputs {
     /// Builds every output of `run`; `network_text` is the network file as read.
     pub fn build(run: &RunContext<'_>, network_text: &str) -> Result<Self, ReportError> {
+        Self::build_with(run, network_text, None)
+    }
+
+    /// As [`Self::build`], as a deliverable: the report names the run date, the inputs' SHA-256 and the
+    /// test dates, and `calibrated.toml` starts with [`calibrated_header`] and has its fitted C to 0.1.
+    pub fn build_delivered(
+        run: &RunContext<'_>,
+        network_text: &str,
+        provenance: &Provenance,
+    ) -> Result<Self, ReportError> {
+        Self::build_with(run, network_text, Some(provenance))
+    }
+
+    fn build_with(
+        run: &RunContext<'_>,
+        network_text: &str,
+        provenance: Option<&Provenance>,
+    ) -> Result<Self, ReportError> {
+        let calibrated = match provenance {
+            None => calibrated_network(network_text, run.network, run.result)?,
+            Some(p) => {
+                let mut rounded = run.result.clone();
+                for c in &mut rounded.pipe_c_after {
+                    *c = (*c * 10.0).round() / 10.0;
+                }
+                let text = calibrated_network(network_text, run.network, &rounded)?;
+                let body = text.trim_start_matches('\n');
+                let body = strip_leading_comments(body);
+                format!("{}\n{body}", calibrated_header(run, p))
+            }
+        };
+        let report = match provenance {
+            None => report_markdown(run),
+            Some(p) => markdown::report_markdown_delivered(run, p),
+        };
         Ok(Self {
             files: vec![
                 (COEFFICIENTS_CSV, coefficients_csv(run.result)),
@@ -182,11 +323,8 @@ impl CalibrationOutputs {
                     COEFFICIENTS_TOML,
                     coefficients_toml(run.result, run.network_file),
                 ),
-                (
-                    CALIBRATED_NETWORK,
-                    calibrated_network(network_text, run.network, run.result)?,
-                ),
-                (REPORT_MD, report_markdown(run)),
+                (CALIBRATED_NETWORK, calibrated),
+                (REPORT_MD, report),
                 (FIT_SVG, fit_svg(run.result, run.network.units)?),
                 (PIPES_CSV, pipes_csv(run.network, &run.result.pipe_c_after)?),
             ]

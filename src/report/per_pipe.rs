@@ -27,7 +27,7 @@ pub const PIPES_CSV_HEADER: [&str; 6] = [
 ];
 
 /// `pipes.csv`: one row per pipe (pumps are not pipes), in the network's order. C values are written
-/// in full (shortest text that reads back to the same number), as in `calibrated.toml`. Every row names
+/// in full (shortest text that reads back to the same number), as in `coefficients.toml`. Every row names
 /// the Hazen-Williams constant (and the unit system of its formula) the C values belong to: C scales
 /// with the constant to the power 1/1.852, so a C without its constant is ambiguous.
 pub fn pipes_csv(network: &Network, pipe_c_after: &[f64]) -> Result<String, ReportError> {

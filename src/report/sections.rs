@@ -1,6 +1,7 @@
 //! The tables and sentences that both the terminal summary and the written report show, built once.
 
-use crate::calibrate::{CalibrationResult, FitStatistics, FitTarget, GroupStatus};
+use crate::calibrate::{CalibrationResult, CalibrationTest, FitStatistics, FitTarget, GroupStatus};
+use crate::fieldtest::fireflow::available_flow;
 use crate::network::UnitSystem;
 
 use super::RunContext;
@@ -165,27 +166,35 @@ pub fn flow(value: f64) -> String {
 pub fn fire_flow_heading(run: &RunContext<'_>) -> String {
     let units = run.network.units;
     format!(
-        "Model fire flow after the fit at {:.0} {} residual ({}, 95 % interval from the C covariance)",
+        "Fire flow at {:.0} {} residual ({}): field readings (NFPA 291), model before and after the fit, \
+         95 % interval from the C covariance",
         run.options.target_residual_m * units.pressure_per_head_m(),
         units.pressure_label(),
         run.network.flows().label()
     )
 }
 
-/// The model's flow available at the target residual at each tested hydrant, after the fit, with
-/// its first-order 95 % interval.
-pub fn fire_flow_table(result: &CalibrationResult) -> TextTable {
+/// Fire flow at the target residual per test: from the field readings (NFPA 291), from the model
+/// before and after the fit, and the after value's first-order 95 % interval.
+pub fn fire_flow_table(run: &RunContext<'_>) -> TextTable {
+    let result = run.result;
     let mut table = TextTable::new(&[
         ("test", Align::Left),
-        ("available flow", Align::Right),
+        ("field", Align::Right),
+        ("model before", Align::Right),
+        ("model after", Align::Right),
         ("std error", Align::Right),
         ("95 % low", Align::Right),
         ("95 % high", Align::Right),
     ]);
     let cell = |v: Option<f64>| v.map_or_else(|| "-".to_string(), flow);
-    for estimate in &result.fire_flow {
+    for (i, estimate) in result.fire_flow.iter().enumerate() {
+        let field = run.tests.get(i).and_then(|t| field_available_flow(run, t));
+        let before = result.fire_flow_before.get(i).and_then(|f| f.flow);
         table.row(vec![
             estimate.test_id.clone(),
+            cell(field),
+            cell(before),
             cell(estimate.flow),
             cell(estimate.std_error),
             cell(estimate.ci95.map(|ci| ci.0)),
@@ -193,6 +202,104 @@ pub fn fire_flow_table(result: &CalibrationResult) -> TextTable {
         ]);
     }
     table
+}
+
+/// The flow a test's own readings say is available at the run's target residual, in the network's flow
+/// unit: `Q_R = Q_F ((S - T) / (S - R))^0.54` (NFPA 291); 0 when the target is not below the static,
+/// `None` when the test cannot be extrapolated.
+pub fn field_available_flow(run: &RunContext<'_>, test: &CalibrationTest) -> Option<f64> {
+    let units = run.network.units;
+    let total_m3s: f64 = test.hydrant_flows_m3s.iter().map(|h| h.1).sum();
+    available_flow(
+        units.flow_from_m3s(total_m3s),
+        units.pressure_from_head_m(test.static_head_m),
+        units.pressure_from_head_m(test.residual_head_m),
+        units.pressure_from_head_m(run.options.target_residual_m),
+    )
+    .value()
+}
+
+/// Misfit ratio above which the fit says the gauge accuracy does not explain the misfit (reduced
+/// chi-square; about 1 for a model and readings that agree within the gauge accuracy; common practice,
+/// no source).
+pub const MISFIT_RATIO_LIMIT: f64 = 2.0;
+
+/// A standardised residual beyond this many standard deviations is flagged as a likely reading or
+/// model error (about a 0.3 % chance for a normal error; common practice, no source).
+pub const STANDARDISED_RESIDUAL_LIMIT: f64 = 3.0;
+
+/// How many tests the misfit caution names.
+const MISFIT_NAMED_TESTS: usize = 3;
+
+/// The standardised residuals of test `i` after the fit: measured minus modelled over its standard
+/// deviation (the gauge accuracy; sqrt 2 times it for a drop), as the fit weights them, by reading
+/// (`static`, `residual` or `drop`).
+pub fn standardised_residuals(run: &RunContext<'_>, i: usize) -> Vec<(&'static str, f64)> {
+    let Some(t) = run.result.tests.get(i) else {
+        return Vec::new();
+    };
+    let sd = run
+        .network
+        .units
+        .pressure_from_head_m(run.options.gauge_sd_m);
+    match run.result.fit {
+        FitTarget::Pressures => vec![
+            ("static", (t.measured_static - t.modelled_static_after) / sd),
+            (
+                "residual",
+                (t.measured_residual - t.modelled_residual_after) / sd,
+            ),
+        ],
+        FitTarget::Drop => {
+            let measured = t.measured_static - t.measured_residual;
+            let modelled = t.modelled_static_after - t.modelled_residual_after;
+            vec![(
+                "drop",
+                (measured - modelled) / (sd * std::f64::consts::SQRT_2),
+            )]
+        }
+    }
+}
+
+/// When the misfit ratio (reduced chi-square) exceeds [`MISFIT_RATIO_LIMIT`]: a caution naming the
+/// tests with the largest standardised residuals, those beyond [`STANDARDISED_RESIDUAL_LIMIT`]
+/// flagged as likely reading or model errors. `None` when the fit is within the limit.
+pub fn misfit_caution(run: &RunContext<'_>) -> Option<String> {
+    let ratio = run.result.reduced_chi_square?;
+    if ratio <= MISFIT_RATIO_LIMIT {
+        return None;
+    }
+    let mut largest: Vec<(&str, &'static str, f64)> = run
+        .result
+        .tests
+        .iter()
+        .enumerate()
+        .filter_map(|(i, t)| {
+            standardised_residuals(run, i)
+                .into_iter()
+                .max_by(|a, b| a.1.abs().total_cmp(&b.1.abs()))
+                .map(|(reading, r)| (t.id.as_str(), reading, r))
+        })
+        .collect();
+    largest.sort_by(|a, b| b.2.abs().total_cmp(&a.2.abs()));
+    let named: Vec<String> = largest
+        .iter()
+        .take(MISFIT_NAMED_TESTS)
+        .map(|(id, reading, r)| {
+            let flag = if r.abs() > STANDARDISED_RESIDUAL_LIMIT {
+                ": likely a reading or model error"
+            } else {
+                ""
+            };
+            format!("{id} ({reading} {r:+.1}{flag})")
+        })
+        .collect();
+    Some(format!(
+        "misfit ratio {ratio:.1} is above {MISFIT_RATIO_LIMIT}: the gauge accuracy does not explain the \
+         misfit; largest standardised residuals: {}; check those readings and the model around them \
+         before using the fit",
+        named.join(", ")
+    ))
 }
 
 /// The correlation matrix of the groups fitted inside their bounds, when there are two or more.
@@ -255,13 +362,17 @@ pub fn not_informed_lines(result: &CalibrationResult) -> Vec<String> {
 }
 
 /// Tests used: residual junction, flowing hydrants and their flow, condition.
-pub fn used_tests_table(run: &RunContext<'_>) -> TextTable {
+pub fn used_tests_table(
+    run: &RunContext<'_>,
+    dates: Option<&std::collections::BTreeMap<String, String>>,
+) -> TextTable {
     let net = run.network;
     let flows = net.flows();
     let mut table = TextTable::new(&[
         ("test", Align::Left),
+        ("date", Align::Left),
         ("residual hydrant", Align::Left),
-        ("flowing", Align::Left),
+        ("flow hydrants", Align::Left),
         (&format!("flow ({})", flows.label()), Align::Right),
         ("condition", Align::Left),
     ]);
@@ -275,6 +386,11 @@ pub fn used_tests_table(run: &RunContext<'_>) -> TextTable {
         let flow: f64 = test.hydrant_flows_m3s.iter().map(|h| h.1).sum();
         table.row(vec![
             test.id.clone(),
+            dates
+                .and_then(|d| d.get(&test.id))
+                .filter(|d| !d.trim().is_empty())
+                .cloned()
+                .unwrap_or_else(|| "-".to_string()),
             junction(test.residual_junction).to_string(),
             flowing.join(", "),
             format!("{:.0}", flows.from_m3s(flow)),

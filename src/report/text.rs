@@ -28,10 +28,15 @@ pub fn text_summary(run: &RunContext<'_>) -> String {
         run.excluded.len()
     );
     for excluded in run.excluded {
+        let word = if excluded.left_out {
+            "left out"
+        } else {
+            "excluded"
+        };
         let _ = writeln!(
             out,
-            "    excluded {}: {}",
-            excluded.test_id, excluded.reason
+            "    {word} {} (line {}): {}",
+            excluded.test_id, excluded.line, excluded.reason
         );
     }
     for warning in sections::warning_lines(run) {
@@ -56,11 +61,17 @@ pub fn text_summary(run: &RunContext<'_>) -> String {
     let _ = writeln!(out, "Fit statistics ({})", result.fit.label());
     out.push_str(&sections::statistics_table(result, run.network.units).text("  "));
     let _ = writeln!(out);
+    if let Some(caution) = sections::misfit_caution(run) {
+        for line in wrap(&format!("  caution: {caution}"), 100) {
+            let _ = writeln!(out, "{line}");
+        }
+        let _ = writeln!(out);
+    }
     let _ = writeln!(out, "Per test ({unit})");
     out.push_str(&sections::per_test_table(result).text("  "));
     let _ = writeln!(out);
     let _ = writeln!(out, "{}", sections::fire_flow_heading(run));
-    out.push_str(&sections::fire_flow_table(result).text("  "));
+    out.push_str(&sections::fire_flow_table(run).text("  "));
     let _ = writeln!(out);
     if !result.converged {
         let _ = writeln!(out, "{}", sections::not_converged_line(result));

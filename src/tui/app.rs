@@ -1922,7 +1922,15 @@ fn export(app: &mut App, force: bool, folder: Option<PathBuf>, effects: &mut Vec
         app.error("the fit changed while the export was asked for: press Ctrl+E again");
         return;
     }
-    let outputs = match CalibrationOutputs::build(&run, &job.network_text) {
+    // The same provenance `calibrate --out` writes: the sheet as saved (every edit is saved at once).
+    let sheet_text = app.session.sheet.to_csv_string();
+    let provenance = crate::report::Provenance::of(
+        crate::storage::today_utc(),
+        job.network_text.as_bytes(),
+        sheet_text.as_bytes(),
+        &crate::fieldtest::read_tests(&app.session.sheet),
+    );
+    let outputs = match CalibrationOutputs::build_delivered(&run, &job.network_text, &provenance) {
         Ok(outputs) => outputs,
         Err(e) => {
             app.error(format!("export failed: {e}"));

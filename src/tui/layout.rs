@@ -56,6 +56,7 @@ pub fn column_width(column: Option<SheetColumn>) -> u16 {
         Some(SheetColumn::Coefficient) => 5,
         Some(SheetColumn::Condition) => 9,
         Some(SheetColumn::Note) => 18,
+        Some(SheetColumn::Use) => 4,
         None => 10,
     }
 }

@@ -89,7 +89,10 @@ impl Runner {
                 {
                     return vec![changed];
                 }
-                let result = (self.write)(&path, text.as_bytes())
+                // The network as it was before the first group edit is kept as NETWORK.orig, as the
+                // sheet is (a later save finds the copy there and leaves it).
+                let result = storage::keep_original(&path)
+                    .and_then(|_| (self.write)(&path, text.as_bytes()))
                     .map(|()| FileStamp::of(&path).ok())
                     .map_err(|e| short_write_error(&path, &e));
                 vec![Action::SaveFinished {

@@ -30,6 +30,7 @@ fn label(app: &App, index: usize) -> String {
         Some(SheetColumn::Coefficient) => "coef".into(),
         Some(SheetColumn::Condition) => "condition".into(),
         Some(SheetColumn::Note) => "note".into(),
+        Some(SheetColumn::Use) => "use".into(),
         None => sheet.headers().get(index).cloned().unwrap_or_default(),
     }
 }
