@@ -457,7 +457,7 @@ fn the_fit_runs_on_a_worker_and_can_be_cancelled() {
     ctrl(&mut app, &mut runner, 'e');
     assert!(screen(&app, 80, 24).contains("export to folder"));
     key(&mut app, &mut runner, KeyCode::Enter);
-    let folder = app.export_folder.clone().expect("exported");
+    let folder = app.fit.export_folder.clone().expect("exported");
     assert_eq!(folder, dir.path().join("roughcal-export-1"));
     assert!(app.message.as_ref().unwrap().text.contains("exported ("));
     let command_folder = dir.path().join("command-out");
@@ -506,7 +506,7 @@ fn the_fit_runs_on_a_worker_and_can_be_cancelled() {
     // The prompt offers this session's folder.
     ctrl(&mut app, &mut runner, 'e');
     assert_eq!(
-        app.export_prompt.as_ref().unwrap().buffer,
+        app.fit.export_prompt.as_ref().unwrap().buffer,
         folder.display().to_string()
     );
     key(&mut app, &mut runner, KeyCode::Enter);
@@ -536,13 +536,13 @@ fn the_fit_runs_on_a_worker_and_can_be_cancelled() {
     }
     type_text(&mut app, &mut runner, &chosen.display().to_string());
     key(&mut app, &mut runner, KeyCode::Enter);
-    assert_eq!(app.export_folder.as_ref(), Some(&chosen));
+    assert_eq!(app.fit.export_folder.as_ref(), Some(&chosen));
     for name in OUTPUT_FILES {
         assert!(chosen.join(name).exists(), "{name}");
     }
     ctrl(&mut app, &mut runner, 'e');
     key(&mut app, &mut runner, KeyCode::Esc);
-    assert!(app.export_prompt.is_none());
+    assert!(app.fit.export_prompt.is_none());
     assert!(
         app.message
             .as_ref()
@@ -618,7 +618,7 @@ fn export_refuses_an_unconverged_fit_and_asks_before_exporting_an_out_of_date_on
     // As if the optimizer had stopped at its limit: nothing may be exported.
     app.fit.outcome.as_mut().unwrap().result.converged = false;
     ctrl(&mut app, &mut runner, 'e');
-    assert!(app.export_prompt.is_none());
+    assert!(app.fit.export_prompt.is_none());
     assert!(
         message(&app).contains("did NOT converge"),
         "{}",
@@ -634,27 +634,27 @@ fn export_refuses_an_unconverged_fit_and_asks_before_exporting_an_out_of_date_on
     key(&mut app, &mut runner, KeyCode::Enter);
     assert!(screen(&app, 100, 24).contains("fit out of date"));
     ctrl(&mut app, &mut runner, 'e');
-    assert!(app.export_prompt.is_none());
+    assert!(app.fit.export_prompt.is_none());
     assert!(
         message(&app).contains("fit out of date"),
         "{}",
         message(&app)
     );
     key(&mut app, &mut runner, KeyCode::Char('n'));
-    assert!(app.export_prompt.is_none());
+    assert!(app.fit.export_prompt.is_none());
     assert_eq!(std::fs::read_dir(dir.path()).unwrap().count(), 3); // network, sheet, SHEET.orig
     ctrl(&mut app, &mut runner, 'e');
     key(&mut app, &mut runner, KeyCode::Char('y'));
-    assert!(app.export_prompt.is_some());
+    assert!(app.fit.export_prompt.is_some());
     key(&mut app, &mut runner, KeyCode::Enter);
-    let folder = app.export_folder.clone().expect("exported");
+    let folder = app.fit.export_folder.clone().expect("exported");
     let report = std::fs::read_to_string(folder.join(REPORT_MD)).unwrap();
     assert!(report.contains("Fit out of date"), "{report}");
     assert!(report.contains("answered yes"), "{report}");
     // After a new fit the export no longer asks, and the report no longer says so.
     fit(&mut app, &mut runner);
     ctrl(&mut app, &mut runner, 'e');
-    assert!(app.confirm.is_none() && app.export_prompt.is_some());
+    assert!(app.confirm.is_none() && app.fit.export_prompt.is_some());
 }
 
 #[cfg(unix)]
@@ -842,7 +842,7 @@ fn quitting_with_a_half_typed_cell_or_unsaved_edits_asks_first() {
     assert!(message(&app).contains("half-typed"), "{}", message(&app));
     // n: back to the typing, nothing saved, nothing thrown away.
     key(&mut app, &mut runner, KeyCode::Char('n'));
-    assert_eq!(app.readings.edit.as_ref().unwrap().buffer, "B");
+    assert_eq!(app.readings.edit.as_ref().unwrap().input.buffer, "B");
     assert_eq!(on_disk(&app), start);
     // y: the typing is kept, saved, and the workbench quits.
     type_text(&mut app, &mut runner, "2");

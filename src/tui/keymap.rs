@@ -79,7 +79,7 @@ pub fn key_hints(app: &App) -> &'static [(&'static str, &'static str)] {
     if app.help {
         return &[("Esc", "close help")];
     }
-    if app.export_prompt.is_some() {
+    if app.fit.export_prompt.is_some() {
         return &[("Enter", "export"), ("Esc", "cancel")];
     }
     if app.readings.edit.is_some() || app.groups.edit.is_some() {
@@ -185,7 +185,7 @@ pub fn action_for_key(app: &App, key: KeyEvent) -> Option<Action> {
     if let Some(view) = view_key {
         return Some(Action::SwitchView(view));
     }
-    if app.readings.edit.is_some() || app.groups.edit.is_some() || app.export_prompt.is_some() {
+    if app.readings.edit.is_some() || app.groups.edit.is_some() || app.fit.export_prompt.is_some() {
         return editing_key(app, key, ctrl);
     }
     if key.code == KeyCode::Esc {

@@ -8,7 +8,8 @@ use std::thread::JoinHandle;
 
 use crate::calibrate::{CalibrationError, CalibrationResult, IterationReport, calibrate};
 
-use super::app::{Action, CalibrationJob};
+use super::app::Action;
+use super::state::fit::CalibrationJob;
 
 /// What the worker sends.
 #[derive(Debug)]
