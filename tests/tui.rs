@@ -131,7 +131,7 @@ fn undo_and_redo_every_kind_of_edit() {
     let mut runner = Runner::new();
     // Edit the static pressure: move right five columns, type, Enter.
     for _ in 0..5 {
-        key(&mut app, &mut runner, KeyCode::Char('l'));
+        key(&mut app, &mut runner, KeyCode::Right);
     }
     type_text(&mut app, &mut runner, "58");
     key(&mut app, &mut runner, KeyCode::Enter);
@@ -178,7 +178,7 @@ fn a_bad_value_is_flagged_with_its_reason_while_typing() {
     // A node that is not in the network.
     key(&mut app, &mut runner, KeyCode::Home);
     for _ in 0..3 {
-        key(&mut app, &mut runner, KeyCode::Char('l'));
+        key(&mut app, &mut runner, KeyCode::Right);
     }
     type_text(&mut app, &mut runner, "Z-9");
     key(&mut app, &mut runner, KeyCode::Esc);
@@ -276,7 +276,7 @@ fn every_view_renders_at_80_by_24() {
     let mut app = workbench(dir.path(), SHEET);
     let mut runner = Runner::new();
     let readings = screen(&app, 80, 24);
-    assert!(readings.contains("1 Readings"));
+    assert!(readings.contains("F2 Readings"));
     assert!(readings.contains("resid at"));
     assert!(readings.contains("D2"));
     assert!(readings.contains("^R fit"));
@@ -943,4 +943,101 @@ fn a_network_changed_by_another_program_is_never_overwritten() {
             .contains("locked = true")
     );
     assert_eq!(std::fs::read_to_string(&network).unwrap(), theirs);
+}
+
+#[test]
+fn typing_h_j_k_l_into_a_readings_cell_types_them_and_backspace_clears_with_undo() {
+    let dir = tempfile::tempdir().unwrap();
+    let start = format!("{HEADER}A1,,,J-102,J-103,56,41,700,,,,,\n");
+    let mut app = workbench(dir.path(), &start);
+    let mut runner = Runner::new();
+    // The note column is the last one: End goes there, then every letter is typed, none moves.
+    key(&mut app, &mut runner, KeyCode::End);
+    let column = app.readings.column;
+    type_text(&mut app, &mut runner, "hjkl valve");
+    assert_eq!(app.readings.column, column);
+    assert!(screen(&app, 100, 24).contains("hjkl valve"));
+    key(&mut app, &mut runner, KeyCode::Enter);
+    assert_eq!(
+        app.session.sheet.cell(0, SheetColumn::Note),
+        Some("hjkl valve")
+    );
+    // A test id starting with h: the first letter is not lost.
+    key(&mut app, &mut runner, KeyCode::Home);
+    type_text(&mut app, &mut runner, "h7");
+    key(&mut app, &mut runner, KeyCode::Enter);
+    assert_eq!(app.session.sheet.cell(0, SheetColumn::Test), Some("h7"));
+    // Backspace on a cell (not typing) clears it; Ctrl+Z brings it back; the row stays.
+    key(&mut app, &mut runner, KeyCode::Up);
+    key(&mut app, &mut runner, KeyCode::Backspace);
+    assert_eq!(app.session.sheet.cell(0, SheetColumn::Test), Some(""));
+    assert_eq!(app.session.sheet.row_count(), 1);
+    assert!(app.confirm.is_none());
+    ctrl(&mut app, &mut runner, 'z');
+    assert_eq!(app.session.sheet.cell(0, SheetColumn::Test), Some("h7"));
+    // Delete clears too; deleting the row stays on Ctrl+D with a question.
+    key(&mut app, &mut runner, KeyCode::Delete);
+    assert_eq!(app.session.sheet.cell(0, SheetColumn::Test), Some(""));
+    ctrl(&mut app, &mut runner, 'd');
+    assert!(app.confirm.is_some());
+    key(&mut app, &mut runner, KeyCode::Char('y'));
+    assert_eq!(app.session.sheet.row_count(), 0);
+}
+
+#[test]
+fn vim_letters_still_move_in_groups_and_the_map() {
+    let dir = tempfile::tempdir().unwrap();
+    let mut app = workbench(dir.path(), SHEET);
+    let mut runner = Runner::new();
+    key(&mut app, &mut runner, KeyCode::F(3));
+    assert_eq!(app.view, View::Groups);
+    let row = app.groups.row;
+    key(&mut app, &mut runner, KeyCode::Char('j'));
+    assert_eq!(app.groups.row, (row + 1).min(app.groups.rows.len() - 1));
+    assert!(app.groups.edit.is_none());
+    key(&mut app, &mut runner, KeyCode::F(5));
+    let before = app.map.selected;
+    key(&mut app, &mut runner, KeyCode::Char('l'));
+    assert_ne!(app.map.selected, before);
+}
+
+#[test]
+fn the_tab_bar_shows_the_keys_that_switch_views() {
+    let dir = tempfile::tempdir().unwrap();
+    let mut app = workbench(dir.path(), SHEET);
+    let mut runner = Runner::new();
+    let text = screen(&app, 80, 24);
+    let title = text.lines().next().unwrap();
+    for (label, key_code, view) in [
+        ("F2 Readings", KeyCode::F(2), View::Readings),
+        ("F3 Groups", KeyCode::F(3), View::Groups),
+        ("F4 Fit", KeyCode::F(4), View::Fit),
+        ("F5 Map", KeyCode::F(5), View::Map),
+    ] {
+        assert!(title.contains(label), "{title}");
+        key(&mut app, &mut runner, key_code);
+        assert_eq!(app.view, view);
+    }
+    // The digits type into cells in Readings: they do not switch views there.
+    key(&mut app, &mut runner, KeyCode::F(2));
+    key(&mut app, &mut runner, KeyCode::Char('3'));
+    assert_eq!(app.view, View::Readings);
+}
+
+#[test]
+fn the_help_overlay_fits_80_by_24() {
+    let dir = tempfile::tempdir().unwrap();
+    let mut app = workbench(dir.path(), SHEET);
+    let mut runner = Runner::new();
+    key(&mut app, &mut runner, KeyCode::F(1));
+    assert!(app.help);
+    let text = screen(&app, 80, 24);
+    for (_, keys) in roughcal::tui::keymap::KEY_HELP {
+        for (keys, what) in keys {
+            assert!(
+                text.contains(&format!("{keys:<13} {what}")),
+                "`{keys} {what}` not shown in\n{text}"
+            );
+        }
+    }
 }

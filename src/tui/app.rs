@@ -81,6 +81,8 @@ pub enum Action {
     CancelEdit,
     AddRow,
     DeleteRow,
+    /// Readings: empty the cursor cell (undoable).
+    ClearCell,
     /// The answer to the pending question.
     Confirm(bool),
     Undo,

@@ -291,6 +291,7 @@ impl ReadingsState {
                 | Action::BeginEditWith(_)
                 | Action::AddRow
                 | Action::DeleteRow
+                | Action::ClearCell
                 | Action::Undo
                 | Action::Redo
         ) && ctx.refuse_read_only(SaveTarget::Sheet)
@@ -412,6 +413,16 @@ impl ReadingsState {
                     .to_string();
                 *ctx.confirm = Some(Confirm::DeleteRow(row));
                 ctx.info(format!("delete row {} ({test})? (y/n)", row + 1));
+            }
+            Action::ClearCell => {
+                if rows == 0 {
+                    return Vec::new();
+                }
+                let effects = self.set_cell(ctx, self.row, self.column, String::new());
+                if !effects.is_empty() {
+                    ctx.info("cell cleared; Ctrl+Z brings it back");
+                }
+                return effects;
             }
             Action::Undo => return self.undo_redo(ctx, true),
             Action::Redo => return self.undo_redo(ctx, false),
