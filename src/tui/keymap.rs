@@ -11,7 +11,7 @@ pub const KEY_HELP: [(&str, &[(&str, &str)]); 6] = [
     (
         "Everywhere",
         &[
-            ("?", "these keys (Esc closes)"),
+            ("? F1", "keys (Esc or q closes)"),
             ("F2 .. F5", "Readings Groups Fit Map"),
             ("Alt+1 .. 4", "same; 1 .. 4 in Fit, Map"),
             ("Ctrl+R", "run the fit"),
@@ -25,7 +25,7 @@ pub const KEY_HELP: [(&str, &[(&str, &str)]); 6] = [
         &[
             ("arrows", "move (letters type)"),
             ("PgUp PgDn", "page up / down"),
-            ("Home End", "first / last column"),
+            ("Home End", "column; with Ctrl: row"),
             ("type, Enter", "edit the cell"),
             ("Tab Shift+Tab", "next / previous column"),
             ("Ctrl+N Insert", "add a row below"),
