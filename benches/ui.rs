@@ -9,7 +9,8 @@ use ratatui::Terminal;
 use ratatui::backend::TestBackend;
 use roughcal::fieldtest::FieldSheet;
 use roughcal::network::{Network, synthetic};
-use roughcal::tui::app::{Action, After, Move, Session, View};
+use roughcal::tui::app::{Action, After, Move, View};
+use roughcal::tui::session::Session;
 use roughcal::tui::{App, Theme, update, views};
 
 /// A 100 x 101 looped street grid: 20,000 pipes in three era groups.

@@ -131,7 +131,7 @@ fn undo_and_redo_every_kind_of_edit() {
     let mut runner = Runner::new();
     // Edit the static pressure: move right five columns, type, Enter.
     for _ in 0..5 {
-        key(&mut app, &mut runner, KeyCode::Char('l'));
+        key(&mut app, &mut runner, KeyCode::Right);
     }
     type_text(&mut app, &mut runner, "58");
     key(&mut app, &mut runner, KeyCode::Enter);
@@ -178,7 +178,7 @@ fn a_bad_value_is_flagged_with_its_reason_while_typing() {
     // A node that is not in the network.
     key(&mut app, &mut runner, KeyCode::Home);
     for _ in 0..3 {
-        key(&mut app, &mut runner, KeyCode::Char('l'));
+        key(&mut app, &mut runner, KeyCode::Right);
     }
     type_text(&mut app, &mut runner, "Z-9");
     key(&mut app, &mut runner, KeyCode::Esc);
@@ -276,7 +276,7 @@ fn every_view_renders_at_80_by_24() {
     let mut app = workbench(dir.path(), SHEET);
     let mut runner = Runner::new();
     let readings = screen(&app, 80, 24);
-    assert!(readings.contains("1 Readings"));
+    assert!(readings.contains("F2 Readings"));
     assert!(readings.contains("resid at"));
     assert!(readings.contains("D2"));
     assert!(readings.contains("^R fit"));
@@ -462,7 +462,7 @@ fn the_fit_runs_on_a_worker_and_can_be_cancelled() {
     ctrl(&mut app, &mut runner, 'e');
     assert!(screen(&app, 80, 24).contains("export to folder"));
     key(&mut app, &mut runner, KeyCode::Enter);
-    let folder = app.export_folder.clone().expect("exported");
+    let folder = app.fit.export_folder.clone().expect("exported");
     assert_eq!(folder, dir.path().join("roughcal-export-1"));
     assert!(app.message.as_ref().unwrap().text.contains("exported ("));
     let command_folder = dir.path().join("command-out");
@@ -511,7 +511,7 @@ fn the_fit_runs_on_a_worker_and_can_be_cancelled() {
     // The prompt offers this session's folder.
     ctrl(&mut app, &mut runner, 'e');
     assert_eq!(
-        app.export_prompt.as_ref().unwrap().buffer,
+        app.fit.export_prompt.as_ref().unwrap().buffer,
         folder.display().to_string()
     );
     key(&mut app, &mut runner, KeyCode::Enter);
@@ -541,13 +541,13 @@ fn the_fit_runs_on_a_worker_and_can_be_cancelled() {
     }
     type_text(&mut app, &mut runner, &chosen.display().to_string());
     key(&mut app, &mut runner, KeyCode::Enter);
-    assert_eq!(app.export_folder.as_ref(), Some(&chosen));
+    assert_eq!(app.fit.export_folder.as_ref(), Some(&chosen));
     for name in OUTPUT_FILES {
         assert!(chosen.join(name).exists(), "{name}");
     }
     ctrl(&mut app, &mut runner, 'e');
     key(&mut app, &mut runner, KeyCode::Esc);
-    assert!(app.export_prompt.is_none());
+    assert!(app.fit.export_prompt.is_none());
     assert!(
         app.message
             .as_ref()
@@ -623,7 +623,7 @@ fn export_refuses_an_unconverged_fit_and_asks_before_exporting_an_out_of_date_on
     // As if the optimizer had stopped at its limit: nothing may be exported.
     app.fit.outcome.as_mut().unwrap().result.converged = false;
     ctrl(&mut app, &mut runner, 'e');
-    assert!(app.export_prompt.is_none());
+    assert!(app.fit.export_prompt.is_none());
     assert!(
         message(&app).contains("did NOT converge"),
         "{}",
@@ -639,27 +639,27 @@ fn export_refuses_an_unconverged_fit_and_asks_before_exporting_an_out_of_date_on
     key(&mut app, &mut runner, KeyCode::Enter);
     assert!(screen(&app, 100, 24).contains("fit out of date"));
     ctrl(&mut app, &mut runner, 'e');
-    assert!(app.export_prompt.is_none());
+    assert!(app.fit.export_prompt.is_none());
     assert!(
         message(&app).contains("fit out of date"),
         "{}",
         message(&app)
     );
     key(&mut app, &mut runner, KeyCode::Char('n'));
-    assert!(app.export_prompt.is_none());
+    assert!(app.fit.export_prompt.is_none());
     assert_eq!(std::fs::read_dir(dir.path()).unwrap().count(), 3); // network, sheet, SHEET.orig
     ctrl(&mut app, &mut runner, 'e');
     key(&mut app, &mut runner, KeyCode::Char('y'));
-    assert!(app.export_prompt.is_some());
+    assert!(app.fit.export_prompt.is_some());
     key(&mut app, &mut runner, KeyCode::Enter);
-    let folder = app.export_folder.clone().expect("exported");
+    let folder = app.fit.export_folder.clone().expect("exported");
     let report = std::fs::read_to_string(folder.join(REPORT_MD)).unwrap();
     assert!(report.contains("Fit out of date"), "{report}");
     assert!(report.contains("answered yes"), "{report}");
     // After a new fit the export no longer asks, and the report no longer says so.
     fit(&mut app, &mut runner);
     ctrl(&mut app, &mut runner, 'e');
-    assert!(app.confirm.is_none() && app.export_prompt.is_some());
+    assert!(app.confirm.is_none() && app.fit.export_prompt.is_some());
 }
 
 #[cfg(unix)]
@@ -847,7 +847,7 @@ fn quitting_with_a_half_typed_cell_or_unsaved_edits_asks_first() {
     assert!(message(&app).contains("half-typed"), "{}", message(&app));
     // n: back to the typing, nothing saved, nothing thrown away.
     key(&mut app, &mut runner, KeyCode::Char('n'));
-    assert_eq!(app.readings.edit.as_ref().unwrap().buffer, "B");
+    assert_eq!(app.readings.edit.as_ref().unwrap().input.buffer, "B");
     assert_eq!(on_disk(&app), start);
     // y: the typing is kept, saved, and the workbench quits.
     type_text(&mut app, &mut runner, "2");
@@ -948,4 +948,101 @@ fn a_network_changed_by_another_program_is_never_overwritten() {
             .contains("locked = true")
     );
     assert_eq!(std::fs::read_to_string(&network).unwrap(), theirs);
+}
+
+#[test]
+fn typing_h_j_k_l_into_a_readings_cell_types_them_and_backspace_clears_with_undo() {
+    let dir = tempfile::tempdir().unwrap();
+    let start = format!("{HEADER}A1,,,J-102,J-103,56,41,700,,,,,\n");
+    let mut app = workbench(dir.path(), &start);
+    let mut runner = Runner::new();
+    // The note column is the last one: End goes there, then every letter is typed, none moves.
+    key(&mut app, &mut runner, KeyCode::End);
+    let column = app.readings.column;
+    type_text(&mut app, &mut runner, "hjkl valve");
+    assert_eq!(app.readings.column, column);
+    assert!(screen(&app, 100, 24).contains("hjkl valve"));
+    key(&mut app, &mut runner, KeyCode::Enter);
+    assert_eq!(
+        app.session.sheet.cell(0, SheetColumn::Note),
+        Some("hjkl valve")
+    );
+    // A test id starting with h: the first letter is not lost.
+    key(&mut app, &mut runner, KeyCode::Home);
+    type_text(&mut app, &mut runner, "h7");
+    key(&mut app, &mut runner, KeyCode::Enter);
+    assert_eq!(app.session.sheet.cell(0, SheetColumn::Test), Some("h7"));
+    // Backspace on a cell (not typing) clears it; Ctrl+Z brings it back; the row stays.
+    key(&mut app, &mut runner, KeyCode::Up);
+    key(&mut app, &mut runner, KeyCode::Backspace);
+    assert_eq!(app.session.sheet.cell(0, SheetColumn::Test), Some(""));
+    assert_eq!(app.session.sheet.row_count(), 1);
+    assert!(app.confirm.is_none());
+    ctrl(&mut app, &mut runner, 'z');
+    assert_eq!(app.session.sheet.cell(0, SheetColumn::Test), Some("h7"));
+    // Delete clears too; deleting the row stays on Ctrl+D with a question.
+    key(&mut app, &mut runner, KeyCode::Delete);
+    assert_eq!(app.session.sheet.cell(0, SheetColumn::Test), Some(""));
+    ctrl(&mut app, &mut runner, 'd');
+    assert!(app.confirm.is_some());
+    key(&mut app, &mut runner, KeyCode::Char('y'));
+    assert_eq!(app.session.sheet.row_count(), 0);
+}
+
+#[test]
+fn vim_letters_still_move_in_groups_and_the_map() {
+    let dir = tempfile::tempdir().unwrap();
+    let mut app = workbench(dir.path(), SHEET);
+    let mut runner = Runner::new();
+    key(&mut app, &mut runner, KeyCode::F(3));
+    assert_eq!(app.view, View::Groups);
+    let row = app.groups.row;
+    key(&mut app, &mut runner, KeyCode::Char('j'));
+    assert_eq!(app.groups.row, (row + 1).min(app.groups.rows.len() - 1));
+    assert!(app.groups.edit.is_none());
+    key(&mut app, &mut runner, KeyCode::F(5));
+    let before = app.map.selected;
+    key(&mut app, &mut runner, KeyCode::Char('l'));
+    assert_ne!(app.map.selected, before);
+}
+
+#[test]
+fn the_tab_bar_shows_the_keys_that_switch_views() {
+    let dir = tempfile::tempdir().unwrap();
+    let mut app = workbench(dir.path(), SHEET);
+    let mut runner = Runner::new();
+    let text = screen(&app, 80, 24);
+    let title = text.lines().next().unwrap();
+    for (label, key_code, view) in [
+        ("F2 Readings", KeyCode::F(2), View::Readings),
+        ("F3 Groups", KeyCode::F(3), View::Groups),
+        ("F4 Fit", KeyCode::F(4), View::Fit),
+        ("F5 Map", KeyCode::F(5), View::Map),
+    ] {
+        assert!(title.contains(label), "{title}");
+        key(&mut app, &mut runner, key_code);
+        assert_eq!(app.view, view);
+    }
+    // The digits type into cells in Readings: they do not switch views there.
+    key(&mut app, &mut runner, KeyCode::F(2));
+    key(&mut app, &mut runner, KeyCode::Char('3'));
+    assert_eq!(app.view, View::Readings);
+}
+
+#[test]
+fn the_help_overlay_fits_80_by_24() {
+    let dir = tempfile::tempdir().unwrap();
+    let mut app = workbench(dir.path(), SHEET);
+    let mut runner = Runner::new();
+    key(&mut app, &mut runner, KeyCode::F(1));
+    assert!(app.help);
+    let text = screen(&app, 80, 24);
+    for (_, keys) in roughcal::tui::keymap::KEY_HELP {
+        for (keys, what) in keys {
+            assert!(
+                text.contains(&format!("{keys:<13} {what}")),
+                "`{keys} {what}` not shown in\n{text}"
+            );
+        }
+    }
 }

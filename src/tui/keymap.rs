@@ -11,25 +11,26 @@ pub const KEY_HELP: [(&str, &[(&str, &str)]); 6] = [
     (
         "Everywhere",
         &[
-            ("?", "these keys (Esc closes)"),
+            ("? F1", "keys (Esc or q closes)"),
             ("F2 .. F5", "Readings Groups Fit Map"),
             ("Alt+1 .. 4", "same; 1 .. 4 in Fit, Map"),
             ("Ctrl+R", "run the fit"),
             ("Esc", "cancel fit/question/edit"),
-            ("Ctrl+E", "export (asks for the folder)"),
+            ("Ctrl+E", "export (asks the folder)"),
             ("Ctrl+Q Ctrl+C", "quit (all is saved)"),
         ],
     ),
     (
         "Readings",
         &[
-            ("arrows hjkl", "move"),
+            ("arrows", "move (letters type)"),
             ("PgUp PgDn", "page up / down"),
-            ("Home End", "first / last column"),
+            ("Home End", "column; with Ctrl: row"),
             ("type, Enter", "edit the cell"),
             ("Tab Shift+Tab", "next / previous column"),
             ("Ctrl+N Insert", "add a row below"),
-            ("Ctrl+D Delete", "delete the row (y/n)"),
+            ("Bksp Delete", "clear the cell (undo)"),
+            ("Ctrl+D", "delete the row (y/n)"),
             ("Ctrl+Z Ctrl+Y", "undo / redo"),
         ],
     ),
@@ -79,7 +80,7 @@ pub fn key_hints(app: &App) -> &'static [(&'static str, &'static str)] {
     if app.help {
         return &[("Esc", "close help")];
     }
-    if app.export_prompt.is_some() {
+    if app.fit.export_prompt.is_some() {
         return &[("Enter", "export"), ("Esc", "cancel")];
     }
     if app.readings.edit.is_some() || app.groups.edit.is_some() {
@@ -128,7 +129,8 @@ pub fn key_hints(app: &App) -> &'static [(&'static str, &'static str)] {
     }
 }
 
-fn vertical_or_horizontal(code: KeyCode) -> Option<Move> {
+/// The arrow and paging keys as moves.
+fn arrow(code: KeyCode) -> Option<Move> {
     Some(match code {
         KeyCode::Up => Move::Up,
         KeyCode::Down => Move::Down,
@@ -138,6 +140,16 @@ fn vertical_or_horizontal(code: KeyCode) -> Option<Move> {
         KeyCode::PageDown => Move::PageDown,
         KeyCode::Home => Move::Home,
         KeyCode::End => Move::End,
+        _ => return None,
+    })
+}
+
+/// The arrows and the vim letters, where nothing is typed.
+fn vertical_or_horizontal(code: KeyCode) -> Option<Move> {
+    if let Some(m) = arrow(code) {
+        return Some(m);
+    }
+    Some(match code {
         KeyCode::Char('h') => Move::Left,
         KeyCode::Char('j') => Move::Down,
         KeyCode::Char('k') => Move::Up,
@@ -185,7 +197,7 @@ pub fn action_for_key(app: &App, key: KeyEvent) -> Option<Action> {
     if let Some(view) = view_key {
         return Some(Action::SwitchView(view));
     }
-    if app.readings.edit.is_some() || app.groups.edit.is_some() || app.export_prompt.is_some() {
+    if app.readings.edit.is_some() || app.groups.edit.is_some() || app.fit.export_prompt.is_some() {
         return editing_key(app, key, ctrl);
     }
     if key.code == KeyCode::Esc {
@@ -239,13 +251,14 @@ fn readings_key(key: KeyEvent, ctrl: bool, alt: bool) -> Option<Action> {
     }
     match key.code {
         KeyCode::Insert => return Some(Action::AddRow),
-        KeyCode::Delete => return Some(Action::DeleteRow),
+        KeyCode::Delete | KeyCode::Backspace => return Some(Action::ClearCell),
         KeyCode::Enter | KeyCode::Char(' ') => return Some(Action::BeginEdit),
         KeyCode::Tab => return Some(Action::MoveCursor(Move::Right)),
         KeyCode::BackTab => return Some(Action::MoveCursor(Move::Left)),
         _ => {}
     }
-    if let Some(m) = vertical_or_horizontal(key.code) {
+    // Only the arrows move here: every printable character (h, j, k and l too) starts typing.
+    if let Some(m) = arrow(key.code) {
         return Some(Action::MoveCursor(m));
     }
     match key.code {

@@ -14,8 +14,10 @@ use crossterm::terminal::{
 use ratatui::Terminal;
 use ratatui::backend::CrosstermBackend;
 
-use super::app::{Action, App, Effect, ExportJob, SaveTarget, update};
+use super::app::{Action, App, Effect, update};
 use super::keymap::action_for_key;
+use super::session::SaveTarget;
+use super::state::fit::ExportJob;
 use super::views;
 use super::worker::CalibrationWorker;
 use crate::fieldtest::load_sheet;

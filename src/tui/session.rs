@@ -3,10 +3,68 @@
 
 use std::path::{Path, PathBuf};
 
-use super::app::{FileState, Session};
 use crate::fieldtest::{FieldSheet, SheetError, load_sheet};
+use crate::network::Network;
 use crate::network::file::NetworkFileError;
+use crate::storage::FileStamp;
 use crate::storage::{self, WriteError};
+
+/// The files being worked on.
+#[derive(Debug, Clone)]
+pub struct Session {
+    pub network_path: PathBuf,
+    /// The network file's text as last written, for preserving edits.
+    pub network_text: String,
+    pub network: Network,
+    pub sheet_path: PathBuf,
+    pub sheet: FieldSheet,
+    /// For the demo: the scratch folder holding the copies.
+    pub scratch_folder: Option<PathBuf>,
+    /// Whether the sheet's first state is kept as `SHEET.orig` on the first save.
+    pub keep_original: bool,
+    /// What the sheet file on disk was when last read or written, and whether it may be written.
+    pub sheet_file: FileState,
+    /// The same for the network file.
+    pub network_file: FileState,
+    /// The sheet as last read from or written to disk: the common ancestor when another program's
+    /// version has to be merged with ours.
+    pub sheet_base: FieldSheet,
+}
+
+/// What the workbench knows about a file it works on.
+#[derive(Debug, Clone, Default, PartialEq)]
+pub struct FileState {
+    /// The file cannot be written: edits are refused, nothing is ever written to it.
+    pub read_only: bool,
+    /// Size, modification time and hash of the file as last read or written (`None`: not known, e.g.
+    /// a file that does not exist yet).
+    pub stamp: Option<FileStamp>,
+}
+
+impl FileState {
+    /// The state of the file at `path` as it is now.
+    pub fn of(path: &std::path::Path) -> FileState {
+        FileState {
+            read_only: !crate::storage::is_writable(path),
+            stamp: FileStamp::of(path).ok(),
+        }
+    }
+}
+
+/// A save that found the file on disk changed by someone else, and where our version went instead.
+#[derive(Debug, Clone, PartialEq)]
+pub struct Conflict {
+    /// `SHEET.roughcal-unsaved.csv` (or the network's), with its stamp; `Err` when it could not be
+    /// written either (the edits are then only in memory).
+    pub side_file: Result<(PathBuf, Option<FileStamp>), String>,
+}
+
+/// Which file a save was for.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum SaveTarget {
+    Sheet,
+    Network,
+}
 
 /// Why a session could not be opened.
 #[derive(Debug, thiserror::Error)]

@@ -8,8 +8,9 @@ use ratatui::widgets::Paragraph;
 
 use super::{fit_text, right};
 use crate::calibrate::GroupStatus;
-use crate::tui::app::{
-    App, GROUP_COLUMNS, GROUP_LOCK, GROUP_MAX, GROUP_MIN, GROUP_START, format_c,
+use crate::tui::app::App;
+use crate::tui::state::groups::{
+    GROUP_COLUMNS, GROUP_LOCK, GROUP_MAX, GROUP_MIN, GROUP_START, format_c,
 };
 
 const WIDTHS: [usize; 10] = [15, 5, 6, 7, 4, 4, 4, 6, 7, 12];
@@ -64,7 +65,7 @@ pub fn render(app: &App, frame: &mut Frame, area: Rect) {
         for (c, text) in cells.iter().enumerate() {
             let editing = state.edit.as_ref().filter(|e| e.row == r && e.column == c);
             let shown = match editing {
-                Some(edit) => right(&format!("{}_", edit.buffer), WIDTHS[c]),
+                Some(edit) => right(&format!("{}_", edit.input.buffer), WIDTHS[c]),
                 None if c == 0 => fit_text(text, WIDTHS[c]),
                 None => right(text, WIDTHS[c]),
             };

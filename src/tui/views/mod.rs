@@ -35,7 +35,7 @@ fn title_bar(app: &App, frame: &mut Frame, area: Rect) {
     let theme = app.theme;
     let mut spans = vec![Span::styled(" roughcal ", theme.title_current())];
     for view in View::ALL {
-        let text = format!(" {} {} ", view.number(), view.title());
+        let text = format!(" F{} {} ", view.number() + 1, view.title());
         let style = if view == app.view {
             theme.title_current()
         } else {

@@ -98,7 +98,12 @@ pub fn render(app: &App, frame: &mut Frame, area: Rect) {
                 .as_ref()
                 .filter(|e| e.row == row && e.column == c);
             if let Some(edit) = editing {
-                spans.extend(edit_spans(app, &edit.buffer, edit.cursor, width));
+                spans.extend(edit_spans(
+                    app,
+                    &edit.input.buffer,
+                    edit.input.cursor,
+                    width,
+                ));
                 spans.push(Span::raw(" "));
                 continue;
             }

@@ -12,14 +12,14 @@ use crate::tui::keymap::key_hints;
 
 /// The first status line's text and whether it is an error.
 pub fn status_text(app: &App) -> (String, bool) {
-    if let Some(prompt) = &app.export_prompt {
+    if let Some(prompt) = &app.fit.export_prompt {
         return (prompt_line(app, &prompt.buffer, prompt.cursor), false);
     }
     if let Some(edit) = &app.readings.edit
         && app.view == View::Readings
         && app.is_node_column(edit.column)
     {
-        let found = app.node_completions(&edit.buffer, 6);
+        let found = app.node_completions(&edit.input.buffer, 6);
         return match found.as_slice() {
             [] => ("no junction starts like that".into(), true),
             ids => (format!("nodes: {}  (Tab completes)", ids.join(" ")), false),
