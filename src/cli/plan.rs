@@ -88,8 +88,8 @@ pub fn run(args: Args) -> anyhow::Result<ExitCode> {
             run_date: &super::today_utc(),
         };
         let files = [
-            (md, plan_markdown(&net, &plan, &options, &context)),
-            (csv, plan_sheet(&net, &plan, &options)?),
+            (md, plan_markdown(net, &plan, &options, &context)),
+            (csv, plan_sheet(net, &plan, &options)?),
         ];
         for (path, text) in files {
             storage::write_new(path, text.as_bytes(), args.force)?;

@@ -303,11 +303,15 @@ pub(crate) fn model_available_flow(
     Ok(Some((low * total, at_low)))
 }
 
+/// A solve at a hydrant flow scale, warm-started from a solution: the gauge's pressure head and the
+/// solution.
+type PressureAt<'a> = dyn Fn(f64, &Solution) -> Result<(f64, Solution), SolveError> + 'a;
+
 /// The secant of [`model_available_flow`]: the hydrant flow scale at which the gauge pressure head
 /// falls to `target_head_m` (within a millimetre), and the solution there; `None` when the secant
 /// cannot be trusted (the caller then brackets and bisects).
 fn secant_search(
-    pressure_at: &dyn Fn(f64, &Solution) -> Result<(f64, Solution), SolveError>,
+    pressure_at: &PressureAt<'_>,
     statics: &Solution,
     static_head_m: f64,
     target_head_m: f64,

@@ -179,12 +179,12 @@ pub fn parse_network(text: &str, file_name: &str) -> Result<LoadedNetwork, Netwo
     let mut reader = Reader::new(text, file_name);
     if let Some(layout) = Layout::of(text) {
         let root_text = text.get(..layout.root_end).unwrap_or("");
-        if let Some(root) = parse_piece(root_text, None) {
-            if !layout.conflicts_with(&root) {
-                let loaded = reader.build_parsing_ahead(&root, &layout);
-                if !reader.abandoned {
-                    return reader.finish(loaded);
-                }
+        if let Some(root) = parse_piece(root_text, None)
+            && !layout.conflicts_with(&root)
+        {
+            let loaded = reader.build_parsing_ahead(&root, &layout);
+            if !reader.abandoned {
+                return reader.finish(loaded);
             }
         }
         // The runs hold something only the whole document can say (a TOML error, a number too large):
