@@ -9,7 +9,7 @@ use std::sync::atomic::AtomicBool;
 
 use anyhow::{Context as _, bail};
 use roughcal::calibrate::{self as core, CalibrationOptions, FitTarget, Job};
-use roughcal::fieldtest::{StaticHeads, load_sheet, screen_sheet, with_static_findings};
+use roughcal::fieldtest::{StaticHeads, load_sheet};
 use roughcal::network::{Network, read_network};
 use roughcal::report::{
     CalibrationOutputs, Provenance, RunContext, check_no_outputs, json_summary, text_summary,
@@ -70,17 +70,11 @@ pub fn run(args: Args) -> anyhow::Result<ExitCode> {
     if let Some(out) = &args.out {
         let sheet_bytes = std::fs::read(&args.sheet)
             .with_context(|| format!("cannot read field sheet {sheet_file}"))?;
-        // The test dates come from the screened sheet, as the job read it.
-        let reading = with_static_findings(
-            &job.network,
-            screen_sheet(&sheet, Some(&job.network)),
-            &static_heads,
-        );
         let provenance = Provenance::of(
             super::today_utc(),
             job.network_text.as_bytes(),
             &sheet_bytes,
-            &reading,
+            &sheet,
         );
         let outputs = CalibrationOutputs::build_delivered(&run, &job.network_text, &provenance)?;
         let written = write_outputs(out, &outputs, args.force)?;

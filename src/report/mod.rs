@@ -137,18 +137,19 @@ pub struct Provenance {
 }
 
 impl Provenance {
-    /// The provenance of a run on `network` and `sheet` (the bytes as read) whose tests are `reading`.
+    /// The provenance of a run on `network` and `sheet` (the bytes as read); the test dates are the
+    /// `date` cells of `parsed_sheet` (the same sheet parsed; no screening needed for them).
     pub fn of(
         run_date: String,
         network: &[u8],
         sheet: &[u8],
-        reading: &crate::fieldtest::SheetReading,
+        parsed_sheet: &crate::fieldtest::FieldSheet,
     ) -> Self {
         Self {
             run_date,
             network_sha256: Some(sha256_hex(network)),
             sheet_sha256: Some(sha256_hex(sheet)),
-            test_dates: reading
+            test_dates: crate::fieldtest::read_tests(parsed_sheet)
                 .tests
                 .iter()
                 .map(|t| (t.test_id.clone(), t.date.clone()))

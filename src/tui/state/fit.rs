@@ -280,7 +280,7 @@ impl FitState {
             crate::storage::today_utc(),
             job.network_text.as_bytes(),
             sheet_text.as_bytes(),
-            &crate::fieldtest::read_tests(&ctx.session.sheet),
+            &ctx.session.sheet,
         );
         let outputs =
             match CalibrationOutputs::build_delivered(&run, &job.network_text, &provenance) {
