@@ -36,25 +36,15 @@ pub enum SheetColumn {
 }
 
 impl SheetColumn {
-    /// Every known column, in the order of the template header.
-    pub const ALL: [SheetColumn; 13] = [
-        Self::Test,
-        Self::Date,
-        Self::Time,
-        Self::ResidualNode,
-        Self::FlowNode,
-        Self::Static,
-        Self::Residual,
-        Self::Flow,
-        Self::Pitot,
-        Self::Outlet,
-        Self::Coefficient,
-        Self::Condition,
-        Self::Note,
-    ];
+    /// Every known column, in the order of the template header: [`SheetColumn::KNOWN`] without the
+    /// optional columns at its end.
+    pub const ALL: [SheetColumn; 13] = match Self::KNOWN.first_chunk::<13>() {
+        Some(template) => *template,
+        None => panic!("KNOWN starts with the template's columns"),
+    };
 
-    /// Every column the reader recognises: the template's ([`SheetColumn::ALL`]) and the optional ones
-    /// a sheet may add (`use`).
+    /// Every column the reader recognises: the template's ([`SheetColumn::ALL`], first) and the
+    /// optional ones a sheet may add (`use`).
     pub const KNOWN: [SheetColumn; 14] = [
         Self::Test,
         Self::Date,
